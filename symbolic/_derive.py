@@ -1,0 +1,796 @@
+"""The design workflow: a validated design in, a finished :class:`Derivation` out.
+
+One direction of flow: :func:`derive` chooses the poles, derives the closed
+forms within a time budget (:mod:`symbolic._closed_form` in a child
+process), evaluates them at the design's parameter values, cross-checks
+every number against SciPy (:mod:`symbolic._numeric`) and returns frozen
+result objects.  Renderers (terminal, JSON, memo) consume these objects and
+never re-derive anything.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.signal
+import sympy as sp
+
+from . import _closed_form as cf
+from ._budget import run_bounded
+from ._design import Design, Signal
+from ._errors import BudgetExceeded, DesignFileError, StructureError
+from ._numeric import (
+    eigenvalue_tolerance,
+    evaluate_matrix,
+    numeric_ackermann,
+    pole_residual,
+    polynomial_residual,
+    relative_difference,
+    scipy_placement,
+)
+from ._specs import DominantPair, dominant_pair, remaining_poles
+
+__all__ = [
+    "Check",
+    "CompensatorResult",
+    "Derivation",
+    "GainResult",
+    "NumericPlant",
+    "PoleChoice",
+    "ReferenceGainResult",
+    "SeparatedLoop",
+    "StructureReport",
+    "derive",
+    "select_controller_poles",
+    "select_observer_poles",
+]
+
+s = cf.s
+
+#: Relative tolerance of gain comparisons against SciPy.
+GAIN_TOLERANCE = 1e-8
+#: Relative tolerance of characteristic-polynomial coefficient checks.
+POLYNOMIAL_TOLERANCE = 1e-8
+#: Condition number of the controllability/observability matrix above which a warning is given.
+ILL_CONDITIONED = 1e8
+#: Closed-form transfer function of the compensator up to this order.
+COMPENSATOR_CLOSED_FORM_MAX_ORDER = 3
+
+
+# --------------------------------------------------------------------------
+# Result objects
+# --------------------------------------------------------------------------
+@dataclass(frozen=True)
+class Check:
+    """One numeric or exact verification.
+
+    ``passed`` is None for a check that could not be run (``note`` says why).
+    """
+
+    name: str
+    value: float | None
+    tolerance: float | None
+    passed: bool | None
+    note: str = ""
+
+
+@dataclass(frozen=True)
+class PoleChoice:
+    """Requested poles and how they were chosen."""
+
+    poles: tuple[sp.Expr, ...]
+    origin: str  # "given", "specifications", "speed factor"
+    rule: str  # one sentence for the reader
+    coefficients: tuple[sp.Expr, ...]  # [1, a_{n-1}, …, a_0]
+    dominant: DominantPair | None = None
+
+    @property
+    def values(self) -> np.ndarray:
+        return np.array([complex(p) for p in self.poles])
+
+    @property
+    def polynomial(self) -> sp.Expr:
+        n = len(self.coefficients) - 1
+        return sp.Add(*[c * s ** (n - i) for i, c in enumerate(self.coefficients)])
+
+
+@dataclass(frozen=True)
+class StructureReport:
+    """Controllability or observability of the plant."""
+
+    kind: str  # "controllability" or "observability"
+    matrix: sp.Matrix | None  # closed form (None if over budget)
+    determinant: sp.Expr | None  # factored, single input / single output only
+    conditions: tuple[str, ...]  # e.g. ("kf = 0",): where the property is lost
+    numeric_rank: int
+    order: int
+    condition_number: float
+    value: np.ndarray  # numeric matrix at the evaluated values
+
+    @property
+    def full_rank(self) -> bool:
+        return self.numeric_rank == self.order
+
+    @property
+    def adjective(self) -> str:
+        return "uncontrollable" if self.kind == "controllability" else "unobservable"
+
+
+@dataclass(frozen=True)
+class GainResult:
+    """A feedback gain (K) or observer gain (L)."""
+
+    name: str  # "K" or "L"
+    value: np.ndarray  # numeric, at the evaluated parameter values
+    closed_form: sp.Matrix | None
+    method: str
+    unique: bool
+    steps: cf.AckermannSteps | None = None  # of the dual pair for L
+    charpoly: tuple[sp.Expr, ...] | None = None  # det(sI − closed-loop matrix), closed form
+
+
+@dataclass(frozen=True)
+class ReferenceGainResult:
+    """Feed-forward gain N in u = −K x̂ + N r for zero steady-state step error."""
+
+    value: np.ndarray  # (m, 1)
+    closed_form: sp.Expr | None
+    zero_polynomial: (
+        tuple[sp.Expr, ...] | None
+    )  # numerator of the tracked output's transfer function
+    tracked: Signal
+    tracked_index: int
+    method: str
+
+
+@dataclass(frozen=True)
+class SeparatedLoop:
+    """The 2n closed loop in (state x, estimation error e = x − x̂) coordinates."""
+
+    value: np.ndarray
+    closed_form: sp.Matrix | None
+    charpoly: tuple[sp.Expr, ...] | None
+    factors_as_expected: bool | None
+    poles: np.ndarray  # eigenvalues, computed
+
+
+@dataclass(frozen=True)
+class CompensatorResult:
+    """Observer plus feedback seen as a transfer function from y to u.
+
+    U(s)/Y(s) = −num(s)/den(s) (negative feedback convention: u = −C(s) y
+    with C(s) = num/den).  Single-input, single-output plants only.
+    """
+
+    numerator: np.ndarray | None
+    denominator: np.ndarray | None
+    numerator_closed_form: tuple[sp.Expr, ...] | None
+    denominator_closed_form: tuple[sp.Expr, ...] | None
+    state_matrix: np.ndarray  # F = A − BK − LC + LDK
+
+
+@dataclass(frozen=True)
+class NumericPlant:
+    """The plant at the evaluated parameter values."""
+
+    A: np.ndarray
+    B: np.ndarray
+    C: np.ndarray
+    D: np.ndarray
+
+
+@dataclass(frozen=True)
+class Derivation:
+    """Everything :func:`derive` found, ready for the renderers."""
+
+    design: Design
+    plant: NumericPlant
+    controller_poles: PoleChoice
+    observer_poles: PoleChoice
+    controllability: StructureReport
+    observability: StructureReport
+    K: GainResult
+    L: GainResult
+    reference: ReferenceGainResult | None
+    separated: SeparatedLoop
+    compensator: CompensatorResult | None
+    checks: tuple[Check, ...]
+    notes: tuple[str, ...]
+    closed_form: bool
+    plant_charpoly: tuple[sp.Expr, ...] | None
+    timings: dict[str, float] = field(default_factory=dict, compare=False)
+
+    @property
+    def passed(self) -> bool:
+        """True when no check failed (checks that could not run do not fail)."""
+        return all(c.passed is not False for c in self.checks)
+
+    @property
+    def parameter_values(self) -> dict[str, float]:
+        return {p.name: float(p.value) for p in self.design.parameters}
+
+    def _repr_markdown_(self) -> str:  # Jupyter
+        lines = [f"**{self.design.title}** — K = {np.array2string(self.K.value, precision=6)}"]
+        if self.K.closed_form is not None:
+            lines.append(f"$$K = {sp.latex(self.K.closed_form)}$$")
+        if self.L.closed_form is not None:
+            lines.append(f"$$L = {sp.latex(self.L.closed_form)}$$")
+        lines.append("checks: " + ("all passed" if self.passed else "**some failed**"))
+        return "\n\n".join(lines)
+
+
+# --------------------------------------------------------------------------
+# Pole selection
+# --------------------------------------------------------------------------
+def _exact(x: float) -> sp.Rational:
+    """A float rounded for display (shortest repr) as an exact rational."""
+    return sp.Rational(repr(float(x)))
+
+
+def _exact_complex(z: complex) -> sp.Expr:
+    re, im = _exact(z.real), _exact(z.imag)
+    return re + sp.I * im if im != 0 else re
+
+
+def select_controller_poles(design: Design) -> PoleChoice:
+    """The controller poles: given, or from specifications plus the rule for the rest."""
+    req = design.controller
+    n = design.plant.order
+    if req.poles is not None:
+        coeffs = cf.desired_coefficients(req.poles)
+        return PoleChoice(
+            req.poles, "given", "controller poles as given in the design file", coeffs
+        )
+    assert req.specifications is not None
+    pair = dominant_pair(req.specifications)
+    dominant = tuple(_exact_complex(p) for p in pair.poles)
+    if req.remaining_poles is not None:
+        rest = req.remaining_poles
+        rule = "the remaining poles as given in the design file (controller.remaining_poles)"
+    else:
+        rest = tuple(
+            _exact_complex(p) for p in remaining_poles(pair, n - 2, req.remaining_pole_factor)
+        )
+        rule = (
+            f"the remaining {n - 2} pole(s) real, {req.remaining_pole_factor:g} times farther left"
+            " than the dominant pair, spread by 10 % so that no pole repeats (common practice,"
+            " no source: they then decay that much faster and the pair dominates)"
+            if n > 2
+            else "second-order plant: the dominant pair is the whole set"
+        )
+    poles = dominant + tuple(rest)
+    return PoleChoice(poles, "specifications", rule, cf.desired_coefficients(poles), pair)
+
+
+def select_observer_poles(design: Design, controller: PoleChoice) -> PoleChoice:
+    """Observer poles: given, or the controller poles scaled by the speed factor."""
+    req = design.observer
+    if req.poles is not None:
+        return PoleChoice(
+            req.poles,
+            "given",
+            "observer poles as given in the design file",
+            cf.desired_coefficients(req.poles),
+        )
+    f = _exact(req.speed_factor)
+    poles = tuple(sp.expand(f * p) for p in controller.poles)
+    why = (
+        " (default; common practice, no source: observers are usually made 2 to 6 times faster"
+        " than the controller)"
+        if req.speed_factor_is_default
+        else " (observer.speed_factor)"
+    )
+    rule = f"observer poles = {req.speed_factor:g} × controller poles{why}"
+    return PoleChoice(poles, "speed factor", rule, cf.desired_coefficients(poles))
+
+
+# --------------------------------------------------------------------------
+# Structure
+# --------------------------------------------------------------------------
+def _describe_zero(f: sp.Expr) -> str:
+    """'kf = 0' or 'k = c*m/b' for a factor f that must not vanish."""
+    if f.is_Symbol:
+        return f"{f} = 0"
+    for x in sorted(f.free_symbols, key=lambda v: v.name):
+        poly = sp.Poly(f, x) if f.is_polynomial(x) else None
+        if poly is not None and poly.degree() == 1:
+            a, b = poly.all_coeffs()
+            if a.is_number:
+                return f"{x} = {sp.factor(-b / a)}"
+    return f"{f} = 0"
+
+
+def conditions_of(determinant: sp.Expr | None) -> tuple[str, ...]:
+    """The parameter conditions under which a determinant vanishes."""
+    if determinant is None:
+        return ()
+    num, _den = sp.fraction(sp.factor(determinant))
+    try:
+        _c, factors = sp.factor_list(num)
+    except sp.PolynomialError:
+        return (f"{num} = 0",) if num.free_symbols else ()
+    return tuple(_describe_zero(f) for f, _mult in factors if f.free_symbols)
+
+
+def _structure(
+    kind: str,
+    matrix: sp.Matrix | None,
+    determinant: sp.Expr | None,
+    value: np.ndarray,
+    order: int,
+) -> StructureReport:
+    rank = int(np.linalg.matrix_rank(value)) if np.all(np.isfinite(value)) else 0
+    cond = (
+        float(np.linalg.cond(value))
+        if rank == order and value.shape[0] == value.shape[1]
+        else (float(np.linalg.cond(value @ value.T)) ** 0.5 if rank == order else math.inf)
+    )
+    return StructureReport(
+        kind=kind,
+        matrix=matrix,
+        determinant=determinant,
+        conditions=conditions_of(determinant),
+        numeric_rank=rank,
+        order=order,
+        condition_number=cond,
+        value=value,
+    )
+
+
+def _numeric_structure(A: np.ndarray, B: np.ndarray) -> np.ndarray:
+    cols = [B]
+    for _ in range(A.shape[0] - 1):
+        cols.append(A @ cols[-1])
+    return np.hstack(cols)
+
+
+# --------------------------------------------------------------------------
+# The workflow
+# --------------------------------------------------------------------------
+def _closed_form_stage(design: Design, ctrl: PoleChoice, obs: PoleChoice) -> cf.ClosedForms:
+    p = design.plant
+    return cf.closed_forms(
+        sp.Matrix(p.A),
+        sp.Matrix(p.B),
+        sp.Matrix(p.C),
+        sp.Matrix(p.D),
+        design.tracking.output,
+        ctrl.coefficients,
+        obs.coefficients,
+    )
+
+
+def _separated_stage(
+    design: Design, K: sp.Matrix, L: sp.Matrix, ctrl: PoleChoice, obs: PoleChoice
+) -> cf.SeparatedForms:
+    p = design.plant
+    return cf.separated_forms(
+        sp.Matrix(p.A),
+        sp.Matrix(p.B),
+        sp.Matrix(p.C),
+        sp.Matrix(p.D),
+        K,
+        L,
+        ctrl.coefficients,
+        obs.coefficients,
+        compensator=p.order <= COMPENSATOR_CLOSED_FORM_MAX_ORDER,
+    )
+
+
+def _numeric_plant(design: Design) -> NumericPlant:
+    values = design.values
+    mats = {}
+    for name in ("A", "B", "C", "D"):
+        M = getattr(design.plant, name)
+        val = evaluate_matrix(M, values)
+        bad = np.argwhere(~np.isfinite(val))
+        if bad.size:
+            i, j = bad[0]
+            raise DesignFileError(
+                f"'{M[i, j]}' is not a finite real number at the evaluated parameter values"
+                f" ({_values_text(design)})",
+                design.path,
+                f"plant.{name}[{i}][{j}]",
+            )
+        mats[name] = val
+    return NumericPlant(**mats)
+
+
+def _values_text(design: Design) -> str:
+    return ", ".join(f"{p.name} = {p.value}" for p in design.parameters) or "no parameters"
+
+
+def _bounded(func, args, design: Design, what: str, notes: list[str], budget: float | None):
+    seconds = design.symbolic_budget_seconds if budget is None else budget
+    try:
+        return run_bounded(func, args, seconds=None if seconds <= 0 else seconds, what=what)
+    except BudgetExceeded as exc:
+        notes.append(f"{exc}; numeric results are given instead of closed forms")
+        return None
+
+
+def derive(design: Design, *, budget: float | None = None) -> Derivation:
+    """Derive K, L, the reference gain and the separated loop, and check them.
+
+    Parameters
+    ----------
+    design : Design
+        From :func:`symbolic.load_design`.
+    budget : float, optional
+        Seconds allowed for each symbolic stage (default: the design file's
+        ``options.symbolic_budget_seconds``, 20 s).  Zero or negative runs the
+        symbolic stages in this process without a limit.
+
+    Returns
+    -------
+    Derivation
+
+    Raises
+    ------
+    StructureError
+        When the plant is uncontrollable or unobservable at the evaluated
+        parameter values.
+    """
+    timings: dict[str, float] = {}
+    t0 = time.perf_counter()
+    notes: list[str] = []
+    checks: list[Check] = []
+    plant = design.plant
+    n, m, p = plant.order, plant.n_inputs, plant.n_outputs
+    values = design.values
+
+    ctrl = select_controller_poles(design)
+    obs = select_observer_poles(design, ctrl)
+    num = _numeric_plant(design)
+    A, B, C, D = num.A, num.B, num.C, num.D
+
+    # ---- closed forms (bounded) -------------------------------------------
+    t = time.perf_counter()
+    forms: cf.ClosedForms | None = None
+    if m == 1 or p == 1:
+        try:
+            forms = _bounded(
+                _closed_form_stage,
+                (design, ctrl, obs),
+                design,
+                "the closed-form derivation",
+                notes,
+                budget,
+            )
+        except StructureError as exc:
+            raise StructureError(exc.problem, design.path, exc.key) from exc
+    timings["closed_form"] = time.perf_counter() - t
+
+    # ---- structure ----------------------------------------------------------
+    ctrb_value = _numeric_structure(A, B)
+    obsv_value = _numeric_structure(A.T, C.T).T
+    ctrb_cf = forms.controller.structure if forms and forms.controller else None
+    obsv_cf = forms.observer.structure.T if forms and forms.observer else None
+    controllability = _structure(
+        "controllability",
+        ctrb_cf,
+        forms.controllability_determinant if forms else None,
+        ctrb_value,
+        n,
+    )
+    observability = _structure(
+        "observability", obsv_cf, forms.observability_determinant if forms else None, obsv_value, n
+    )
+    for rep in (controllability, observability):
+        exact_zero = False
+        if rep.determinant is not None:
+            exact_zero = sp.simplify(rep.determinant.xreplace(values)) == 0
+        if exact_zero or not rep.full_rank:
+            where = (
+                f" (the plant is {rep.adjective} where {'; '.join(rep.conditions)})"
+                if rep.conditions
+                else ""
+            )
+            raise StructureError(
+                f"the plant is {rep.adjective} at the evaluated parameter values"
+                f" ({_values_text(design)}): {rep.kind} matrix rank {rep.numeric_rank} of {n}{where}",
+                design.path,
+                "plant",
+            )
+        if rep.condition_number > ILL_CONDITIONED:
+            notes.append(
+                f"the {rep.kind} matrix is ill-conditioned (condition number"
+                f" {rep.condition_number:.2e}): the gains are sensitive to the model"
+            )
+
+    # ---- gains --------------------------------------------------------------
+    K = _gain("K", forms.controller if forms else None, A, B, ctrl, values, notes, checks)
+    Lt = _gain("L", forms.observer if forms else None, A.T, C.T, obs, values, notes, checks)
+    L = GainResult(
+        name="L",
+        value=Lt.value.T.copy(),
+        closed_form=Lt.closed_form.T if Lt.closed_form is not None else None,
+        method=Lt.method + " on the dual pair (Aᵀ, Cᵀ)",
+        unique=Lt.unique,
+        steps=Lt.steps,
+        charpoly=forms.observer_charpoly if forms else None,
+    )
+    K = GainResult(
+        K.name,
+        K.value,
+        K.closed_form,
+        K.method,
+        K.unique,
+        K.steps,
+        forms.controller_charpoly if forms else None,
+    )
+    if forms is not None:
+        for label, ok in (
+            (
+                "det(sI − (A − BK)) equals the desired controller polynomial identically (exact, symbolic)",
+                forms.controller_identity_holds,
+            ),
+            (
+                "det(sI − (A − LC)) equals the desired observer polynomial identically (exact, symbolic)",
+                forms.observer_identity_holds,
+            ),
+        ):
+            if ok is not None:
+                checks.append(Check(label, None, None, bool(ok)))
+
+    # ---- numeric eigenvalue / polynomial checks ----------------------------------
+    Acl = A - B @ K.value
+    Aobs = A - L.value @ C
+    for label, M, choice in (
+        ("A − BK", Acl, ctrl),
+        ("A − LC", Aobs, obs),
+    ):
+        eig = np.linalg.eigvals(M)
+        tol = eigenvalue_tolerance(choice.values)
+        res = pole_residual(eig, choice.values)
+        checks.append(
+            Check(f"eigenvalues of {label} vs requested poles (relative)", res, tol, res <= tol)
+        )
+        coeffs = [complex(c).real for c in choice.coefficients]
+        pres = polynomial_residual(M, coeffs)
+        checks.append(
+            Check(
+                f"characteristic polynomial of {label} vs desired (relative, coefficients)",
+                pres,
+                POLYNOMIAL_TOLERANCE,
+                pres <= POLYNOMIAL_TOLERANCE,
+            )
+        )
+
+    # ---- separated loop ----------------------------------------------------
+    BK = B @ K.value
+    sep_value = np.block([[Acl, BK], [np.zeros((n, n)), Aobs]])
+    sep_poles = np.linalg.eigvals(sep_value)
+    union = np.concatenate([ctrl.values, obs.values])
+    tol = eigenvalue_tolerance(union)
+    res = pole_residual(sep_poles, union)
+    checks.append(
+        Check(
+            "eigenvalues of the 2n separated loop vs controller ∪ observer poles",
+            res,
+            tol,
+            res <= tol,
+        )
+    )
+    sep_forms = None
+    t = time.perf_counter()
+    if K.closed_form is not None and L.closed_form is not None:
+        sep_forms = _bounded(
+            _separated_stage,
+            (design, K.closed_form, L.closed_form, ctrl, obs),
+            design,
+            "the separated-loop derivation",
+            notes,
+            budget,
+        )
+    timings["separated"] = time.perf_counter() - t
+    if sep_forms is not None:
+        checks.append(
+            Check(
+                "separated loop: det(sI − M) = α_c(s)·α_o(s) identically (exact, symbolic)",
+                None,
+                None,
+                bool(sep_forms.factors_as_expected),
+            )
+        )
+    separated = SeparatedLoop(
+        value=sep_value,
+        closed_form=sep_forms.matrix if sep_forms else None,
+        charpoly=sep_forms.charpoly if sep_forms else None,
+        factors_as_expected=sep_forms.factors_as_expected if sep_forms else None,
+        poles=sep_poles,
+    )
+
+    # ---- reference gain ---------------------------------------------------------
+    reference = _reference_gain(design, forms, A, B, C, D, K.value, values, checks, notes)
+
+    # ---- compensator --------------------------------------------------------------
+    compensator = _compensator(A, B, C, D, K.value, L.value, sep_forms, values, checks)
+
+    # ---- observer speed note ----------------------------------------------------
+    slow_c = min(abs(complex(z).real) for z in ctrl.values)
+    slow_o = min(abs(complex(z).real) for z in obs.values)
+    if slow_o < 2 * slow_c:
+        notes.append(
+            f"the slowest observer pole decays only {slow_o / slow_c:.2g} times as fast as the"
+            " slowest controller pole; estimation errors will show in the response (common"
+            " practice, no source: make the observer 2 to 6 times faster)"
+        )
+    if not K.unique:
+        notes.append("several inputs: K is one of many gains that place these poles (not unique)")
+    if not L.unique:
+        notes.append("several outputs: L is one of many gains that place these poles (not unique)")
+    timings["total"] = time.perf_counter() - t0
+    return Derivation(
+        design=design,
+        plant=num,
+        controller_poles=ctrl,
+        observer_poles=obs,
+        controllability=controllability,
+        observability=observability,
+        K=K,
+        L=L,
+        reference=reference,
+        separated=separated,
+        compensator=compensator,
+        checks=tuple(checks),
+        notes=tuple(notes),
+        closed_form=forms is not None and (m == 1 or p == 1),
+        plant_charpoly=forms.plant_charpoly if forms else None,
+        timings=timings,
+    )
+
+
+def _gain(
+    name: str,
+    steps: cf.AckermannSteps | None,
+    A: np.ndarray,
+    B: np.ndarray,
+    choice: PoleChoice,
+    values: dict,
+    notes: list[str],
+    checks: list[Check],
+) -> GainResult:
+    """Numeric value of K (or Lᵀ on the dual pair) and its cross-check against SciPy."""
+    poles = choice.values
+    single = B.shape[1] == 1
+    label = "K" if name == "K" else "Lᵀ (dual pair)"
+    reference, how = scipy_placement(A, B, poles)
+    if steps is not None:
+        value = evaluate_matrix(steps.gain, values)
+        method = "Ackermann's formula, closed form"
+        closed = steps.gain
+    elif single:
+        value = numeric_ackermann(A, B, poles)
+        method = "Ackermann's formula, floating point (closed form over budget)"
+        closed = None
+    else:
+        if reference is None:
+            raise StructureError(
+                f"cannot place the {'controller' if name == 'K' else 'observer'} poles: {how}",
+                key="controller.poles" if name == "K" else "observer.poles",
+            )
+        value = reference
+        method = "scipy.signal.place_poles (numeric; several inputs, so not unique)"
+        closed = None
+    if single:
+        if reference is not None:
+            diff = relative_difference(value, reference)
+            checks.append(
+                Check(
+                    f"{label}: {method.split(',')[0]} vs scipy.signal.place_poles (relative)",
+                    diff,
+                    GAIN_TOLERANCE,
+                    diff <= GAIN_TOLERANCE,
+                )
+            )
+        else:
+            checks.append(Check(f"{label}: vs scipy.signal.place_poles", None, None, None, how))
+            notes.append(f"{label}: {how}; the eigenvalue checks below are the reference")
+            if closed is not None:
+                alt = numeric_ackermann(A, B, poles)
+                diff = relative_difference(value, alt)
+                checks.append(
+                    Check(
+                        f"{label}: closed form vs floating-point Ackermann (relative)",
+                        diff,
+                        GAIN_TOLERANCE,
+                        diff <= GAIN_TOLERANCE,
+                    )
+                )
+    return GainResult(name, value, closed, method, single, steps)
+
+
+def _reference_gain(
+    design: Design,
+    forms: cf.ClosedForms | None,
+    A,
+    B,
+    C,
+    D,
+    K,
+    values,
+    checks: list[Check],
+    notes: list[str],
+) -> ReferenceGainResult | None:
+    """N with unit DC gain from r to the tracked output (zero steady-state step error)."""
+    idx = design.tracking.output
+    signal = design.plant.outputs[idx]
+    Ct, Dt = C[idx : idx + 1, :], D[idx : idx + 1, :]
+    Acl = A - B @ K
+    # DC gain of the closed loop from u_ff to y: (Ct − Dt K)(−Acl)⁻¹B + Dt
+    try:
+        M = (Ct - Dt @ K) @ np.linalg.solve(-Acl, B) + Dt
+    except np.linalg.LinAlgError:
+        M = np.full((1, B.shape[1]), np.nan)
+    if not np.all(np.isfinite(M)) or np.linalg.norm(M) < 1e-12 * max(1.0, np.linalg.norm(Ct)):
+        notes.append(
+            f"no reference gain exists for output '{signal.name}': the plant has a zero at s = 0"
+            " (its steady-state gain is zero); use integral action instead"
+        )
+        return None
+    N_numeric = M.T / (M @ M.T).item()  # least-norm solution of M N = 1; exact for one input
+    closed = forms.reference_gain if forms is not None else None
+    zero_poly = forms.zero_polynomial if forms is not None else None
+    if closed is not None:
+        value = np.array([[float(sp.N(closed.xreplace(values), 30))]])
+        diff = relative_difference(value, N_numeric)
+        checks.append(
+            Check(
+                "reference gain: closed form vs numeric DC-gain inverse (relative)",
+                diff,
+                GAIN_TOLERANCE,
+                diff <= GAIN_TOLERANCE,
+            )
+        )
+        method = "N = α_c(0)/z(0), closed form"
+    else:
+        value = N_numeric
+        method = "N = 1/(DC gain of the closed loop), numeric" + (
+            " (least-norm: several inputs, not unique)" if B.shape[1] > 1 else ""
+        )
+    dc = (((Ct - Dt @ K) @ np.linalg.solve(-Acl, B) + Dt) @ value).item()
+    checks.append(
+        Check(
+            f"steady-state gain from r to {signal.name} equals 1",
+            abs(dc - 1.0),
+            GAIN_TOLERANCE,
+            abs(dc - 1.0) <= GAIN_TOLERANCE,
+        )
+    )
+    return ReferenceGainResult(value, closed, zero_poly, signal, idx, method)
+
+
+def _compensator(A, B, C, D, K, L, sep_forms, values, checks) -> CompensatorResult | None:
+    F = A - B @ K - L @ C + L @ D @ K
+    if B.shape[1] != 1 or C.shape[0] != 1:
+        return CompensatorResult(None, None, None, None, F)
+    # independent numeric transfer function of u/y = −K (sI − F)⁻¹ L
+    num, den = scipy.signal.ss2tf(F, L, K, np.zeros((1, 1)))
+    num = np.real(num[0])
+    den = np.real(den)
+    # drop the leading zero scipy keeps for a strictly proper system
+    num = (
+        num[1:]
+        if num.size == den.size and abs(num[0]) <= 1e-12 * max(1.0, np.abs(num).max())
+        else num
+    )
+    num_cf = den_cf = None
+    if sep_forms is not None and sep_forms.compensator_numerator is not None:
+        num_cf = sep_forms.compensator_numerator
+        den_cf = sep_forms.compensator_denominator
+        n_val = np.array([float(sp.N(c.xreplace(values), 30)) for c in num_cf])
+        d_val = np.array([float(sp.N(c.xreplace(values), 30)) for c in den_cf])
+        diff = max(relative_difference(n_val, num), relative_difference(d_val, den))
+        checks.append(
+            Check(
+                "compensator transfer function: closed form vs scipy.signal.ss2tf (relative)",
+                diff,
+                1e-7,
+                diff <= 1e-7,
+            )
+        )
+    return CompensatorResult(num, den, num_cf, den_cf, F)

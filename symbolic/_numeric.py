@@ -1,0 +1,146 @@
+"""The independent numeric side of the engine: NumPy/SciPy only.
+
+These routines never look at a closed form; they are what the closed forms
+are checked against, and what the engine falls back to when the symbolic
+budget is exhausted or the plant has several inputs or outputs.
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections import Counter
+from collections.abc import Mapping, Sequence
+
+import numpy as np
+import sympy as sp
+from scipy.optimize import linear_sum_assignment
+from scipy.signal import place_poles
+
+__all__ = [
+    "evaluate_matrix",
+    "numeric_ackermann",
+    "scipy_placement",
+    "pole_residual",
+    "eigenvalue_tolerance",
+    "polynomial_residual",
+    "relative_difference",
+]
+
+
+def evaluate_matrix(M: sp.MatrixBase, values: Mapping[sp.Symbol, sp.Expr]) -> np.ndarray:
+    """Evaluate a SymPy matrix at exact parameter values, then round to float.
+
+    Substitution is exact (rational values), so the only rounding is the
+    final conversion; entries that are not finite (a division by zero at the
+    given values) come back as NaN for the caller to report.
+    """
+    out = np.empty(M.shape, dtype=float)
+    for i in range(M.shape[0]):
+        for j in range(M.shape[1]):
+            e = M[i, j]
+            if e.free_symbols:
+                e = e.xreplace(dict(values))
+            if e.is_Rational:
+                out[i, j] = float(e)
+                continue
+            v = complex(sp.N(e, 30))
+            if not np.isfinite(v.real) or abs(v.imag) > 1e-12 * max(1.0, abs(v.real)):
+                out[i, j] = np.nan
+            else:
+                out[i, j] = v.real
+    return out
+
+
+def numeric_ackermann(A: np.ndarray, B: np.ndarray, poles: Sequence[complex]) -> np.ndarray:
+    """Ackermann's formula in floating point (single input).
+
+    K = e_nᵀ 𝒞⁻¹ α(A), with 𝒞ᵀ w = e_n solved rather than inverted and α(A)
+    by Horner's rule.  Works with repeated poles, where
+    ``scipy.signal.place_poles`` refuses.  J. Ackermann, *Regelungstechnik*
+    20(7):297–300, 1972.
+    """
+    n = A.shape[0]
+    cols = [B[:, 0]]
+    for _ in range(n - 1):
+        cols.append(A @ cols[-1])
+    ctrb = np.column_stack(cols)
+    e_n = np.zeros(n)
+    e_n[-1] = 1.0
+    w = np.linalg.solve(ctrb.T, e_n)
+    coeffs = np.real(np.poly(np.asarray(poles, dtype=complex)))
+    phi = np.zeros((n, n))
+    for c in coeffs:
+        phi = phi @ A + c * np.eye(n)
+    return (w @ phi).reshape(1, n)
+
+
+def scipy_placement(
+    A: np.ndarray, B: np.ndarray, poles: Sequence[complex]
+) -> tuple[np.ndarray | None, str]:
+    """K from ``scipy.signal.place_poles``, or None with the reason it is not usable.
+
+    ``place_poles`` refuses a pole repeated more often than rank(B), and can
+    misplace nearly repeated poles without a warning (TECH-NOTES), so the
+    eigenvalues it achieves are checked here before its gain is trusted.
+    """
+    p = np.asarray(poles, dtype=complex)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            result = place_poles(A, B, p, method="YT", maxiter=60)
+    except (ValueError, np.linalg.LinAlgError) as exc:
+        return None, f"scipy.signal.place_poles refused: {exc}"
+    K = np.asarray(result.gain_matrix, dtype=float)
+    achieved = np.linalg.eigvals(A - B @ K)
+    res = pole_residual(achieved, p)
+    if res > eigenvalue_tolerance(p):
+        return None, (
+            f"scipy.signal.place_poles returned a gain whose poles are off by {res:.1e}"
+            " (relative); its gain is not used as a reference"
+        )
+    return K, "scipy.signal.place_poles"
+
+
+def pole_residual(achieved: Sequence[complex], requested: Sequence[complex]) -> float:
+    """Largest relative distance between matched achieved and requested poles.
+
+    Poles are paired by an optimal assignment (Hungarian method, as in
+    ``scipy.optimize.linear_sum_assignment``) so ordering does not matter;
+    each distance is divided by max(1, |requested pole|).
+    """
+    a = np.asarray(achieved, dtype=complex).ravel()
+    r = np.asarray(requested, dtype=complex).ravel()
+    if a.size != r.size:
+        return float("inf")
+    if not np.all(np.isfinite(a)):
+        return float("inf")
+    cost = np.abs(a[:, None] - r[None, :]) / np.maximum(1.0, np.abs(r))[None, :]
+    rows, cols = linear_sum_assignment(cost)
+    return float(cost[rows, cols].max()) if a.size else 0.0
+
+
+def eigenvalue_tolerance(poles: Sequence[complex], base: float = 1e-6) -> float:
+    """Tolerance of an eigenvalue check that respects multiplicity.
+
+    A pole of multiplicity m is determined by the matrix only to about
+    ε^(1/m) (perturbation theory of a Jordan block; J. H. Wilkinson, *The
+    Algebraic Eigenvalue Problem*, Oxford, 1965, Ch. 2), so the tolerance is
+    max(base, (1e-13)^(1/m)) with m the largest multiplicity.
+    """
+    rounded = Counter(complex(round(complex(p).real, 9), round(complex(p).imag, 9)) for p in poles)
+    mult = max(rounded.values()) if rounded else 1
+    return max(base, 1e-13 ** (1.0 / mult))
+
+
+def polynomial_residual(M: np.ndarray, coeffs: Sequence[float]) -> float:
+    """Relative difference between det(sI − M)'s coefficients and ``coeffs``."""
+    got = np.real(np.poly(M))
+    want = np.asarray(coeffs, dtype=float)
+    return float(np.linalg.norm(got - want) / max(1.0, np.linalg.norm(want)))
+
+
+def relative_difference(a: np.ndarray, b: np.ndarray) -> float:
+    """‖a − b‖ / max(‖b‖, tiny), Frobenius norms."""
+    a = np.asarray(a, dtype=float)
+    b = np.asarray(b, dtype=float)
+    return float(np.linalg.norm(a - b) / max(np.linalg.norm(b), 1e-300))

@@ -1,0 +1,143 @@
+"""The ``gainsmith`` command line.
+
+Exit codes: 0 success, 1 a check or claim failed, 2 bad input (one-line
+message, no traceback), 3 an internal error (a bug; set GAINSMITH_DEBUG=1 for
+the traceback).
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+from collections.abc import Sequence
+
+from ._errors import GainsmithError
+
+__all__ = ["main"]
+
+EXIT_OK, EXIT_FAILED_CHECK, EXIT_BAD_INPUT, EXIT_BUG = 0, 1, 2, 3
+
+
+def _overrides(pairs: Sequence[str] | None) -> dict[str, str]:
+    out: dict[str, str] = {}
+    for item in pairs or ():
+        name, sep, value = item.partition("=")
+        if not sep or not name.strip() or not value.strip():
+            raise GainsmithError(f"--set {item}: expected NAME=VALUE, e.g. --set m=3.1")
+        out[name.strip()] = value.strip()
+    return out
+
+
+def _load(args):
+    from ._design import load_design
+
+    return load_design(args.design, _overrides(args.set))
+
+
+def _cmd_derive(args) -> int:
+    from ._derive import derive
+    from ._report import derivation_json, derivation_summary, dumps
+
+    d = derive(_load(args))
+    if args.json:
+        print(dumps(derivation_json(d)))
+    else:
+        print(derivation_summary(d))
+    return EXIT_OK if d.passed else EXIT_FAILED_CHECK
+
+
+def _cmd_memo(args) -> int:
+    from ._memo import write_memo
+
+    return write_memo(_load(args), args.output, pdf=not args.no_pdf)
+
+
+def _cmd_simulate(args) -> int:
+    from ._simreport import run_simulate
+
+    return run_simulate(_load(args), as_json=args.json)
+
+
+def _cmd_check(args) -> int:
+    from ._claims import run_check
+
+    return run_check(_load(args), tolerance=args.tolerance)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="gainsmith",
+        description=(
+            "Observer-based state-feedback design from one design file: closed-form gains,"
+            " SciPy cross-checks, simulation and a review memo."
+        ),
+    )
+    from . import __version__
+
+    parser.add_argument("--version", action="version", version=f"gainsmith {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    def common(p: argparse.ArgumentParser) -> None:
+        p.add_argument("design", help="the design file (TOML)")
+        p.add_argument(
+            "--set",
+            action="append",
+            metavar="NAME=VALUE",
+            help="evaluate at another parameter value (repeatable)",
+        )
+
+    p = sub.add_parser(
+        "derive", help="derive K, L and the reference gain; check them against SciPy"
+    )
+    common(p)
+    p.add_argument("--json", action="store_true", help="print machine-readable results")
+    p.set_defaults(func=_cmd_derive)
+
+    p = sub.add_parser("memo", help="write the design memo (.tex, .md, figures, and .pdf with TeX)")
+    common(p)
+    p.add_argument("-o", "--output", default="memo", help="output folder (default: ./memo)")
+    p.add_argument("--no-pdf", action="store_true", help="do not compile the PDF")
+    p.set_defaults(func=_cmd_memo)
+
+    p = sub.add_parser("simulate", help="simulate the step response and compare with the specs")
+    common(p)
+    p.add_argument("--json", action="store_true", help="print machine-readable results")
+    p.set_defaults(func=_cmd_simulate)
+
+    p = sub.add_parser("check", help="check hand-calculated gains in the [claimed] table")
+    common(p)
+    p.add_argument(
+        "--tolerance",
+        type=float,
+        default=None,
+        help="relative tolerance (default: the file's, else 1e-3)",
+    )
+    p.set_defaults(func=_cmd_check)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return int(args.func(args))
+    except GainsmithError as exc:
+        print(f"gainsmith: error: {exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print("gainsmith: interrupted", file=sys.stderr)
+        return 130
+    except Exception as exc:  # a bug: one line unless asked for the traceback
+        if os.environ.get("GAINSMITH_DEBUG"):
+            raise
+        print(
+            f"gainsmith: internal error ({type(exc).__name__}: {exc}); this is a bug — rerun with"
+            " GAINSMITH_DEBUG=1 for the traceback",
+            file=sys.stderr,
+        )
+        return EXIT_BUG
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
