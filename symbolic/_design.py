@@ -13,6 +13,7 @@ from __future__ import annotations
 import difflib
 import hashlib
 import math
+import re
 import tomllib
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
@@ -84,7 +85,14 @@ _CONTROLLER_KEYS = (
 )
 _OBSERVER_KEYS = ("poles", "speed_factor")
 _TRACKING_KEYS = ("output",)
-_SIMULATION_KEYS = ("initial_state", "initial_estimate", "horizon", "samples", "u_max")
+_SIMULATION_KEYS = (
+    "initial_state",
+    "initial_estimate",
+    "horizon",
+    "samples",
+    "u_max",
+    "reference",
+)
 _CLAIMED_KEYS = ("K", "L", "reference_gain", "tolerance")
 _OPTIONS_KEYS = ("symbolic_budget_seconds",)
 
@@ -180,6 +188,7 @@ class SimulationRequest:
     horizon: float | None = None
     samples: int = 2001
     u_max: float | None = None
+    reference: float = 1.0
 
 
 @dataclass(frozen=True)
@@ -215,6 +224,12 @@ class Design:
     def name(self) -> str:
         """The file's stem, used to name outputs."""
         return Path(self.path).stem
+
+    @property
+    def slug(self) -> str:
+        """A file-name-safe form of :attr:`name` (letters, digits, "_" and "-") for outputs."""
+        text = re.sub(r"[^A-Za-z0-9_]+", "-", self.name).strip("-_")
+        return text[:80] or "design"
 
     @property
     def values(self) -> dict[sp.Symbol, sp.Rational]:
@@ -295,7 +310,9 @@ class _Reader:
         self.where = where
         self.sha = sha
 
-    def fail(self, key: str, problem: str, cls: type[DesignFileError] = DesignFileError) -> NoReturn:
+    def fail(
+        self, key: str, problem: str, cls: type[DesignFileError] = DesignFileError
+    ) -> NoReturn:
         raise cls(problem, self.where, key)
 
     # -- generic helpers ---------------------------------------------------
@@ -651,7 +668,9 @@ class _Reader:
         try:
             spec = Specifications(**kwargs)
         except SpecificationError as exc:
-            key = f"controller.{exc.key}" if exc.key else "controller"
+            # Specifications names a single key ("rise_time") or, for several
+            # problems at once, "controller" itself; do not double the prefix.
+            key = f"controller.{exc.key}" if exc.key and exc.key != "controller" else "controller"
             raise SpecificationError(exc.problem, self.where, key) from exc
         remaining = None
         if "remaining_poles" in data:
@@ -721,7 +740,12 @@ class _Reader:
         u_max = None
         if "u_max" in data:
             u_max = self.number(data["u_max"], "simulation.u_max", positive=True)
-        return SimulationRequest(x0, xh0, horizon, samples, u_max)
+        reference = 1.0
+        if "reference" in data:
+            reference = self.number(data["reference"], "simulation.reference")
+            if reference == 0:
+                self.fail("simulation.reference", "the reference step must not be zero")
+        return SimulationRequest(x0, xh0, horizon, samples, u_max, reference)
 
     # -- [claimed] -----------------------------------------------------------
     def gain_claim(

@@ -1,0 +1,263 @@
+"""Figures for the memo (matplotlib, no screen needed).
+
+Each function takes finished result objects and returns a matplotlib
+``Figure``; :func:`figure_files` turns a figure into a vector PDF (for TeX)
+and a PNG (for Markdown).  Lines differ by style as well as colour so the
+figures stay legible when printed in black and white.
+"""
+
+from __future__ import annotations
+
+import io
+from collections.abc import Sequence
+
+import numpy as np
+from matplotlib.axes import Axes
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+
+__all__ = [
+    "figure_files",
+    "step_response_figure",
+    "estimation_error_figure",
+    "control_effort_figure",
+    "pole_map_figure",
+    "observer_study_figure",
+]
+
+#: (colour, line style) per case; readable in grey scale too.
+_STYLES = {
+    "state_feedback": ("#000000", "-"),
+    "observer_matched": ("#1f5fa8", (0, (6, 3))),
+    "observer_mismatched": ("#c0392b", (0, (2, 2))),
+    "limited": ("#6a3d9a", (0, (6, 2, 1, 2))),
+}
+
+
+def _style(r) -> tuple[str, object]:
+    key = "limited" if getattr(r, "saturated", False) else r.slug
+    return _STYLES.get(key, ("#555555", "-"))
+
+
+def _name(r) -> str:
+    return _plain(r.name + (" (limited)" if getattr(r, "saturated", False) else ""))
+
+
+_WIDTH = (6.4, 3.4)
+
+
+def _new(size=_WIDTH) -> tuple[Figure, Axes]:
+    fig = Figure(figsize=size, dpi=100)
+    FigureCanvasAgg(fig)
+    fig.subplots_adjust(left=0.13, right=0.97, bottom=0.15, top=0.96)
+    ax = fig.add_subplot(1, 1, 1)
+    ax.grid(True, color="#cccccc", linewidth=0.6)
+    return fig, ax
+
+
+def _label(name: str, unit: str) -> str:
+    return f"{name} [{unit}]" if unit else name
+
+
+def _plain(text: str) -> str:
+    """Keep matplotlib from reading $...$ in user text as mathtext."""
+    return text.replace("$", r"\$")
+
+
+def step_response_figure(
+    responses: Sequence, output_name: str, output_unit: str, reference: float
+) -> Figure:
+    """Tracked output of each simulated case against time, with the reference."""
+    fig, ax = _new()
+    for r in responses:
+        colour, style = _style(r)
+        ax.plot(
+            r.time, r.tracked_output, color=colour, linestyle=style, linewidth=1.6, label=_name(r)
+        )
+    t = responses[0].time
+    ax.axhline(reference, color="#888888", linewidth=0.8, linestyle=(0, (1, 3)), label="reference")
+    ax.set_xlabel("time [s]")
+    ax.set_ylabel(_plain(_label(output_name, output_unit)))
+    ax.set_xlim(t[0], t[-1])
+    ax.legend(loc="best", fontsize=8, frameon=True)
+    return fig
+
+
+def estimation_error_figure(responses: Sequence) -> Figure:
+    """Norm of the estimation error x − x̂ on a log scale (observer cases only)."""
+    fig, ax = _new()
+    plotted = False
+    for r in responses:
+        e = getattr(r, "estimation_error_norm", None)
+        if e is None or not np.any(e > 0):
+            continue
+        colour, style = _style(r)
+        positive = np.where(e > 0, e, np.nan)
+        ax.semilogy(r.time, positive, color=colour, linestyle=style, linewidth=1.6, label=_name(r))
+        e0 = e[0]
+        if e0 > 0:
+            ax.axhline(
+                0.02 * e0,
+                color="#888888",
+                linewidth=0.8,
+                linestyle=(0, (1, 3)),
+                label="2 % of initial error",
+            )
+        plotted = True
+    ax.set_xlabel("time [s]")
+    ax.set_ylabel("estimation error norm ‖x − x̂‖")
+    if plotted:
+        ax.legend(loc="best", fontsize=8)
+    else:
+        ax.text(0.5, 0.5, "no initial estimation error", transform=ax.transAxes, ha="center")
+    return fig
+
+
+def control_effort_figure(
+    responses: Sequence, input_name: str, input_unit: str, u_max: float | None
+) -> Figure:
+    """Control signal of each case, with the actuator limit drawn when given."""
+    fig, ax = _new()
+    for r in responses:
+        colour, style = _style(r)
+        u = np.asarray(r.control)
+        ax.plot(
+            r.time,
+            u[:, 0] if u.ndim == 2 else u,
+            color=colour,
+            linestyle=style,
+            linewidth=1.6,
+            label=_name(r),
+        )
+    if u_max is not None:
+        for sign in (1, -1):
+            ax.axhline(
+                sign * u_max,
+                color="#000000",
+                linewidth=1.0,
+                linestyle=(0, (4, 1, 1, 1)),
+                label="actuator limit" if sign == 1 else None,
+            )
+    ax.set_xlabel("time [s]")
+    ax.set_ylabel(_plain(_label(input_name, input_unit)))
+    ax.set_xlim(responses[0].time[0], responses[0].time[-1])
+    ax.legend(loc="best", fontsize=8)
+    return fig
+
+
+def pole_map_figure(
+    controller: np.ndarray, observer: np.ndarray, region=None, plant: np.ndarray | None = None
+) -> Figure:
+    """Controller and observer poles in the s-plane with the region that meets the specs.
+
+    ``region`` has ``min_damping_ratio``, ``min_real_part``,
+    ``min_natural_frequency`` (see :class:`symbolic._specs.SpecRegion`).
+    """
+    fig, ax = _new((6.4, 4.2))
+    allp = np.concatenate([controller, observer] + ([plant] if plant is not None else []))
+    span = max(1.0, float(np.max(np.abs(allp)))) * 1.15
+    left = -span
+    ax.set_xlim(left, 0.12 * span)
+    ax.set_ylim(-0.75 * span, 0.75 * span)
+    if region is not None:
+        zeta = region.min_damping_ratio
+        sigma = region.min_real_part
+        wn = region.min_natural_frequency
+        # the admissible set: Re ≤ −σ, inside the damping wedge, outside |s| = ωn
+        x = np.linspace(left, 0, 400)
+        y = np.linspace(-0.75 * span, 0.75 * span, 400)
+        X, Y = np.meshgrid(x, y)
+        S = X + 1j * Y
+        ok = (X <= -sigma) & (np.abs(S) >= wn)
+        if zeta > 0:
+            ok &= -X >= zeta * np.abs(S)
+        ax.contourf(X, Y, ok.astype(float), levels=[0.5, 1.5], colors=["#d9ead3"], alpha=0.8)
+        ax.contour(X, Y, ok.astype(float), levels=[0.5], colors=["#2e7d32"], linewidths=0.8)
+        ax.plot([], [], color="#2e7d32", linewidth=6, alpha=0.4, label="meets the specifications")
+    ax.axvline(0, color="#000000", linewidth=0.8)
+    ax.axhline(0, color="#000000", linewidth=0.5)
+    if plant is not None:
+        ax.plot(
+            plant.real,
+            plant.imag,
+            linestyle="none",
+            marker="s",
+            markersize=7,
+            markerfacecolor="none",
+            markeredgecolor="#555555",
+            label="open-loop plant poles",
+        )
+    ax.plot(
+        controller.real,
+        controller.imag,
+        linestyle="none",
+        marker="x",
+        markersize=9,
+        markeredgewidth=2,
+        color="#000000",
+        label="controller poles (A − BK)",
+    )
+    ax.plot(
+        observer.real,
+        observer.imag,
+        linestyle="none",
+        marker="o",
+        markersize=7,
+        markerfacecolor="none",
+        markeredgewidth=1.5,
+        color="#c0392b",
+        label="observer poles (A − LC)",
+    )
+    ax.set_xlabel("real part [1/s]")
+    ax.set_ylabel("imaginary part [rad/s]")
+    ax.legend(loc="upper left", fontsize=8)
+    return fig
+
+
+def observer_study_figure(
+    factors: np.ndarray,
+    overshoot: np.ndarray,
+    settling: np.ndarray,
+    peak_u: np.ndarray,
+    input_name: str,
+    input_unit: str,
+) -> Figure:
+    """Overshoot, settling time and peak control against the observer speed factor."""
+    fig = Figure(figsize=(6.4, 5.2), dpi=100)
+    FigureCanvasAgg(fig)
+    fig.subplots_adjust(left=0.13, right=0.97, bottom=0.1, top=0.97, hspace=0.12)
+    axes = fig.subplots(3, 1, sharex=True)
+    for ax, values, label, marker in (
+        (axes[0], overshoot, "overshoot [%]", "o"),
+        (axes[1], settling, "settling time 2 % [s]", "s"),
+        (
+            axes[2],
+            peak_u,
+            _plain(f"peak |{input_name}|" + (f" [{input_unit}]" if input_unit else "")),
+            "^",
+        ),
+    ):
+        ax.plot(factors, values, color="#000000", marker=marker, markersize=4, linewidth=1.2)
+        ax.set_ylabel(label, fontsize=8)
+        ax.grid(True, color="#cccccc", linewidth=0.6)
+    axes[-1].set_xlabel("observer speed factor (observer poles / controller poles)")
+    axes[-1].set_xscale("log")
+    return fig
+
+
+def figure_files(fig: Figure, stem: str) -> dict[str, bytes]:
+    """Render a figure as ``stem.pdf`` (vector, for TeX) and ``stem.png`` (for Markdown).
+
+    Metadata that changes between runs (creation date, software version) is
+    left out so the same design gives the same files.
+    """
+    out = {}
+    buf = io.BytesIO()
+    fig.savefig(
+        buf, format="pdf", metadata={"CreationDate": None, "Creator": None, "Producer": None}
+    )
+    out[f"{stem}.pdf"] = buf.getvalue()
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=150, metadata={"Software": None})
+    out[f"{stem}.png"] = buf.getvalue()
+    return out

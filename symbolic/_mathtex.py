@@ -1,0 +1,187 @@
+"""LaTeX for formulas our own code produced (SymPy objects), made to fit a page.
+
+This is the one place where SymPy output becomes trusted LaTeX.  Symbol
+names are validated ASCII identifiers (see :mod:`symbolic._expressions`),
+so ``sympy.latex`` cannot carry a command through them; they are still
+typeset through :func:`symbol_latex` so that ``m_c`` shows as m with a
+subscript c, ``J1`` as J with subscript 1 and ``kf`` as an upright-italic
+word rather than the product k·f.
+"""
+
+from __future__ import annotations
+
+import re
+
+import sympy as sp
+
+from ._texsafe import TrustedLatex
+
+__all__ = [
+    "symbol_latex",
+    "expr_latex",
+    "matrix_latex",
+    "equation_lines",
+    "polynomial_latex",
+    "LONG",
+]
+
+#: A formula longer than this many characters of LaTeX is broken over lines.
+LONG = 90
+
+_GREEK = {
+    "alpha",
+    "beta",
+    "gamma",
+    "delta",
+    "epsilon",
+    "zeta",
+    "eta",
+    "theta",
+    "iota",
+    "kappa",
+    "lambda",
+    "mu",
+    "nu",
+    "xi",
+    "pi",
+    "rho",
+    "sigma",
+    "tau",
+    "upsilon",
+    "phi",
+    "chi",
+    "psi",
+    "omega",
+    "Gamma",
+    "Delta",
+    "Theta",
+    "Lambda",
+    "Xi",
+    "Pi",
+    "Sigma",
+    "Upsilon",
+    "Phi",
+    "Psi",
+    "Omega",
+}
+_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+
+
+def _base(word: str) -> str:
+    if word in _GREEK:
+        return "\\" + word
+    if len(word) == 1:
+        return word
+    return r"\mathit{" + word + "}"
+
+
+def symbol_latex(name: str) -> str:
+    """Typeset an identifier: ``m_c`` → m_{c}, ``J1`` → J_{1}, ``kf`` → \\mathit{kf}."""
+    if not _NAME.match(name):  # never reached for validated names; be safe anyway
+        raise ValueError(f"not an identifier: {name!r}")
+    if "_" in name:
+        head, _, tail = name.partition("_")
+        parts = [p for p in tail.split("_") if p]
+        sub = ",".join("\\" + p if p in _GREEK else r"\mathrm{" + p + "}" for p in parts)
+        return f"{_base(head)}_{{{sub}}}"
+    m = re.match(r"^([A-Za-z]+?)(\d+)$", name)
+    if m:
+        return f"{_base(m.group(1))}_{{{m.group(2)}}}"
+    return _base(name)
+
+
+def _names(expr) -> dict:
+    syms = getattr(expr, "free_symbols", set())
+    return {x: symbol_latex(x.name) for x in syms if x.name != "s"}
+
+
+def expr_latex(expr) -> TrustedLatex:
+    """Plain ``sympy.latex`` with our symbol typesetting."""
+    return TrustedLatex(sp.latex(expr, symbol_names=_names(expr)))
+
+
+def matrix_latex(M: sp.MatrixBase, limit: int | None = None) -> TrustedLatex | None:
+    """A bracketed matrix, or None when it would exceed ``limit`` characters."""
+    body = sp.latex(
+        sp.Matrix(M), symbol_names=_names(sp.Matrix(M)), mat_delim="[", mat_str="matrix"
+    )
+    if limit is not None and len(body) > limit:
+        return None
+    return TrustedLatex(body)
+
+
+def _terms_latex(expr: sp.Expr) -> list[str]:
+    terms = sp.Add.make_args(expr)
+    out = []
+    names = _names(expr)
+    for i, t in enumerate(terms):
+        text = sp.latex(t, symbol_names=names)
+        if i and not text.startswith("-"):
+            text = "+ " + text
+        elif i:
+            text = "- " + text[1:]
+        out.append(text)
+    return out
+
+
+def _pack(pieces: list[str], width: int) -> list[str]:
+    lines, current = [], ""
+    for p in pieces:
+        if current and len(current) + len(p) > width:
+            lines.append(current)
+            current = p
+        else:
+            current = f"{current} {p}".strip()
+    if current:
+        lines.append(current)
+    return lines
+
+
+def equation_lines(lhs: str, expr: sp.Expr, width: int = LONG) -> list[TrustedLatex]:
+    """Lines of an ``align*`` block: ``lhs &= …``, broken to fit the page.
+
+    A short formula is one line.  A long fraction is written
+    (1/den)·(t₁ + t₂ + …) with the numerator's terms packed into lines of
+    about ``width`` characters of LaTeX; a long sum likewise.
+    """
+    full = sp.latex(expr, symbol_names=_names(expr))
+    if len(full) <= width:
+        return [TrustedLatex(f"{lhs} &= {full}")]
+    num, den = sp.fraction(expr)
+    names = _names(expr)
+    if den != 1:
+        num_terms = (
+            _terms_latex(sp.expand(num)) if num.is_Add else [sp.latex(num, symbol_names=names)]
+        )
+        lines = _pack(num_terms, width)
+        den_tex = sp.latex(den, symbol_names=names)
+        if len(den_tex) > width:
+            den_lines = _pack(_terms_latex(sp.expand(den)) if den.is_Add else [den_tex], width)
+            out = [f"{lhs} &= \\frac{{N}}{{D}}, \\quad N = {lines[0]}"]
+            out += [f"&\\qquad {ln}" for ln in lines[1:]]
+            out += [f"&\\phantom{{= \\frac{{N}}{{D}},}} \\quad D = {den_lines[0]}"]
+            out += [f"&\\qquad {ln}" for ln in den_lines[1:]]
+            return [TrustedLatex(x) for x in out]
+        if len(lines) == 1:
+            return [TrustedLatex(f"{lhs} &= \\frac{{{lines[0]}}}{{{den_tex}}}")]
+        out = [f"{lhs} &= \\frac{{1}}{{{den_tex}}} \\bigl( {lines[0]}"]
+        out += [f"&\\qquad {ln}" for ln in lines[1:-1]]
+        out.append(f"&\\qquad {lines[-1]} \\bigr)")
+        return [TrustedLatex(x) for x in out]
+    if expr.is_Add:
+        lines = _pack(_terms_latex(expr), width)
+        out = [f"{lhs} &= {lines[0]}"] + [f"&\\qquad {ln}" for ln in lines[1:]]
+        return [TrustedLatex(x) for x in out]
+    return [TrustedLatex(f"{lhs} &= {full}")]
+
+
+def polynomial_latex(coeffs, var: str = "s") -> TrustedLatex:
+    """Σ c_i var^(n−i) with numeric coefficients shown to 6 significant figures."""
+    n = len(coeffs) - 1
+    x = sp.Symbol(var)
+    terms = []
+    for i, c in enumerate(coeffs):
+        if c.is_Rational and c.q > 1000:
+            c = sp.Float(c, 6)
+        terms.append(c * x ** (n - i))
+    return TrustedLatex(sp.latex(sp.Add(*terms), order="none", symbol_names=_names(sp.Add(*terms))))

@@ -1,0 +1,574 @@
+"""The design memo: LaTeX/PDF and Markdown from one finished derivation.
+
+Flow: :func:`build_memo` takes a :class:`~symbolic._derive.Derivation` and
+the simulation study, assembles a template context (plain strings are
+escaped by the template environment itself; only formulas that our own
+code typeset are marked trusted, in :func:`_math`), renders
+``templates/memo.tex.j2`` and ``templates/memo.md.j2`` and the figures.
+:func:`write_memo` compiles the PDF (locked down, see :mod:`symbolic._pdf`)
+and publishes every file atomically (:mod:`symbolic._publish`).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import os
+import sys
+import time
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import sympy as sp
+
+from . import __version__
+from ._derive import Derivation, derive
+from ._design import Design
+from ._errors import RenderError
+from ._mathtex import equation_lines, expr_latex, matrix_latex, polynomial_latex, symbol_latex
+from ._texsafe import TrustedLatex, TrustedMarkdown, render_template
+
+__all__ = ["MemoDocument", "build_memo", "write_memo", "memo_date"]
+
+#: A symbolic matrix longer than this (characters of LaTeX) is shown numerically instead.
+MATRIX_LIMIT = 700
+
+
+class _Math(str):
+    """LaTeX math produced by our own code; becomes trusted in either format."""
+
+    __slots__ = ()
+
+
+def _math(latex: str) -> _Math:
+    return _Math(latex)
+
+
+def _for_kind(obj: Any, kind: str) -> Any:
+    if isinstance(obj, _Math):
+        return TrustedLatex(str(obj)) if kind == "tex" else TrustedMarkdown(str(obj))
+    if isinstance(obj, dict):
+        return {k: _for_kind(v, kind) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [_for_kind(v, kind) for v in obj]
+    return obj
+
+
+@dataclass(frozen=True)
+class MemoDocument:
+    """The rendered memo: sources and figure files, by file name."""
+
+    name: str
+    tex: str
+    markdown: str
+    figures: dict[str, bytes]
+
+
+def memo_date() -> str:
+    """Today's date, or the date of ``SOURCE_DATE_EPOCH`` (reproducible builds)."""
+    epoch = os.environ.get("SOURCE_DATE_EPOCH")
+    if epoch is not None:
+        try:
+            stamp = int(epoch)
+        except ValueError as exc:
+            raise RenderError(f"SOURCE_DATE_EPOCH must be an integer, got {epoch!r}") from exc
+        return _dt.datetime.fromtimestamp(stamp, tz=_dt.UTC).date().isoformat()
+    return _dt.datetime.now(tz=_dt.UTC).date().isoformat()
+
+
+# --------------------------------------------------------------------------
+# Formatting helpers
+# --------------------------------------------------------------------------
+def _num(x: float, digits: int = 6) -> str:
+    x = float(x)
+    if x == 0:
+        return "0"
+    if not np.isfinite(x):
+        return "\\infty" if x > 0 else "-\\infty"
+    text = f"{x:.{digits}g}"
+    if "e" in text:
+        mant, exp = text.split("e")
+        return f"{mant}\\times 10^{{{int(exp)}}}"
+    return text
+
+
+def _complex(z: complex, digits: int = 4) -> str:
+    z = complex(z)
+    if abs(z.imag) <= 1e-12 * max(1.0, abs(z.real)):
+        return _num(z.real, digits)
+    sign = "+" if z.imag > 0 else "-"
+    return f"{_num(z.real, digits)} {sign} {_num(abs(z.imag), digits)}j"
+
+
+def _numeric_matrix(M: np.ndarray, digits: int = 5) -> str:
+    rows = [" & ".join(_num(x, digits) for x in row) for row in np.atleast_2d(M)]
+    return "\\begin{bmatrix} " + " \\\\ ".join(rows) + " \\end{bmatrix}"
+
+
+def _matrix_or_numeric(M: sp.Matrix | None, value: np.ndarray) -> tuple[_Math, bool]:
+    if M is not None:
+        tex = matrix_latex(M, MATRIX_LIMIT)
+        if tex is not None:
+            return _math(tex), True
+    return _math(_numeric_matrix(value)), False
+
+
+def _entry_label(name: str, i: int, j: int, rows: int, cols: int) -> str:
+    if rows == 1:
+        return f"{name}_{{{j + 1}}}"
+    if cols == 1:
+        return f"{name}_{{{i + 1}}}"
+    return f"{name}_{{{i + 1}{j + 1}}}"
+
+
+def _gain_block(name: str, closed: sp.Matrix | None, value: np.ndarray) -> dict:
+    """One gain: its closed-form entries broken over lines, and numbers."""
+    rows, cols = value.shape
+    lines: list[_Math] = []
+    if closed is not None:
+        for i in range(closed.shape[0]):
+            for j in range(closed.shape[1]):
+                for ln in equation_lines(
+                    _entry_label(name, i, j, rows, cols), sp.factor(closed[i, j])
+                ):
+                    lines.append(_math(ln))
+    entries = [
+        {"label": _math(_entry_label(name, i, j, rows, cols)), "value": _math(_num(value[i, j]))}
+        for i in range(rows)
+        for j in range(cols)
+    ]
+    return {
+        "name": name,
+        "lines": lines,
+        "numeric": _math(f"{name} = " + _numeric_matrix(value, 6)),
+        "entries": entries,
+        "closed": closed is not None,
+    }
+
+
+# --------------------------------------------------------------------------
+# Context
+# --------------------------------------------------------------------------
+def _parameters(design: Design) -> list[dict]:
+    out = []
+    for p in design.parameters:
+        out.append(
+            {
+                "symbol": _math(symbol_latex(p.name)),
+                "name": p.name,
+                "value": _math(_num(float(p.value))),
+                "unit": p.unit,
+                "description": p.description,
+                "range": None
+                if p.range is None
+                else _math(f"[{_num(float(p.range[0]))},\\ {_num(float(p.range[1]))}]"),
+            }
+        )
+    return out
+
+
+def _signals(design: Design) -> list[dict]:
+    out = []
+    plant = design.plant
+    for kind, sigs in (("state", plant.states), ("input", plant.inputs), ("output", plant.outputs)):
+        for i, s in enumerate(sigs):
+            out.append(
+                {
+                    "kind": kind,
+                    "symbol": _math(f"{'x' if kind == 'state' else kind[0]}_{{{i + 1}}}"),
+                    "name": s.name,
+                    "unit": s.unit,
+                    "description": s.description,
+                }
+            )
+    return out
+
+
+def _structure(rep, n: int, symbol: str) -> dict:
+    matrix, closed = _matrix_or_numeric(rep.matrix, rep.value)
+    det = None
+    if rep.determinant is not None:
+        det = _math(f"\\det {symbol} = " + expr_latex(rep.determinant))
+    return {
+        "kind": rep.kind,
+        "symbol": _math(symbol),
+        "matrix": matrix,
+        "closed": closed,
+        "determinant": det,
+        "conditions": [_math(_condition_latex(c)) for c in rep.conditions],
+        "condition_text": list(rep.conditions),
+        "rank": rep.numeric_rank,
+        "order": n,
+        "condition_number": _math(_num(rep.condition_number, 3)),
+        "adjective": rep.adjective,
+    }
+
+
+def _condition_latex(text: str) -> str:
+    """'k = c*m/b' → LaTeX, from the factor strings the engine produced."""
+    lhs, _, rhs = text.partition(" = ")
+    # re-typeset through SymPy: both sides are expressions of validated names
+    from ._expressions import parse_expression
+
+    names = {}
+    for token in set(_identifiers(text)):
+        names[token] = sp.Symbol(token, real=True)
+    try:
+        left = parse_expression(lhs, names)
+        right = parse_expression(rhs, names)
+    except Exception:  # pragma: no cover - the engine writes these strings itself
+        return r"\text{(see the text)}"
+    return f"{expr_latex(left)} = {expr_latex(right)}"
+
+
+def _identifiers(text: str) -> list[str]:
+    import re
+
+    reserved = {
+        "sqrt",
+        "exp",
+        "log",
+        "sin",
+        "cos",
+        "tan",
+        "atan",
+        "sinh",
+        "cosh",
+        "tanh",
+        "abs",
+        "pi",
+    }
+    return [t for t in re.findall(r"[A-Za-z][A-Za-z0-9_]*", text) if t not in reserved]
+
+
+def _spec_rows(d: Derivation) -> list[dict]:
+    pair = d.controller_poles.dominant
+    if pair is None:
+        return []
+    rows = []
+    for f in pair.formulas:
+        rows.append(
+            {
+                "spec": f.spec.replace("_", " "),
+                "requested": _math(_num(f.requested, 4)),
+                "formula": _math(f.formula_latex),
+                "bound": f.bound,
+                "predicted": _math(_num(f.predicted, 4)),
+                "binding": f.binding,
+                "passed": f.passed,
+                "source": f.source,
+            }
+        )
+    return rows
+
+
+def _poles(values: np.ndarray) -> _Math:
+    return _math(",\\; ".join(_complex(z) for z in values))
+
+
+def _references(d: Derivation) -> list[str]:
+    refs = [
+        "J. Ackermann, \u201cDer Entwurf linearer Regelungssysteme im Zustandsraum\u201d,"
+        " Regelungstechnik 20(7):297\u2013300, 1972 (Ackermann's formula).",
+        "D. G. Luenberger, \u201cObserving the state of a linear system\u201d, IEEE Transactions on"
+        " Military Electronics 8(2):74\u201380, 1964 (the observer; its poles by duality).",
+        "D. G. Luenberger, \u201cAn introduction to observers\u201d, IEEE Transactions on Automatic"
+        " Control 16(6):596\u2013602, 1971 (separation of controller and observer poles).",
+        "K. Ogata, Modern Control Engineering, 5th ed., Prentice Hall, 2010, Sec. 10-2 to 10-6"
+        " (pole placement, Ackermann's formula, full-order observers).",
+        "G. F. Franklin, J. D. Powell, A. Emami-Naeini, Feedback Control of Dynamic Systems,"
+        " 7th ed., Pearson, 2015, Sec. 7.5\u20137.9 (state feedback, reference input, estimators,"
+        " the compensator).",
+        "T. Kailath, Linear Systems, Prentice Hall, 1980, Sec. 2.4 and Appendix (determinant"
+        " identities for transfer-function numerators).",
+        "A. Varga, \u201cA Schur method for pole assignment\u201d and A. L. Tits, Y. Yang,"
+        " \u201cGlobally convergent algorithms for robust pole assignment by state feedback\u201d,"
+        " IEEE Transactions on Automatic Control 41(10):1432\u20131452, 1996 (the method of"
+        " scipy.signal.place_poles used for the cross-check).",
+        "C. F. Van Loan, \u201cComputing integrals involving the matrix exponential\u201d, IEEE"
+        " Transactions on Automatic Control 23(3):395\u2013404, 1978 (exact zero-order-hold"
+        " stepping of the simulation).",
+    ]
+    if d.controller_poles.dominant is not None:
+        refs.insert(
+            4,
+            "N. S. Nise, Control Systems Engineering, 7th ed., Wiley, 2015, Sec. 4.6 (damping"
+            " ratio from overshoot, settling and rise time of the second-order response).",
+        )
+    return refs
+
+
+def build_context(d: Derivation, study=None, claims=None) -> dict:
+    """The template context shared by the LaTeX and Markdown memos."""
+    des = d.design
+    plant = des.plant
+    n = plant.order
+    ctrl, obs = d.controller_poles, d.observer_poles
+    slow_c = min(abs(z.real) for z in ctrl.values)
+    slow_o = min(abs(z.real) for z in obs.values)
+    matrices = {}
+    for name in ("A", "B", "C", "D"):
+        M = getattr(plant, name)
+        tex = matrix_latex(M, MATRIX_LIMIT)
+        matrices[name] = _math(tex if tex is not None else _numeric_matrix(getattr(d.plant, name)))
+    K, L = d.K, d.L
+    ack = K.steps
+    ackermann = None
+    if ack is not None:
+        w = matrix_latex(ack.last_row_of_inverse, MATRIX_LIMIT)
+        phi = matrix_latex(ack.polynomial_of_A, MATRIX_LIMIT)
+        ackermann = {
+            "row": _math(w) if w is not None else None,
+            "phi": _math(phi) if phi is not None else None,
+        }
+    ref = d.reference
+    reference = None
+    if ref is not None:
+        zero_poly = None
+        if ref.zero_polynomial is not None:
+            zero_poly = _math(
+                "z(s) = "
+                + expr_latex(
+                    sp.factor(
+                        sum(
+                            c * sp.Symbol("s") ** (len(ref.zero_polynomial) - 1 - i)
+                            for i, c in enumerate(ref.zero_polynomial)
+                        )
+                    )
+                )
+            )
+        reference = {
+            "output": ref.tracked.name,
+            "closed": _math("N = " + expr_latex(ref.closed_form))
+            if ref.closed_form is not None
+            else None,
+            "zero_polynomial": zero_poly,
+            "value": _math("N = " + _numeric_matrix(ref.value, 6)),
+            "method": ref.method,
+        }
+    comp = None
+    if d.compensator is not None and d.compensator.numerator is not None:
+        c = d.compensator
+        s = sp.Symbol("s")
+        num_val = sp.Add(
+            *[sp.Float(x, 6) * s ** (len(c.numerator) - 1 - i) for i, x in enumerate(c.numerator)]
+        )
+        den_val = sp.Add(
+            *[
+                sp.Float(x, 6) * s ** (len(c.denominator) - 1 - i)
+                for i, x in enumerate(c.denominator)
+            ]
+        )
+        comp = {
+            "numeric": _math(
+                "\\frac{U(s)}{Y(s)} = -\\frac{"
+                + sp.latex(num_val, order="none")
+                + "}{"
+                + sp.latex(den_val, order="none")
+                + "}"
+            ),
+            "closed_lines": None,
+        }
+        if c.numerator_closed_form is not None:
+            lines = []
+            numer = sp.Add(
+                *[
+                    co * s ** (len(c.numerator_closed_form) - 1 - i)
+                    for i, co in enumerate(c.numerator_closed_form)
+                ]
+            )
+            denom = sp.Add(
+                *[
+                    co * s ** (len(c.denominator_closed_form) - 1 - i)
+                    for i, co in enumerate(c.denominator_closed_form)
+                ]
+            )
+            for i, co in enumerate(c.numerator_closed_form):
+                lines += [
+                    _math(x)
+                    for x in equation_lines(
+                        f"b_{{{len(c.numerator_closed_form) - 1 - i}}}", sp.factor(co)
+                    )
+                ]
+            for i, co in enumerate(c.denominator_closed_form[1:]):
+                lines += [
+                    _math(x)
+                    for x in equation_lines(
+                        f"a_{{{len(c.denominator_closed_form) - 2 - i}}}", sp.factor(co)
+                    )
+                ]
+            comp["closed_lines"] = lines
+            comp["closed_shape"] = _math(
+                "\\frac{U(s)}{Y(s)} = -\\frac{"
+                + " + ".join(
+                    f"b_{{{k}}} s^{{{k}}}"
+                    if k > 1
+                    else (f"b_{{{k}}} s" if k == 1 else f"b_{{{k}}}")
+                    for k in range(len(c.numerator_closed_form) - 1, -1, -1)
+                )
+                + "}{s^{"
+                + str(n)
+                + "} + "
+                + " + ".join(
+                    f"a_{{{k}}} s^{{{k}}}"
+                    if k > 1
+                    else (f"a_{{{k}}} s" if k == 1 else f"a_{{{k}}}")
+                    for k in range(n - 1, -1, -1)
+                )
+                + "}"
+            )
+            del numer, denom
+    checks = [
+        {
+            "name": chk.name,
+            "value": None if chk.value is None else _math(_num(chk.value, 2)),
+            "tolerance": None if chk.tolerance is None else _math(_num(chk.tolerance, 1)),
+            "status": {True: "pass", False: "FAIL", None: "not run"}[chk.passed],
+            "note": chk.note,
+        }
+        for chk in d.checks
+    ]
+    sep = d.separated
+    sep_poly = None
+    if sep.charpoly is not None:
+        s = sp.Symbol("s")
+        poly = sp.Add(*[c * s ** (2 * n - i) for i, c in enumerate(sep.charpoly)])
+        sep_poly = _math("\\det(sI - M) = " + sp.latex(sp.factor(poly)))
+    pair = ctrl.dominant
+    context = {
+        "title": des.title,
+        "author": des.author or "",
+        "revision": des.revision or "",
+        "date": memo_date(),
+        "design_file": Path(des.path).name,
+        "sha256": des.sha256,
+        "sha_groups": [des.sha256[i : i + 16] for i in range(0, 64, 16)],
+        "version": __version__,
+        "overrides": list(des.overrides),
+        "order": n,
+        "n_inputs": plant.n_inputs,
+        "n_outputs": plant.n_outputs,
+        "parameters": _parameters(des),
+        "signals": _signals(des),
+        "matrices": matrices,
+        "has_D": any(x != 0 for x in plant.D),
+        "controllability": _structure(d.controllability, n, "\\mathcal{C}"),
+        "observability": _structure(d.observability, n, "\\mathcal{O}"),
+        "specs": _spec_rows(d),
+        "pair": None
+        if pair is None
+        else {
+            "zeta": _math(_num(pair.damping_ratio, 4)),
+            "wn": _math(_num(pair.natural_frequency, 4)),
+            "sigma": _math(_num(pair.real_part, 4)),
+            "wd": _math(_num(pair.damped_frequency, 4)),
+            "binding": ", ".join(b.replace("_", " ") for b in pair.binding),
+            "defaults": list(pair.defaults_used),
+        },
+        "controller_poles": _poles(ctrl.values),
+        "observer_poles": _poles(obs.values),
+        "controller_rule": ctrl.rule,
+        "observer_rule": obs.rule,
+        "controller_polynomial": _math("\\alpha_c(s) = " + polynomial_latex(ctrl.coefficients)),
+        "observer_polynomial": _math("\\alpha_o(s) = " + polynomial_latex(obs.coefficients)),
+        "speed_ratio": _math(_num(slow_o / slow_c, 3)),
+        "K": _gain_block("K", K.closed_form, K.value),
+        "L": _gain_block("L", L.closed_form, L.value),
+        "K_method": K.method,
+        "L_method": L.method,
+        "ackermann": ackermann,
+        "closed_form": d.closed_form,
+        "reference": reference,
+        "compensator": comp,
+        "separated_matrix": _math(_numeric_matrix(sep.value, 4)) if 2 * n <= 8 else None,
+        "separated_polynomial": sep_poly,
+        "separated_ok": sep.factors_as_expected,
+        "closed_loop_poles": _poles(np.array(sorted(sep.poles, key=lambda z: (z.real, z.imag)))),
+        "checks": checks,
+        "passed": d.passed,
+        "notes": list(d.notes),
+        "references": _references(d),
+        "simulation": study,
+        "claims": claims,
+    }
+    return context
+
+
+# --------------------------------------------------------------------------
+# Rendering and writing
+# --------------------------------------------------------------------------
+def build_memo(
+    d: Derivation,
+    study_context: dict | None = None,
+    figures: dict[str, bytes] | None = None,
+    claims_context: dict | None = None,
+) -> MemoDocument:
+    """Render both memo sources from a finished derivation."""
+    ctx = build_context(d, study_context, claims_context)
+    name = d.design.slug
+    # file names are our own slug (letters, digits, '-'), safe to trust in both formats
+    ctx["figure_prefix"] = _math(f"figures/{name}-")
+    ctx["design_name"] = _math(name)
+    ctx["figures"] = sorted({Path(f).stem[len(name) + 1 :] for f in (figures or {})})
+    tex = render_template("tex", "memo.tex.j2", _for_kind(ctx, "tex"))
+    md = render_template("md", "memo.md.j2", _for_kind(ctx, "md"))
+    return MemoDocument(name=name, tex=tex, markdown=md, figures=dict(figures or {}))
+
+
+def write_memo(design: Design, out_dir: str | Path, pdf: bool = True) -> int:
+    """The ``gainsmith memo`` command: derive, simulate, render, compile, publish."""
+    from ._pdf import compile_pdf, find_tex_engine
+    from ._publish import publish
+    from ._simreport import memo_simulation
+
+    t0 = time.perf_counter()
+    d = derive(design)
+    study_ctx, figures = memo_simulation(d)
+    claims_ctx = None
+    if design.claims is not None:
+        from ._claims import memo_claims
+
+        claims_ctx = memo_claims(d, design.claims)
+    doc = build_memo(d, study_ctx, figures, claims_ctx)
+    files: dict[str, bytes] = {
+        f"{doc.name}.tex": doc.tex.encode("utf-8"),
+        f"{doc.name}.md": doc.markdown.encode("utf-8"),
+    }
+    for fname, data in doc.figures.items():
+        files[f"figures/{fname}"] = data
+    out = Path(out_dir)
+    message = ""
+    if pdf:
+        engine = find_tex_engine()
+        if engine is None:
+            message = (
+                "PDF skipped: no TeX engine found (install TeX Live's pdflatex and latexmk, e.g."
+                " apt-get install texlive-latex-recommended texlive-fonts-recommended latexmk)"
+            )
+        else:
+            t1 = time.perf_counter()
+            assets = {f"figures/{k}": v for k, v in doc.figures.items() if k.endswith(".pdf")}
+            tex_for_pdf = doc.tex
+            try:
+                files[f"{doc.name}.pdf"] = compile_pdf(tex_for_pdf, assets, log_path=None)
+            except RenderError as exc:
+                log = out / f"{doc.name}.log"
+                try:
+                    out.mkdir(parents=True, exist_ok=True)
+                    compile_pdf(tex_for_pdf, assets, log_path=log)
+                except RenderError:
+                    pass
+                raise RenderError(f"PDF compile failed: {exc} (TeX log kept in {log})") from exc
+            message = f"PDF compiled in {time.perf_counter() - t1:.1f} s"
+    out.mkdir(parents=True, exist_ok=True)
+    written = publish(files, out)
+    main = [p for p in written if p.suffix in (".pdf", ".tex", ".md") and p.parent == out]
+    print(
+        f"memo written to {out}/: "
+        + ", ".join(sorted(p.name for p in main))
+        + f" and {len(doc.figures)} figure files ({time.perf_counter() - t0:.1f} s)"
+    )
+    if message:
+        print(message, file=sys.stderr if message.startswith("PDF skipped") else sys.stdout)
+    return 0 if d.passed else 1
