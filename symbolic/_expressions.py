@@ -62,6 +62,7 @@ import warnings
 from collections.abc import Callable, Mapping
 from fractions import Fraction
 from types import MappingProxyType
+from typing import NamedTuple
 
 import sympy
 from sympy.core.sympify import SympifyError
@@ -98,6 +99,7 @@ MAX_CONSTANT_EXPONENT10 = 30  # folded constants satisfy 1e-30 <= |c| <= 1e30
 MAX_CONSTANT_BITS = 512
 MAX_DEGREE = 100
 MAX_IRRATIONAL_STEPS = 20  # function calls plus fractional powers
+MAX_EXPANDED_TERMS = 300
 _QUOTE_LIMIT = 40
 
 NAME_PATTERN: re.Pattern[str] = re.compile(r"\A[A-Za-z][A-Za-z0-9_]*\Z")
@@ -421,22 +423,44 @@ def _check_all_constants(value: sympy.Expr, text: str) -> None:
             raise ExpressionError(f"a constant in the expression {problem}: {_quote(text)}")
 
 
-# Functions whose value grows without bound with their argument, and functions
-# whose numerical evaluation reduces a (possibly huge) argument modulo a period.
+# Guards on function arguments, each measured here with SymPy 1.14:
+# * exp, sinh and cosh grow so fast that exp(exp(1e15)) or sin(exp(1e15)) needs
+#   about 1e15 bits to evaluate, and SymPy evaluates numerically inside many
+#   later operations (abs, sqrt, a division or a product of such a value each
+#   ran past 5 s), so they may not appear inside exp, sinh, cosh, tanh, sin, cos
+#   or tan;
+# * sinh, cosh, tanh and abs ask for the real and imaginary parts of their
+#   argument, which expands it: tanh(tanh(tanh((m+c+g+q)**10))) took 1.3 s and
+#   abs(tanh(sqrt(q)*(...)**10)) ran past 20 s.  Their argument must contain no
+#   function call (sinh, cosh, tanh) and be known to be real (all four).
 _GROWTH_FUNCTIONS = (sympy.exp, sympy.sinh, sympy.cosh)
-_GUARDED_FUNCTIONS = frozenset({"exp", "sinh", "cosh", "tanh", "sin", "cos", "tan"})
+_NO_GROWTH_INSIDE = frozenset({"exp", "sinh", "cosh", "tanh", "sin", "cos", "tan"})
+_NO_CALL_INSIDE = frozenset({"sinh", "cosh", "tanh"})
+_REAL_ARGUMENT = frozenset({"sinh", "cosh", "tanh", "abs"})
+
+
+class _Built(NamedTuple):
+    """An expression under construction with two cheap size measures.
+
+    ``degree`` bounds the growth of the value: rational numbers count 0; names,
+    ``pi`` and any other irrational value 1; sums take the maximum, products and
+    quotients the sum, powers multiply by the exponent's magnitude.  Irrational
+    constants count so that ``pi**1000`` (whose value would need thousands of
+    digits) is refused like ``x**1000``.
+
+    ``terms`` bounds the number of terms the expression would have if SymPy
+    expanded it (which several of its routines do internally): sums add,
+    products and quotients multiply, an integer power ``n`` of ``t`` terms gives
+    ``C(t+n-1, n)``, and a function call or fractional power is one term.
+    """
+
+    expr: sympy.Expr
+    degree: int
+    terms: int
 
 
 class _Builder:
-    """Build a SymPy expression from a size-checked syntax tree.
-
-    Each ``build`` call returns ``(expression, degree)``.  ``degree`` bounds the
-    growth of the expression: rational numbers count 0; names, ``pi`` and any
-    other irrational value count 1; sums take the maximum, products and
-    quotients the sum, powers multiply by the exponent's magnitude.  Irrational
-    constants count so that ``pi**1000`` (whose numerical value would need
-    thousands of digits) is refused like ``x**1000``.
-    """
+    """Build a SymPy expression from a size-checked syntax tree."""
 
     def __init__(self, text: str, symbols: Mapping[str, sympy.Symbol]):
         self.text = text
@@ -447,9 +471,9 @@ class _Builder:
         # The text is one line of ASCII, so column offsets are character offsets.
         return self.text[node.col_offset : node.end_col_offset]
 
-    def build(self, node: ast.AST) -> tuple[sympy.Expr, int]:
+    def build(self, node: ast.AST) -> _Built:
         if isinstance(node, ast.Constant):
-            return self._constant(node), 0
+            return _Built(self._constant(node), 0, 1)
         if isinstance(node, ast.Name):
             return self._name(node)
         if isinstance(node, ast.UnaryOp):
@@ -469,19 +493,26 @@ class _Builder:
             message = f"the construct {type(node).__name__} is not allowed"
         raise ExpressionError(f"{message}: {_quote(self.segment(node))}")
 
-    def finish_step(self, result: sympy.Expr, degree: int) -> tuple[sympy.Expr, int]:
-        """Check the limits after one operation; return the result and its degree."""
-        if result.is_Rational:
-            degree = 0
-        _check_constant(result, self.text)
+    def check_size(self, degree: int, terms: int) -> None:
+        """Refuse a step whose measures are over the limits, before SymPy runs it."""
         if degree > MAX_DEGREE:
-            raise self.degree_error()
-        return result, degree
+            raise ExpressionError(
+                f"the expression's degree exceeds {MAX_DEGREE} (powers too high): "
+                f"{_quote(self.text)}"
+            )
+        if terms > MAX_EXPANDED_TERMS:
+            raise ExpressionError(
+                f"the expression would expand to more than {MAX_EXPANDED_TERMS} terms: "
+                f"{_quote(self.text)}"
+            )
 
-    def degree_error(self) -> ExpressionError:
-        return ExpressionError(
-            f"the expression's degree exceeds {MAX_DEGREE} (powers too high): {_quote(self.text)}"
-        )
+    def finish(self, result: sympy.Expr, degree: int, terms: int) -> _Built:
+        """Check the limits after one operation and record the measures."""
+        if result.is_Rational:
+            degree, terms = 0, 1
+        _check_constant(result, self.text)
+        self.check_size(degree, terms)
+        return _Built(result, degree, terms)
 
     def count_irrational_step(self, node: ast.AST) -> None:
         self.irrational_steps += 1
@@ -508,10 +539,10 @@ class _Builder:
             return _literal_value(self.segment(node))
         raise ExpressionError(f"the constant {_quote(self.segment(node))} is not allowed")
 
-    def _name(self, node: ast.Name) -> tuple[sympy.Expr, int]:
+    def _name(self, node: ast.Name) -> _Built:
         name = node.id
         if name in ALLOWED_CONSTANTS:
-            return ALLOWED_CONSTANTS[name], 1
+            return _Built(ALLOWED_CONSTANTS[name], 1, 1)
         if name in ALLOWED_FUNCTIONS:
             raise ExpressionError(f"'{name}' is a function; call it as {name}(...)")
         if name in _RESERVED_REASONS:
@@ -526,7 +557,7 @@ class _Builder:
             raise _SymbolsMappingError(
                 f"symbols[{name!r}] must be a sympy.Symbol, got {_type_name(symbol)}"
             )
-        return symbol, 1
+        return _Built(symbol, 1, 1)
 
     def _undeclared(self, name: str) -> str:
         message = f"undeclared name {_quote(name)}"
@@ -540,17 +571,17 @@ class _Builder:
         return f"{message}; declared parameters: {shown}"
 
     # -- operators ------------------------------------------------------------
-    def _unary(self, node: ast.UnaryOp) -> tuple[sympy.Expr, int]:
+    def _unary(self, node: ast.UnaryOp) -> _Built:
         if isinstance(node.op, ast.Not):
             raise ExpressionError("boolean operators (not) are not allowed")
         if isinstance(node.op, ast.Invert):
             raise ExpressionError("operator '~' is not allowed")
-        operand, degree = self.build(node.operand)
+        operand = self.build(node.operand)
         if isinstance(node.op, ast.USub):
-            return self.finish_step(-operand, degree)
-        return operand, degree
+            return self.finish(-operand.expr, operand.degree, operand.terms)
+        return operand
 
-    def _chain(self, node: ast.BinOp) -> tuple[sympy.Expr, int]:
+    def _chain(self, node: ast.BinOp) -> _Built:
         """Fold a left-leaning chain ``a op b op c ...`` of one operator group."""
         group = _operator_group(node.op)
         tail: list[tuple[ast.operator, ast.expr]] = []
@@ -558,46 +589,58 @@ class _Builder:
         while isinstance(current, ast.BinOp) and _operator_group(current.op) == group:
             tail.append((current.op, current.right))
             current = current.left
-        result, degree = self.build(current)
+        left = self.build(current)
         for op, right_node in reversed(tail):
-            right, right_degree = self.build(right_node)
+            right = self.build(right_node)
+            if isinstance(op, ast.Add | ast.Sub):
+                degree = max(left.degree, right.degree)
+                terms = left.terms + right.terms
+            else:
+                degree = left.degree + right.degree
+                terms = left.terms * right.terms
+            self.check_size(degree, terms)
             if isinstance(op, ast.Add):
-                result, degree = result + right, max(degree, right_degree)
+                result = left.expr + right.expr
             elif isinstance(op, ast.Sub):
-                result, degree = result - right, max(degree, right_degree)
+                result = left.expr - right.expr
             elif isinstance(op, ast.Mult):
-                result, degree = result * right, degree + right_degree
+                result = left.expr * right.expr
             else:
                 # Only an explicit number is tested for zero: asking SymPy whether a
                 # numeric expression is zero may evaluate it numerically.
-                if right.is_Number and right.is_zero:
+                if right.expr.is_Number and right.expr.is_zero:
                     raise ExpressionError(f"division by zero: {_quote(self.segment(right_node))}")
-                result, degree = result / right, degree + right_degree
-            result, degree = self.finish_step(result, degree)
-        return result, degree
+                result = left.expr / right.expr
+            left = self.finish(result, degree, terms)
+        return left
 
-    def _power(self, node: ast.BinOp) -> tuple[sympy.Expr, int]:
+    def _power(self, node: ast.BinOp) -> _Built:
         exponent = self._exponent(node.right)
-        base, degree = self.build(node.left)
-        if base.is_Number and base.is_zero and exponent.is_negative:
+        base = self.build(node.left)
+        if base.expr.is_Number and base.expr.is_zero and exponent.is_negative:
             raise ExpressionError(
                 f"division by zero (zero to a negative power): {_quote(self.segment(node))}"
             )
-        new_degree = math.ceil(degree * Fraction(abs(int(exponent.p)), int(exponent.q)))
-        if new_degree > MAX_DEGREE:
-            raise self.degree_error()  # before SymPy computes anything
+        magnitude = Fraction(abs(int(exponent.p)), int(exponent.q))
+        degree = math.ceil(base.degree * magnitude)
         if exponent.is_Integer:
-            if base.is_Rational:
+            power = abs(int(exponent))
+            terms = math.comb(base.terms + power - 1, power) if power else 1
+        else:
+            terms = 1
+        self.check_size(degree, terms)  # before SymPy computes anything
+        if exponent.is_Integer:
+            if base.expr.is_Rational:
                 # Bound the folded power before computing it.
-                bits = max(abs(int(base.p)).bit_length(), int(base.q).bit_length())
+                bits = max(abs(int(base.expr.p)).bit_length(), int(base.expr.q).bit_length())
                 if bits * abs(int(exponent)) > 2 * MAX_CONSTANT_BITS:
                     raise ExpressionError(
                         f"a constant in the expression has too many digits: {_quote(self.text)}"
                     )
         else:
             self.count_irrational_step(node)
-            self._check_root_base(base, node)
-        result = base**exponent
+            self._check_root_base(base.expr, node)
+        result = base.expr**exponent
         if result.has(*_UNDEFINED):
             raise ExpressionError(f"{_quote(self.segment(node))} is undefined")
         if not exponent.is_Integer and _is_not_real(result):
@@ -605,7 +648,7 @@ class _Builder:
                 f"{_quote(self.segment(node))} is not real (a negative number to a "
                 "fractional power)"
             )
-        return self.finish_step(result, new_degree)
+        return self.finish(result, degree, terms)
 
     def _check_root_base(self, base: sympy.Expr, node: ast.AST) -> None:
         """Bound the numbers under a root: SymPy factors them (measured: a 500-bit
@@ -667,7 +710,7 @@ class _Builder:
         value = _literal_value(self.segment(inner))
         return -value if negative else value
 
-    def _call(self, node: ast.Call) -> tuple[sympy.Expr, int]:
+    def _call(self, node: ast.Call) -> _Built:
         func = node.func
         if isinstance(func, ast.Attribute):
             raise ExpressionError(f"attribute access is not allowed: {_quote(self.segment(func))}")
@@ -695,18 +738,9 @@ class _Builder:
                 f"function '{func.id}' takes exactly one argument, got {len(node.args)}"
             )
         self.count_irrational_step(node)
-        argument, degree = self.build(node.args[0])
-        if func.id in _GUARDED_FUNCTIONS and argument.has(*_GROWTH_FUNCTIONS):
-            # exp(exp(1e15)) or sin(exp(1e15)) would need ~1e15 bits to evaluate;
-            # SymPy evaluates numerically inside many later operations (measured:
-            # abs, sqrt, division and products of such a value ran past 5 s).
-            raise ExpressionError(
-                f"'{func.id}' may not be applied to an argument that contains exp, sinh or "
-                f"cosh: {_quote(self.segment(node))}"
-            )
-        if func.id == "sqrt":
-            self._check_root_base(argument, node)
-        result = function(argument)
+        argument = self.build(node.args[0])
+        self._check_argument(func.id, argument.expr, node)
+        result = function(argument.expr)
         if result.has(*_UNDEFINED):
             raise ExpressionError(
                 f"{_quote(self.segment(node))} is undefined (outside the function's domain)"
@@ -715,7 +749,27 @@ class _Builder:
             raise ExpressionError(
                 f"{_quote(self.segment(node))} is not real (outside the function's real domain)"
             )
-        return self.finish_step(result, max(1, degree))
+        return self.finish(result, max(1, argument.degree), 1)
+
+    def _check_argument(self, name: str, argument: sympy.Expr, node: ast.Call) -> None:
+        """Apply the argument guards listed above ``_GROWTH_FUNCTIONS``."""
+        shown = _quote(self.segment(node))
+        if name in _NO_GROWTH_INSIDE and argument.has(*_GROWTH_FUNCTIONS):
+            raise ExpressionError(
+                f"'{name}' may not be applied to an argument that contains exp, sinh or "
+                f"cosh: {shown}"
+            )
+        if name in _NO_CALL_INSIDE and argument.atoms(sympy.Function):
+            raise ExpressionError(
+                f"'{name}' may not be applied to an argument that contains a function call: {shown}"
+            )
+        if name in _REAL_ARGUMENT and argument.is_extended_real is not True:
+            raise ExpressionError(
+                f"the argument of '{name}' must be evidently real (no root or logarithm of a "
+                f"quantity that may be negative): {shown}"
+            )
+        if name == "sqrt":
+            self._check_root_base(argument, node)
 
 
 def _is_real_number(value: object) -> bool:
@@ -918,7 +972,7 @@ def parse_expression(text: str | int | float, symbols: Mapping[str, sympy.Symbol
         stripped = _check_text(text, "expression")
         body = _parse_tree(stripped, "expression")
         _check_tree_size(body, stripped, "expression")
-        result, _degree = _Builder(stripped, symbols).build(body)
+        result = _Builder(stripped, symbols).build(body).expr
         _check_all_constants(result, stripped)
         if result.has(*_UNDEFINED):
             raise ExpressionError(

@@ -153,7 +153,8 @@ def pole_map_figure(
     ``region`` has ``min_damping_ratio``, ``min_real_part``,
     ``min_natural_frequency`` (see :class:`symbolic._specs.SpecRegion`).
     """
-    fig, ax = _new((6.4, 4.2))
+    fig, ax = _new((6.4, 5.0))
+    fig.subplots_adjust(bottom=0.27)
     allp = np.concatenate([controller, observer] + ([plant] if plant is not None else []))
     span = max(1.0, float(np.max(np.abs(allp)))) * 1.15
     left = -span
@@ -210,7 +211,7 @@ def pole_map_figure(
     )
     ax.set_xlabel("real part [1/s]")
     ax.set_ylabel("imaginary part [rad/s]")
-    ax.legend(loc="upper left", fontsize=8)
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=2, fontsize=8)
     return fig
 
 

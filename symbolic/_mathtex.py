@@ -175,13 +175,49 @@ def equation_lines(lhs: str, expr: sp.Expr, width: int = LONG) -> list[TrustedLa
     return [TrustedLatex(f"{lhs} &= {full}")]
 
 
-def polynomial_latex(coeffs, var: str = "s") -> TrustedLatex:
-    """Σ c_i var^(n−i) with numeric coefficients shown to 6 significant figures."""
+def _float_latex(x: float, digits: int) -> str:
+    text = f"{x:.{digits}g}"
+    if "e" in text:
+        mant, exp = text.split("e")
+        return f"{mant} \\times 10^{{{int(exp)}}}"
+    return text
+
+
+def polynomial_latex(coeffs, var: str = "s", digits: int | None = None) -> TrustedLatex:
+    """Σ c_i var^(n−i), highest power first.
+
+    Exact SymPy coefficients are typeset exactly; with ``digits`` the
+    coefficients are rounded to that many significant figures (floats).
+    Zero terms are left out and unit coefficients are not written.
+    """
     n = len(coeffs) - 1
-    x = sp.Symbol(var)
-    terms = []
+    parts: list[str] = []
     for i, c in enumerate(coeffs):
-        if c.is_Rational and c.q > 1000:
-            c = sp.Float(c, 6)
-        terms.append(c * x ** (n - i))
-    return TrustedLatex(sp.latex(sp.Add(*terms), order="none", symbol_names=_names(sp.Add(*terms))))
+        power = n - i
+        if digits is not None:
+            value = float(c)
+            if value == 0:
+                continue
+            negative = value < 0
+            body = _float_latex(abs(value), digits)
+            unit = abs(abs(value) - 1.0) < 10 ** (-digits)
+        else:
+            c = sp.Rational(c) if isinstance(c, int) else c
+            if c == 0:
+                continue
+            negative = bool(c.could_extract_minus_sign())
+            mag = -c if negative else c
+            body = sp.latex(mag, symbol_names=_names(mag))
+            if mag.is_Add:
+                body = f"\\left({body}\\right)"
+            unit = mag == 1
+        if power == 0:
+            term = body
+        else:
+            pw = var if power == 1 else f"{var}^{{{power}}}"
+            term = pw if unit else f"{body}\\, {pw}"
+        if not parts:
+            parts.append(("-" if negative else "") + term)
+        else:
+            parts.append(("- " if negative else "+ ") + term)
+    return TrustedLatex(" ".join(parts) if parts else "0")

@@ -242,6 +242,14 @@ def _identifiers(text: str) -> list[str]:
     return [t for t in re.findall(r"[A-Za-z][A-Za-z0-9_]*", text) if t not in reserved]
 
 
+_BOUND_SYMBOL = {
+    "overshoot_percent": "\\zeta",
+    "settling_time": "\\sigma",
+    "rise_time": "\\omega_n",
+    "peak_time": "\\omega_d",
+}
+
+
 def _spec_rows(d: Derivation) -> list[dict]:
     pair = d.controller_poles.dominant
     if pair is None:
@@ -253,7 +261,7 @@ def _spec_rows(d: Derivation) -> list[dict]:
                 "spec": f.spec.replace("_", " "),
                 "requested": _math(_num(f.requested, 4)),
                 "formula": _math(f.formula_latex),
-                "bound": f.bound,
+                "bound": _math(_BOUND_SYMBOL.get(f.spec, "x") + " \\ge " + _num(f.bound_value, 4)),
                 "predicted": _math(_num(f.predicted, 4)),
                 "binding": f.binding,
                 "passed": f.passed,
@@ -351,21 +359,12 @@ def build_context(d: Derivation, study=None, claims=None) -> dict:
     if d.compensator is not None and d.compensator.numerator is not None:
         c = d.compensator
         s = sp.Symbol("s")
-        num_val = sp.Add(
-            *[sp.Float(x, 6) * s ** (len(c.numerator) - 1 - i) for i, x in enumerate(c.numerator)]
-        )
-        den_val = sp.Add(
-            *[
-                sp.Float(x, 6) * s ** (len(c.denominator) - 1 - i)
-                for i, x in enumerate(c.denominator)
-            ]
-        )
         comp = {
             "numeric": _math(
                 "\\frac{U(s)}{Y(s)} = -\\frac{"
-                + sp.latex(num_val, order="none")
+                + polynomial_latex(c.numerator, digits=6)
                 + "}{"
-                + sp.latex(den_val, order="none")
+                + polynomial_latex(c.denominator, digits=6)
                 + "}"
             ),
             "closed_lines": None,
@@ -422,7 +421,10 @@ def build_context(d: Derivation, study=None, claims=None) -> dict:
     checks = [
         {
             "name": chk.name,
-            "value": None if chk.value is None else _math(_num(chk.value, 2)),
+            # residuals under 1e-12 are round-off: shown as a bound so the memo is reproducible
+            "value": None
+            if chk.value is None
+            else _math("< 10^{-12}" if chk.value < 1e-12 else _num(chk.value, 2)),
             "tolerance": None if chk.tolerance is None else _math(_num(chk.tolerance, 1)),
             "status": {True: "pass", False: "FAIL", None: "not run"}[chk.passed],
             "note": chk.note,

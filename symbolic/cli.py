@@ -19,12 +19,15 @@ __all__ = ["main"]
 EXIT_OK, EXIT_FAILED_CHECK, EXIT_BAD_INPUT, EXIT_BUG = 0, 1, 2, 3
 
 
-def _overrides(pairs: Sequence[str] | None) -> dict[str, str]:
+def _overrides(pairs: Sequence[str] | None, design: str) -> dict[str, str]:
+    from ._errors import DesignFileError
+
     out: dict[str, str] = {}
     for item in pairs or ():
         name, sep, value = item.partition("=")
         if not sep or not name.strip() or not value.strip():
-            raise GainsmithError(f"--set {item}: expected NAME=VALUE, e.g. --set m=3.1")
+            # same one-line shape as every other input error: FILE: KEY: problem
+            raise DesignFileError("expected NAME=VALUE, e.g. --set m=3.1", design, f"--set {item}")
         out[name.strip()] = value.strip()
     return out
 
@@ -32,7 +35,7 @@ def _overrides(pairs: Sequence[str] | None) -> dict[str, str]:
 def _load(args):
     from ._design import load_design
 
-    return load_design(args.design, _overrides(args.set))
+    return load_design(args.design, _overrides(args.set, args.design))
 
 
 def _cmd_derive(args) -> int:
@@ -62,7 +65,7 @@ def _cmd_simulate(args) -> int:
 def _cmd_check(args) -> int:
     from ._claims import run_check
 
-    return run_check(_load(args), tolerance=args.tolerance)
+    return run_check(_load(args), tolerance=args.tolerance, as_json=args.json)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -113,6 +116,7 @@ def build_parser() -> argparse.ArgumentParser:
         default=None,
         help="relative tolerance (default: the file's, else 1e-3)",
     )
+    p.add_argument("--json", action="store_true", help="print machine-readable results")
     p.set_defaults(func=_cmd_check)
     return parser
 

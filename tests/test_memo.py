@@ -1,0 +1,258 @@
+"""The design memo: content, PDF build, hostile text, reproducibility, atomic writes."""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import subprocess
+import sys
+import textwrap
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+import symbolic
+from symbolic import _memo
+from symbolic._derive import derive
+from symbolic._memo import build_memo, write_memo
+from symbolic._report import format_number
+from symbolic._simreport import memo_simulation
+
+from .conftest import ROOT, WORKED, WORKED_FILES, require_tex
+
+PINNED_EPOCH = "1764633600"  # the date pinned by worked_designs/regenerate.sh
+
+
+def _pdf_text(pdf: Path) -> str:
+    out = subprocess.run(["pdftotext", "-raw", str(pdf), "-"], capture_output=True, check=True)
+    return out.stdout.decode("utf-8", "replace")
+
+
+def _squash(text: str) -> str:
+    return re.sub(r"\s+", "", text)
+
+
+@pytest.fixture(scope="module")
+def built_memos(tmp_path_factory):
+    """Every worked design's memo, built once with PDF (CI has TeX)."""
+    require_tex()
+    out = tmp_path_factory.mktemp("memos")
+    results = {}
+    for path in WORKED_FILES:
+        design = symbolic.load_design(path)
+        code = write_memo(design, out, pdf=True)
+        results[path.stem] = (design, code)
+    return out, results
+
+
+@pytest.mark.parametrize("path", WORKED_FILES, ids=lambda p: p.stem)
+def test_worked_design_pdf_contains_the_gains(built_memos, path):
+    out, results = built_memos
+    design, code = results[path.stem]
+    assert code == 0
+    pdf = out / f"{path.stem}.pdf"
+    assert pdf.read_bytes().startswith(b"%PDF")
+    text = _squash(_pdf_text(pdf))
+    d = derive(design)
+    # the numbers as the terminal summary prints them (6 significant figures)
+    for value in np.concatenate([d.K.value.ravel(), d.L.value.ravel(), d.reference.value.ravel()]):
+        printed = format_number(value)
+        mantissa = printed.split("e")[0]  # the memo writes 1.28142 × 10^6 for 1.28142e+06
+        assert mantissa.replace("-", "") in text.replace("−", "-"), printed
+    for heading in ("Summary", "Plantmodel", "Controllabilityandobservability", "Choiceofpoles",
+                    "Derivationofthegains", "Verification", "Simulatedresponse",
+                    "Assumptions,limitsandcautions", "References", "Preparedby", "Checkedby",
+                    "Approvedby"):
+        assert heading in text, heading
+    assert design.sha256[:16] in text
+
+
+def test_memo_files_and_figures_written(built_memos):
+    out, _ = built_memos
+    for path in WORKED_FILES:
+        for ext in (".tex", ".md", ".pdf"):
+            assert (out / f"{path.stem}{ext}").is_file()
+        for stem in ("step", "estimation-error", "control", "pole-map", "observer-study"):
+            assert (out / "figures" / f"{path.stem}-{stem}.png").read_bytes().startswith(b"\x89PNG")
+            assert (out / "figures" / f"{path.stem}-{stem}.pdf").read_bytes().startswith(b"%PDF")
+    assert not [p for p in out.iterdir() if p.name.startswith(".gainsmith-staging")]
+
+
+def test_memo_shows_hand_calculation_check(built_memos):
+    out, _ = built_memos
+    text = _squash(_pdf_text(out / "levitated_ball.pdf"))
+    assert "Handcalculationcheck" in text
+    assert "Everyclaimholds" in text
+
+
+HOSTILE = [
+    r"\input{/etc/hostname}",
+    r"\write18{touch CANARY}",
+    r"^^5cinput{/etc/passwd}",
+    "50% & $5 #1 _x {y} ~z ^w \\ back",
+    r"\catcode`\@=11 \csname input\endcsname",
+    "unbalanced { brace",
+    "<script>alert(1)</script> [x](javascript:alert(1)) ![i](http://e.invalid/x.png)",
+    "Ωmega µs ±5 % — naïve",
+]
+
+
+def _hostile_design(tmp_path: Path, canary: Path) -> Path:
+    q = json.dumps  # a TOML basic string is a JSON string for this text
+    bs = "\\"
+    unit_k = q(bs + "input{" + str(canary) + "}")
+    desc_k = q(bs + "openin5=" + str(canary) + " " + bs + "read5 to " + bs + "x " + bs + "x")
+    unit_x = q(bs + "include{" + str(canary) + "}")
+    text = f"""
+title = {q(HOSTILE[0])}
+author = {q(HOSTILE[1])}
+revision = {q(HOSTILE[4])}
+
+[parameters.m]
+value = 2.0
+unit = {q(HOSTILE[2])}
+description = {q(" ".join(HOSTILE[3:]))}
+
+[parameters.k_s]
+value = 8.0
+unit = {unit_k}
+description = {desc_k}
+
+[plant]
+A = [[0, 1], ["-k_s/m", 0]]
+B = [[0], ["1/m"]]
+C = [[1, 0]]
+states = [{{ name = "x_pos", unit = {unit_x} }}, {{ name = "v", unit = "m/s" }}]
+
+[controller]
+poles = ["-2+2j", "-2-2j"]
+"""
+    path = tmp_path / "hostile.toml"
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+def test_hostile_text_appears_literally_and_reads_nothing(tmp_path):
+    require_tex()
+    canary = tmp_path / "canary.txt"
+    token = "CANARYTOKEN7f3a9c"
+    canary.write_text(token)
+    design = symbolic.load_design(_hostile_design(tmp_path, canary))
+    out = tmp_path / "out"
+    cwd = os.getcwd()
+    os.chdir(tmp_path)  # a \write18{touch CANARY} would land here
+    try:
+        assert write_memo(design, out, pdf=True) == 0
+    finally:
+        os.chdir(cwd)
+    assert not (tmp_path / "CANARY").exists()
+    text = _pdf_text(out / "hostile.pdf")
+    assert token not in text
+    assert token.encode() not in (out / "hostile.pdf").read_bytes()
+    flat = _squash(text)
+    for s in (r"\input{/etc/hostname}", r"\write18{touchCANARY}", "^^5cinput{/etc/passwd}",
+              "50%&$5#1_x{y}~z^w\\back", "unbalanced{brace", "<script>alert(1)</script>"):
+        assert _squash(s) in flat, s
+    md = (out / "hostile.md").read_text()
+    assert "<script>" not in md and "&lt;script&gt;" in md
+    assert "](javascript" not in md
+
+
+def test_pdf_skipped_without_tex_engine(tmp_path, monkeypatch, capsys):
+    monkeypatch.setattr("symbolic._pdf.find_tex_engine", lambda: None)
+    design = symbolic.load_design(WORKED / "focus_actuator.toml")
+    assert write_memo(design, tmp_path, pdf=True) == 0
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "PDF skipped" in err and "apt-get install" in err
+    assert (tmp_path / "focus_actuator.tex").is_file()
+    assert (tmp_path / "focus_actuator.md").is_file()
+    assert not (tmp_path / "focus_actuator.pdf").exists()
+
+
+def test_failed_compile_keeps_the_previous_memo(tmp_path, monkeypatch):
+    design = symbolic.load_design(WORKED / "focus_actuator.toml")
+    (tmp_path / "focus_actuator.tex").write_text("previous memo")
+    (tmp_path / "focus_actuator.md").write_text("previous markdown")
+
+    def broken(*args, **kwargs):
+        raise symbolic.RenderError("! Undefined control sequence. (memo.tex l.4)")
+
+    monkeypatch.setattr("symbolic._pdf.find_tex_engine", lambda: "/usr/bin/pdflatex")
+    monkeypatch.setattr("symbolic._pdf.compile_pdf", broken)
+    with pytest.raises(symbolic.RenderError, match="l.4"):
+        write_memo(design, tmp_path, pdf=True)
+    assert (tmp_path / "focus_actuator.tex").read_text() == "previous memo"
+    assert (tmp_path / "focus_actuator.md").read_text() == "previous markdown"
+    assert not (tmp_path / "figures").exists()
+
+
+@pytest.mark.parametrize("path", WORKED_FILES, ids=lambda p: p.stem)
+def test_committed_worked_memos_are_current(path, monkeypatch):
+    """Fails when worked_designs/*.md or *.tex are stale: run sh worked_designs/regenerate.sh."""
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", PINNED_EPOCH)
+    d = derive(symbolic.load_design(path))
+    ctx, figures = memo_simulation(d)
+    claims = None
+    if d.design.claims is not None:
+        from symbolic._claims import memo_claims
+
+        claims = memo_claims(d, d.design.claims)
+    doc = build_memo(d, ctx, figures, claims)
+    hint = "stale: run `sh worked_designs/regenerate.sh`"
+    assert (WORKED / f"{path.stem}.md").read_text(encoding="utf-8") == doc.markdown, hint
+    assert (WORKED / f"{path.stem}.tex").read_text(encoding="utf-8") == doc.tex, hint
+    for name in figures:
+        if name.endswith(".png"):
+            assert (WORKED / "figures" / name).is_file(), hint
+
+
+def test_source_date_epoch_makes_sources_reproducible(monkeypatch):
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", "0")
+    assert _memo.memo_date() == "1970-01-01"
+    d = derive(symbolic.load_design(WORKED / "focus_actuator.toml"))
+    first = build_memo(d, None, {})
+    second = build_memo(d, None, {})
+    assert first.tex == second.tex and first.markdown == second.markdown
+    assert "1970-01-01" in first.markdown.replace("\\-", "-")
+
+
+def test_long_formulas_are_broken_over_lines():
+    d = derive(symbolic.load_design(WORKED / "belt_drive.toml"))
+    doc = build_memo(d, None, {})
+    block = doc.tex.split(r"\subsection{State-feedback gain $K$}")[1].split(r"\subsection")[0]
+    lines = [ln for ln in block.splitlines() if ln.startswith(("K_", "&"))]
+    assert len(lines) > 4  # four entries, some continued
+    assert max(len(ln) for ln in lines) < 200
+
+
+def test_memo_command_line(tmp_path):
+    out = tmp_path / "memo"
+    proc = subprocess.run(
+        [sys.executable, "-m", "symbolic", "memo", str(WORKED / "focus_actuator.toml"), "-o", str(out), "--no-pdf"],
+        capture_output=True, text=True, cwd=ROOT, timeout=120,
+    )
+    assert proc.returncode == 0, proc.stderr
+    assert "memo written" in proc.stdout
+    assert (out / "focus_actuator.md").is_file()
+
+
+def test_memo_bad_input_is_one_line(tmp_path):
+    bad = tmp_path / "bad.toml"
+    bad.write_text(textwrap.dedent("""
+        [plant]
+        A = [[0, 1], [0, 0]]
+        B = [[0], [1]]
+        C = [[1, 0]]
+        [controler]
+        poles = ["-1", "-2"]
+    """))
+    proc = subprocess.run(
+        [sys.executable, "-m", "symbolic", "memo", str(bad), "-o", str(tmp_path / "o")],
+        capture_output=True, text=True, cwd=ROOT, timeout=120,
+    )
+    assert proc.returncode == 2
+    assert proc.stderr.count("\n") == 1 and "controler" in proc.stderr and "controller" in proc.stderr
+    assert "Traceback" not in proc.stderr
+    assert not (tmp_path / "o").exists()

@@ -1,0 +1,11 @@
+#!/bin/sh
+# Regenerate the committed memos (Markdown, LaTeX source and figures) of every worked design.
+# The date is pinned (SOURCE_DATE_EPOCH, the reproducible-builds convention) so that the same
+# design file and gainsmith version give byte-identical .tex and .md files;
+# tests/test_memo.py fails when a committed memo is stale.
+set -eu
+cd "$(dirname "$0")"
+export SOURCE_DATE_EPOCH=1764633600  # 2025-12-02
+for design in *.toml; do
+  python3 -m symbolic memo "$design" -o . --no-pdf
+done
