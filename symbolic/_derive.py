@@ -502,8 +502,13 @@ def derive(design: Design, *, budget: float | None = None) -> Derivation:
             )
 
     # ---- gains --------------------------------------------------------------
-    K = _gain("K", forms.controller if forms else None, A, B, ctrl, values, notes, checks)
-    Lt = _gain("L", forms.observer if forms else None, A.T, C.T, obs, values, notes, checks)
+    try:
+        K = _gain("K", forms.controller if forms else None, A, B, ctrl, values, notes, checks)
+        Lt = _gain("L", forms.observer if forms else None, A.T, C.T, obs, values, notes, checks)
+    except StructureError as exc:
+        if exc.path is not None:
+            raise
+        raise StructureError(exc.problem, design.path, exc.key) from exc
     L = GainResult(
         name="L",
         value=Lt.value.T.copy(),

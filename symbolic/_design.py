@@ -645,7 +645,7 @@ class _Reader:
             if len(poles) != n:
                 self.fail(
                     "controller.poles",
-                    f"{len(poles)} poles for a plant of order {n}: give exactly {n}",
+                    f"{len(poles)} pole(s) for a plant of order {n}: give exactly {n}",
                 )
             return ControllerRequest(poles=poles)
         if not spec_keys:
@@ -696,7 +696,7 @@ class _Reader:
             if len(poles) != plant.order:
                 self.fail(
                     "observer.poles",
-                    f"{len(poles)} poles for a plant of order {plant.order}: give exactly {plant.order}",
+                    f"{len(poles)} pole(s) for a plant of order {plant.order}: give exactly {plant.order}",
                 )
             return ObserverRequest(poles=poles, speed_factor_is_default=False)
         if "speed_factor" in data:
