@@ -150,7 +150,7 @@ def simulation_study(d: Derivation, *, sweep: bool = True) -> SimulationStudy:
         horizon=req.horizon,
         samples=req.samples,
     )
-    horizon = float(cases_linear[0].time[-1]) if req.horizon is None else req.horizon
+    horizon = float(cases_linear[0].horizon) if req.horizon is None else req.horizon
     cases = tuple(CaseOutcome(r, step_metrics(r, reference=reference)) for r in cases_linear)
     saturated = None
     if req.u_max is not None:

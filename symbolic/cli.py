@@ -68,6 +68,26 @@ def _cmd_check(args) -> int:
     return run_check(_load(args), tolerance=args.tolerance, as_json=args.json)
 
 
+def _cmd_export(args) -> int:
+    from ._export import run_export
+
+    return run_export(_load(args), lang=args.lang, out_dir=args.output)
+
+
+def _cmd_schedule(args) -> int:
+    from ._schedule import run_schedule
+
+    return run_schedule(
+        _load(args), out_dir=args.output, points=args.points, vary=args.vary, as_json=args.json
+    )
+
+
+def _cmd_robustness(args) -> int:
+    from ._robust import run_robustness
+
+    return run_robustness(_load(args), points=args.points, as_json=args.json)
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="gainsmith",
@@ -118,6 +138,35 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--json", action="store_true", help="print machine-readable results")
     p.set_defaults(func=_cmd_check)
+
+    p = sub.add_parser("export", help="write the gain formulas as C99 or Python code")
+    common(p)
+    p.add_argument("--lang", choices=("c", "python"), required=True, help="target language")
+    p.add_argument("-o", "--output", default="export", help="output folder (default: ./export)")
+    p.set_defaults(func=_cmd_export)
+
+    p = sub.add_parser("schedule", help="evaluate the gains over the parameter ranges (CSV + plot)")
+    common(p)
+    p.add_argument("-o", "--output", default="schedule", help="output folder (default: ./schedule)")
+    p.add_argument(
+        "--points", type=int, default=11, help="grid points per varying parameter (default 11)"
+    )
+    p.add_argument(
+        "--vary",
+        action="append",
+        metavar="NAME",
+        help="vary only these parameters (repeatable; default: every parameter with a range)",
+    )
+    p.add_argument("--json", action="store_true", help="print a machine-readable summary")
+    p.set_defaults(func=_cmd_schedule)
+
+    p = sub.add_parser("robustness", help="parameter mismatch, sensitivities and stability margins")
+    common(p)
+    p.add_argument(
+        "--points", type=int, default=5, help="grid points per parameter range (default 5)"
+    )
+    p.add_argument("--json", action="store_true", help="print machine-readable results")
+    p.set_defaults(func=_cmd_robustness)
     return parser
 
 
