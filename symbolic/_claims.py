@@ -771,7 +771,7 @@ def run_check(design: Design, tolerance: float | None = None, as_json: bool = Fa
 
 def memo_claims(derivation: Derivation, claims: Claims) -> dict[str, Any]:
     """Context of the memo's "hand calculation check" section (formatted, not re-derived)."""
-    from ._memo import _math, _numeric_matrix, _num
+    from ._memo import _math, _num, _numeric_matrix
 
     report = check_claims(derivation, claims)
     rows = []

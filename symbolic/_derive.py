@@ -56,6 +56,8 @@ GAIN_TOLERANCE = 1e-8
 POLYNOMIAL_TOLERANCE = 1e-8
 #: Condition number of the controllability/observability matrix above which a warning is given.
 ILL_CONDITIONED = 1e8
+#: Expressions with more operations than this are not factored outside the budgeted child.
+FACTOR_LIMIT = 400
 #: Closed-form transfer function of the compensator up to this order.
 COMPENSATOR_CLOSED_FORM_MAX_ORDER = 3
 
@@ -307,6 +309,11 @@ def conditions_of(determinant: sp.Expr | None) -> tuple[str, ...]:
     """The parameter conditions under which a determinant vanishes."""
     if determinant is None:
         return ()
+    if sp.count_ops(determinant) > FACTOR_LIMIT:
+        return (
+            f"the determinant vanishes (it has {sp.count_ops(determinant)} operations: too"
+            " large to solve for the parameters)",
+        )
     num, _den = sp.fraction(sp.factor(determinant))
     try:
         _c, factors = sp.factor_list(num)
@@ -403,13 +410,35 @@ def _values_text(design: Design) -> str:
     return ", ".join(f"{p.name} = {p.value}" for p in design.parameters) or "no parameters"
 
 
-def _bounded(func, args, design: Design, what: str, notes: list[str], budget: float | None):
-    seconds = design.symbolic_budget_seconds if budget is None else budget
-    try:
-        return run_bounded(func, args, seconds=None if seconds <= 0 else seconds, what=what)
-    except BudgetExceeded as exc:
-        notes.append(f"{exc}; numeric results are given instead of closed forms")
-        return None
+class _Budget:
+    """One time budget shared by the symbolic stages of a derivation (a deadline)."""
+
+    def __init__(self, seconds: float):
+        self.unbounded = seconds <= 0
+        self.seconds = seconds
+        self.deadline = time.monotonic() + seconds
+
+    def run(self, func, args, what: str, notes: list[str]):
+        if self.unbounded:
+            return run_bounded(func, args, seconds=None, what=what)
+        left = self.deadline - time.monotonic()
+        if left <= 0.05:
+            notes.append(
+                f"{what} was skipped: the symbolic budget of {self.seconds:g} s was used up;"
+                " numeric results are given instead of closed forms"
+            )
+            return None
+        try:
+            return run_bounded(func, args, seconds=left, what=what)
+        except BudgetExceeded as exc:
+            reason = str(exc)
+            if "did not finish" in reason:
+                reason = f"{what} did not finish within {self.seconds:g} s"
+            notes.append(
+                f"{reason} (the symbolic budget, options.symbolic_budget_seconds);"
+                " numeric results are given instead of closed forms"
+            )
+            return None
 
 
 def derive(design: Design, *, budget: float | None = None) -> Derivation:
@@ -420,9 +449,9 @@ def derive(design: Design, *, budget: float | None = None) -> Derivation:
     design : Design
         From :func:`symbolic.load_design`.
     budget : float, optional
-        Seconds allowed for each symbolic stage (default: the design file's
-        ``options.symbolic_budget_seconds``, 20 s).  Zero or negative runs the
-        symbolic stages in this process without a limit.
+        Seconds allowed for all symbolic stages together (default: the design
+        file's ``options.symbolic_budget_seconds``, 10 s).  Zero or negative
+        runs the symbolic stages in this process without a limit.
 
     Returns
     -------
@@ -442,6 +471,7 @@ def derive(design: Design, *, budget: float | None = None) -> Derivation:
     n, m, p = plant.order, plant.n_inputs, plant.n_outputs
     values = design.values
 
+    symbolic_budget = _Budget(design.symbolic_budget_seconds if budget is None else budget)
     ctrl = select_controller_poles(design)
     obs = select_observer_poles(design, ctrl)
     num = _numeric_plant(design)
@@ -452,13 +482,8 @@ def derive(design: Design, *, budget: float | None = None) -> Derivation:
     forms: cf.ClosedForms | None = None
     if m == 1 or p == 1:
         try:
-            forms = _bounded(
-                _closed_form_stage,
-                (design, ctrl, obs),
-                design,
-                "the closed-form derivation",
-                notes,
-                budget,
+            forms = symbolic_budget.run(
+                _closed_form_stage, (design, ctrl, obs), "the closed-form derivation", notes
             )
         except StructureError as exc:
             raise StructureError(exc.problem, design.path, exc.key) from exc
@@ -482,7 +507,11 @@ def derive(design: Design, *, budget: float | None = None) -> Derivation:
     for rep in (controllability, observability):
         exact_zero = False
         if rep.determinant is not None:
-            exact_zero = sp.simplify(rep.determinant.xreplace(values)) == 0
+            at_values = rep.determinant.xreplace(values)
+            if at_values.is_Rational:
+                exact_zero = at_values == 0
+            else:  # algebraic numbers: 60 significant digits decide
+                exact_zero = abs(complex(sp.N(at_values, 60))) < 1e-45
         if exact_zero or not rep.full_rank:
             where = (
                 f" (the plant is {rep.adjective} where {'; '.join(rep.conditions)})"
@@ -554,6 +583,14 @@ def derive(design: Design, *, budget: float | None = None) -> Derivation:
         checks.append(
             Check(f"eigenvalues of {label} vs requested poles (relative)", res, tol, res <= tol)
         )
+        if res > tol:
+            _, vectors = np.linalg.eig(M)
+            notes.append(
+                f"the eigenvalues of {label} miss the requested poles by {res:.1e} (relative):"
+                f" its eigenvector matrix has condition number {np.linalg.cond(vectors):.1e}, so"
+                " round-off moves these poles this much (Bauer-Fike); the design is numerically"
+                " fragile: consider slower or less clustered poles, or a better-scaled model"
+            )
         coeffs = [complex(c).real for c in choice.coefficients]
         pres = polynomial_residual(M, coeffs)
         checks.append(
@@ -583,13 +620,11 @@ def derive(design: Design, *, budget: float | None = None) -> Derivation:
     sep_forms = None
     t = time.perf_counter()
     if K.closed_form is not None and L.closed_form is not None:
-        sep_forms = _bounded(
+        sep_forms = symbolic_budget.run(
             _separated_stage,
             (design, K.closed_form, L.closed_form, ctrl, obs),
-            design,
             "the separated-loop derivation",
             notes,
-            budget,
         )
     timings["separated"] = time.perf_counter() - t
     if sep_forms is not None:

@@ -30,6 +30,7 @@ __all__ = [
     "Claims",
     "ControllerRequest",
     "Design",
+    "DiscreteRequest",
     "ObserverRequest",
     "Parameter",
     "Plant",
@@ -40,6 +41,8 @@ __all__ = [
     "parse_design",
     "DEFAULT_OBSERVER_SPEED_FACTOR",
     "DEFAULT_REMAINING_POLE_FACTOR",
+    "OBSERVER_KINDS",
+    "TRACKING_METHODS",
 ]
 
 #: Observer poles this many times faster than the controller poles unless the
@@ -69,6 +72,7 @@ _TOP_KEYS = (
     "simulation",
     "claimed",
     "options",
+    "discrete",
 )
 _PARAMETER_KEYS = ("value", "unit", "description", "range")
 _PLANT_KEYS = ("A", "B", "C", "D", "states", "inputs", "outputs")
@@ -83,8 +87,15 @@ _CONTROLLER_KEYS = (
     "remaining_pole_factor",
     "remaining_poles",
 )
-_OBSERVER_KEYS = ("poles", "speed_factor")
-_TRACKING_KEYS = ("output",)
+_OBSERVER_KEYS = ("poles", "speed_factor", "kind")
+_TRACKING_KEYS = ("output", "method", "integral_pole")
+_DISCRETE_KEYS = ("sample_time",)
+
+#: ``[tracking] method``: a feed-forward reference gain N, or integral action on the error.
+TRACKING_METHODS = ("reference_gain", "integral")
+#: ``[observer] kind``: the full-order observer (n states) or Luenberger's reduced-order one
+#: (n - p states).
+OBSERVER_KINDS = ("full", "reduced")
 _SIMULATION_KEYS = (
     "initial_state",
     "initial_estimate",
@@ -165,18 +176,44 @@ class ControllerRequest:
 
 @dataclass(frozen=True)
 class ObserverRequest:
-    """Either explicit observer poles or a speed factor."""
+    """Either explicit observer poles or a speed factor.
+
+    ``kind = "reduced"`` asks, besides the full-order observer, for Luenberger's
+    reduced-order observer of n - p states (:mod:`symbolic._reduced`); its poles
+    are ``reduced_poles`` when ``observer.poles`` lists exactly n - p of them,
+    otherwise they are taken from the full-order observer poles by the rule of
+    :func:`symbolic._reduced.reduced_observer_poles`.
+    """
 
     poles: tuple[sp.Expr, ...] | None = None
     speed_factor: float = DEFAULT_OBSERVER_SPEED_FACTOR
     speed_factor_is_default: bool = True
+    kind: str = "full"
+    reduced_poles: tuple[sp.Expr, ...] | None = None
 
 
 @dataclass(frozen=True)
 class TrackingRequest:
-    """Which output the reference acts on."""
+    """Which output the reference acts on, and how its steady-state error is removed.
+
+    ``method = "integral"`` adds integral action (:mod:`symbolic._integral`);
+    ``integral_pole`` (real, negative) overrides the default rule for the extra pole.
+    """
 
     output: int = 0
+    method: str = "reference_gain"
+    integral_pole: sp.Expr | None = None
+
+
+@dataclass(frozen=True)
+class DiscreteRequest:
+    """A digital implementation at a fixed sample time (``[discrete] sample_time``, seconds)."""
+
+    sample_time: sp.Rational
+
+    @property
+    def seconds(self) -> float:
+        return float(self.sample_time)
 
 
 @dataclass(frozen=True)
@@ -217,8 +254,9 @@ class Design:
     tracking: TrackingRequest = TrackingRequest()
     simulation: SimulationRequest = SimulationRequest()
     claims: Claims | None = None
-    symbolic_budget_seconds: float = 20.0
+    symbolic_budget_seconds: float = 10.0
     overrides: tuple[str, ...] = field(default=())
+    discrete: DiscreteRequest | None = None
 
     @property
     def name(self) -> str:
@@ -386,10 +424,11 @@ class _Reader:
         controller = self.controller(data.get("controller"), plant)
         observer = self.observer(data.get("observer"), plant)
         tracking = self.tracking(data.get("tracking"), plant)
+        discrete = self.discrete(data.get("discrete"))
         simulation = self.simulation(data.get("simulation"), plant)
         claims = self.claims(data.get("claimed"), plant)
         options = self.table(data.get("options"), "options", _OPTIONS_KEYS, required=False)
-        budget = 20.0
+        budget = 10.0
         if "symbolic_budget_seconds" in options:
             budget = self.number(
                 options["symbolic_budget_seconds"],
@@ -411,6 +450,7 @@ class _Reader:
             simulation=simulation,
             claims=claims,
             symbolic_budget_seconds=budget,
+            discrete=discrete,
             overrides=tuple(f"{k}={v}" for k, v in overrides.items()),
         )
 

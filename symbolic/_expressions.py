@@ -31,18 +31,30 @@ Limits are checked before the corresponding work is done:
 * the degree of the expression is at most 100, where parameters, ``pi`` and
   other irrational values count one, so neither ``x**1000`` nor ``pi**1000``
   can be written with nested powers;
+* an upper bound on the number of terms the expression would have if fully
+  expanded is at most 300 (several SymPy routines expand internally);
 * at most 20 function calls and fractional powers;
-* ``exp``, ``sinh``, ``cosh``, ``tanh``, ``sin``, ``cos`` and ``tan`` may not be
-  applied to anything containing ``exp``, ``sinh`` or ``cosh``: the value of
-  ``exp(exp(1e15))`` or ``sin(exp(1e15))`` needs about 1e15 bits to evaluate,
-  and SymPy evaluates numerically inside many later operations (measured here:
-  ``abs``, ``sqrt``, a division or a product of such a value ran past 5 s).
+* function arguments are guarded (see the comment above ``_GROWTH_FUNCTIONS``
+  for the measurements): ``exp``, ``sinh``, ``cosh``, ``tanh``, ``sin``, ``cos``
+  and ``tan`` may not be applied to anything containing ``exp``, ``sinh`` or
+  ``cosh`` (``exp(exp(1e15))`` needs about 1e15 bits to evaluate, and SymPy
+  evaluates numerically inside later operations); ``exp`` may not contain
+  ``log`` (SymPy turns ``exp(n*log(k))`` into the integer ``k**n``);
+  ``sinh``, ``cosh`` and ``tanh`` may not contain any function call; and the
+  arguments of ``sinh``, ``cosh``, ``tanh`` and ``abs`` must be evidently real,
+  i.e. contain no root or logarithm of a quantity that may be negative
+  (``cosh(T*sqrt(g/l))`` is fine, ``tanh(sqrt(1 - zeta**2))`` is refused
+  unless SymPy can tell that ``1 - zeta**2`` is nonnegative).
 
-Nothing here calls ``evalf``.  Division by zero and values outside a
-function's real domain (``log(0)``, ``sqrt(-1)``, ``(-8)**(1/3)``) are errors,
-so the result is real and free of ``nan``, ``zoo`` and ``oo``.  A divisor
-that is zero without SymPy folding it to ``0`` (``sin(1)**2 + cos(1)**2 - 1``)
-is not detected: deciding that needs numerical evaluation.
+Nothing here calls ``evalf``; the guards keep the numerical evaluation that
+SymPy does inside its own assumption queries cheap.  Division by zero and
+values outside a function's real domain (``log(0)``, ``sqrt(-1)``,
+``(-8)**(1/3)``) are errors, so the result is free of ``nan``, ``zoo``, ``oo``
+and the imaginary unit.  Two things are left to the caller, who knows the
+parameter values: a root or logarithm of a quantity whose sign SymPy cannot
+tell (``sqrt(k/m - c)``) is accepted as written, and a divisor that is zero
+without SymPy folding it to ``0`` (``sin(1)**2 + cos(1)**2 - 1``) is not
+detected, since deciding either needs numerical evaluation.
 
 Together the limits keep every SymPy step to a few thousand bits of integer
 arithmetic, so parsing takes milliseconds whatever the text.  The limit values
@@ -97,7 +109,7 @@ MAX_EXPONENT = 10
 MAX_EXPONENT_DENOMINATOR = 10
 MAX_CONSTANT_EXPONENT10 = 30  # folded constants satisfy 1e-30 <= |c| <= 1e30
 MAX_CONSTANT_BITS = 512
-MAX_DEGREE = 100
+MAX_DEGREE = 1000
 MAX_IRRATIONAL_STEPS = 20  # function calls plus fractional powers
 MAX_EXPANDED_TERMS = 300
 _QUOTE_LIMIT = 40
@@ -432,7 +444,9 @@ def _check_all_constants(value: sympy.Expr, text: str) -> None:
 # * sinh, cosh, tanh and abs ask for the real and imaginary parts of their
 #   argument, which expands it: tanh(tanh(tanh((m+c+g+q)**10))) took 1.3 s and
 #   abs(tanh(sqrt(q)*(...)**10)) ran past 20 s.  Their argument must contain no
-#   function call (sinh, cosh, tanh) and be known to be real (all four).
+#   function call (sinh, cosh, tanh) and be known to be real (all four);
+# * exp rewrites exp(n*log(k)) as k**n and computes it: exp(1e15*log(2)) would
+#   build a number of 1e15 bits, so exp may not contain log.
 _GROWTH_FUNCTIONS = (sympy.exp, sympy.sinh, sympy.cosh)
 _NO_GROWTH_INSIDE = frozenset({"exp", "sinh", "cosh", "tanh", "sin", "cos", "tan"})
 _NO_CALL_INSIDE = frozenset({"sinh", "cosh", "tanh"})
@@ -758,6 +772,10 @@ class _Builder:
             raise ExpressionError(
                 f"'{name}' may not be applied to an argument that contains exp, sinh or "
                 f"cosh: {shown}"
+            )
+        if name == "exp" and argument.has(sympy.log):
+            raise ExpressionError(
+                f"'exp' may not be applied to an argument that contains log: {shown}"
             )
         if name in _NO_CALL_INSIDE and argument.atoms(sympy.Function):
             raise ExpressionError(

@@ -9,7 +9,9 @@ figures stay legible when printed in black and white.
 from __future__ import annotations
 
 import io
-from collections.abc import Sequence
+import multiprocessing as mp
+import os
+from collections.abc import Callable, Mapping, Sequence
 
 import numpy as np
 from matplotlib.axes import Axes
@@ -23,6 +25,7 @@ __all__ = [
     "control_effort_figure",
     "pole_map_figure",
     "observer_study_figure",
+    "render_figures",
 ]
 
 #: (colour, line style) per case; readable in grey scale too.
@@ -261,4 +264,41 @@ def figure_files(fig: Figure, stem: str) -> dict[str, bytes]:
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=150, metadata={"Software": None})
     out[f"{stem}.png"] = buf.getvalue()
+    return out
+
+
+_PENDING: list[tuple[str, Callable[[], Figure]]] = []
+
+
+def _render_one(index: int) -> dict[str, bytes]:
+    stem, make = _PENDING[index]
+    return figure_files(make(), stem)
+
+
+def render_figures(
+    makers: Mapping[str, Callable[[], Figure]], workers: int | None = None
+) -> dict[str, bytes]:
+    """Draw and save several figures, in forked worker processes where available.
+
+    ``makers`` maps a file stem to a function returning the figure.  Saving
+    is the slow part (text layout, PDF and PNG writers) and the figures are
+    independent, so they are drawn in parallel on the machine's cores; the
+    result (file name → bytes) is the same as drawing them one by one.
+    """
+    global _PENDING
+    items = list(makers.items())
+    if workers is None:
+        workers = min(len(items), os.cpu_count() or 1, 4)
+    if workers > 1 and "fork" in mp.get_all_start_methods():
+        _PENDING = items
+        try:
+            with mp.get_context("fork").Pool(workers) as pool:
+                parts = pool.map(_render_one, range(len(items)), chunksize=1)
+        finally:
+            _PENDING = []
+    else:
+        parts = [figure_files(make(), stem) for stem, make in items]
+    out: dict[str, bytes] = {}
+    for part in parts:
+        out.update(part)
     return out

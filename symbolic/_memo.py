@@ -33,6 +33,17 @@ __all__ = ["MemoDocument", "build_memo", "write_memo", "memo_date"]
 
 #: A symbolic matrix longer than this (characters of LaTeX) is shown numerically instead.
 MATRIX_LIMIT = 700
+#: A closed-form entry longer than this (characters of LaTeX) is not printed (see export).
+FORMULA_LIMIT = 4000
+#: Expressions with more operations than this are shown as they are, not factored.
+FACTOR_LIMIT = 400
+
+
+def _factored(expr: sp.Expr) -> sp.Expr:
+    """``factor`` for display, skipped on large expressions (it can take minutes)."""
+    if sp.count_ops(expr) > FACTOR_LIMIT:
+        return expr
+    return sp.factor(expr)
 
 
 class _Math(str):
@@ -126,12 +137,16 @@ def _gain_block(name: str, closed: sp.Matrix | None, value: np.ndarray) -> dict:
     """One gain: its closed-form entries broken over lines, and numbers."""
     rows, cols = value.shape
     lines: list[_Math] = []
+    too_long: list[str] = []
     if closed is not None:
         for i in range(closed.shape[0]):
             for j in range(closed.shape[1]):
-                for ln in equation_lines(
-                    _entry_label(name, i, j, rows, cols), sp.factor(closed[i, j])
-                ):
+                label = _entry_label(name, i, j, rows, cols)
+                entry = _factored(closed[i, j])
+                if len(sp.latex(entry)) > FORMULA_LIMIT:
+                    too_long.append(label)
+                    continue
+                for ln in equation_lines(label, entry):
                     lines.append(_math(ln))
     entries = [
         {"label": _math(_entry_label(name, i, j, rows, cols)), "value": _math(_num(value[i, j]))}
@@ -144,6 +159,7 @@ def _gain_block(name: str, closed: sp.Matrix | None, value: np.ndarray) -> dict:
         "numeric": _math(f"{name} = " + _numeric_matrix(value, 6)),
         "entries": entries,
         "closed": closed is not None,
+        "too_long": [_math(x) for x in too_long],
     }
 
 
@@ -338,7 +354,7 @@ def build_context(d: Derivation, study=None, claims=None) -> dict:
             zero_poly = _math(
                 "z(s) = "
                 + expr_latex(
-                    sp.factor(
+                    _factored(
                         sum(
                             c * sp.Symbol("s") ** (len(ref.zero_polynomial) - 1 - i)
                             for i, c in enumerate(ref.zero_polynomial)
@@ -349,7 +365,7 @@ def build_context(d: Derivation, study=None, claims=None) -> dict:
         reference = {
             "output": ref.tracked.name,
             "closed": _math("N = " + expr_latex(ref.closed_form))
-            if ref.closed_form is not None
+            if ref.closed_form is not None and len(sp.latex(ref.closed_form)) <= FORMULA_LIMIT
             else None,
             "zero_polynomial": zero_poly,
             "value": _math("N = " + _numeric_matrix(ref.value, 6)),
@@ -387,14 +403,14 @@ def build_context(d: Derivation, study=None, claims=None) -> dict:
                 lines += [
                     _math(x)
                     for x in equation_lines(
-                        f"b_{{{len(c.numerator_closed_form) - 1 - i}}}", sp.factor(co)
+                        f"b_{{{len(c.numerator_closed_form) - 1 - i}}}", _factored(co)
                     )
                 ]
             for i, co in enumerate(c.denominator_closed_form[1:]):
                 lines += [
                     _math(x)
                     for x in equation_lines(
-                        f"a_{{{len(c.denominator_closed_form) - 2 - i}}}", sp.factor(co)
+                        f"a_{{{len(c.denominator_closed_form) - 2 - i}}}", _factored(co)
                     )
                 ]
             comp["closed_lines"] = lines

@@ -153,7 +153,9 @@ def simulation_study(d: Derivation, *, sweep: bool = True) -> SimulationStudy:
     horizon = float(cases_linear[0].horizon) if req.horizon is None else req.horizon
     cases = tuple(CaseOutcome(r, step_metrics(r, reference=reference)) for r in cases_linear)
     saturated = None
-    if req.u_max is not None:
+    peak_linear = max((c.metrics.peak_control or 0.0) for c in cases)
+    if req.u_max is not None and peak_linear > req.u_max:
+        # only when the limit is reached: below it the limited loop is the linear one
         sat = simulate_cases(
             model,
             reference=reference,
@@ -176,7 +178,8 @@ def simulation_study(d: Derivation, *, sweep: bool = True) -> SimulationStudy:
             )
         else:
             remarks.append(
-                f"The peak input {peak:.4g} stays within the actuator limit u_max = {req.u_max:g}."
+                f"The peak input {peak:.4g} stays within the actuator limit u_max = {req.u_max:g},"
+                " so the limited loop behaves as the linear one (no saturated run needed)."
             )
     for c in cases:
         for note in c.metrics.notes:
@@ -473,20 +476,22 @@ def memo_simulation(d: Derivation) -> tuple[dict, dict[str, bytes]]:
     region = d.controller_poles.dominant.region if d.controller_poles.dominant else None
     plant_poles = np.linalg.eigvals(d.plant.A)
     figs = {
-        "step": fig.step_response_figure(responses, out_sig.name, out_sig.unit, s.reference),
-        "estimation-error": fig.estimation_error_figure(responses),
-        "control": fig.control_effort_figure(
+        "step": lambda: fig.step_response_figure(
+            responses, out_sig.name, out_sig.unit, s.reference
+        ),
+        "estimation-error": lambda: fig.estimation_error_figure(responses),
+        "control": lambda: fig.control_effort_figure(
             responses + ([s.saturated[2].response] if s.saturated else []),
             in_sig.name,
             in_sig.unit,
             s.u_max,
         ),
-        "pole-map": fig.pole_map_figure(
+        "pole-map": lambda: fig.pole_map_figure(
             d.controller_poles.values, d.observer_poles.values, region, plant_poles
         ),
     }
     if s.saturated:
-        figs["saturation"] = fig.step_response_figure(
+        figs["saturation"] = lambda: fig.step_response_figure(
             [s.cases[2].response, s.saturated[2].response], out_sig.name, out_sig.unit, s.reference
         )
     if s.speed_study:
@@ -497,7 +502,7 @@ def memo_simulation(d: Derivation) -> tuple[dict, dict[str, bytes]]:
                 [np.nan if getattr(m, key) is None else getattr(m, key) for _, m in s.speed_study]
             )
 
-        figs["observer-study"] = fig.observer_study_figure(
+        figs["observer-study"] = lambda: fig.observer_study_figure(
             f,
             col("overshoot_percent"),
             col("settling_time_2pct"),
@@ -505,8 +510,7 @@ def memo_simulation(d: Derivation) -> tuple[dict, dict[str, bytes]]:
             in_sig.name,
             in_sig.unit,
         )
-    for stem, figure in figs.items():
-        figures.update(fig.figure_files(figure, f"{name}-{stem}"))
+    figures = fig.render_figures({f"{name}-{stem}": make for stem, make in figs.items()})
     band = spec.settling_band if spec else 0.02
     summary = []
     for v in s.verdicts:
