@@ -729,33 +729,85 @@ class _Reader:
     # -- [observer] ----------------------------------------------------------
     def observer(self, data: Any, plant: Plant) -> ObserverRequest:
         data = self.table(data, "observer", _OBSERVER_KEYS, required=False)
+        kind = self.choice(data.get("kind"), "observer.kind", OBSERVER_KINDS, "full")
         if "poles" in data and "speed_factor" in data:
             self.fail("observer", "give either poles or speed_factor, not both")
         if "poles" in data:
-            poles = self.poles(data["poles"], "observer.poles")
-            if len(poles) != plant.order:
+            n, rest = plant.order, plant.order - plant.n_outputs
+            reduced = kind == "reduced"
+            poles = self.poles(data["poles"], "observer.poles", allow_empty=reduced and rest == 0)
+            if reduced and len(poles) == rest:
+                # only the reduced-order observer's poles: the full-order observer (derived
+                # for comparison) keeps the default speed-factor rule
+                return ObserverRequest(kind=kind, reduced_poles=poles)
+            if len(poles) != n:
+                expected = (
+                    f"give {n} (full-order observer; the reduced-order one takes {rest} of them)"
+                    f" or {rest} (reduced-order observer only)"
+                    if reduced
+                    else f"give exactly {n}"
+                )
                 self.fail(
                     "observer.poles",
-                    f"{len(poles)} pole(s) for a plant of order {plant.order}: give exactly {plant.order}",
+                    f"{len(poles)} pole(s) for a plant of order {n}: {expected}",
                 )
-            return ObserverRequest(poles=poles, speed_factor_is_default=False)
+            return ObserverRequest(poles=poles, speed_factor_is_default=False, kind=kind)
         if "speed_factor" in data:
             f = self.number(
                 data["speed_factor"], "observer.speed_factor", minimum=0.1, maximum=100.0
             )
-            return ObserverRequest(speed_factor=f, speed_factor_is_default=False)
-        return ObserverRequest()
+            return ObserverRequest(speed_factor=f, speed_factor_is_default=False, kind=kind)
+        return ObserverRequest(kind=kind)
+
+    def choice(self, value: Any, key: str, allowed: Sequence[str], default: str) -> str:
+        if value is None:
+            return default
+        text = self.string(value, key)
+        if text not in allowed:
+            self.fail(key, f"unknown value '{text}'" + _suggest(text, allowed))
+        return text
 
     # -- [tracking] ----------------------------------------------------------
     def tracking(self, data: Any, plant: Plant) -> TrackingRequest:
         data = self.table(data, "tracking", _TRACKING_KEYS, required=False)
-        if "output" not in data:
-            return TrackingRequest()
-        name = self.string(data["output"], "tracking.output")
-        names = [s.name for s in plant.outputs]
-        if name not in names:
-            self.fail("tracking.output", f"'{name}' is not an output" + _suggest(name, names))
-        return TrackingRequest(output=names.index(name))
+        output = 0
+        if "output" in data:
+            name = self.string(data["output"], "tracking.output")
+            names = [s.name for s in plant.outputs]
+            if name not in names:
+                self.fail("tracking.output", f"'{name}' is not an output" + _suggest(name, names))
+            output = names.index(name)
+        method = self.choice(
+            data.get("method"), "tracking.method", TRACKING_METHODS, "reference_gain"
+        )
+        pole = None
+        if "integral_pole" in data:
+            key = "tracking.integral_pole"
+            if method != "integral":
+                self.fail(key, 'only meaningful with method = "integral"')
+            value = data["integral_pole"]
+            if isinstance(value, bool) or not isinstance(value, int | float | str):
+                self.fail(key, f'expected a number or a string like "-12", got {_short(value)}')
+            try:
+                pole = parse_pole(value)
+            except ExpressionError as exc:
+                self.fail(key, str(exc))
+            if sp.im(pole) != 0:
+                self.fail(key, f"must be real (integral action adds one real pole), got {pole}")
+            if pole >= 0:
+                self.fail(key, f"must be negative for a stable loop, got {pole}")
+        return TrackingRequest(output=output, method=method, integral_pole=pole)
+
+    # -- [discrete] ----------------------------------------------------------
+    def discrete(self, data: Any) -> DiscreteRequest | None:
+        if data is None:
+            return None
+        data = self.table(data, "discrete", _DISCRETE_KEYS)
+        key = "discrete.sample_time"
+        if "sample_time" not in data:
+            self.fail(key, "missing: the [discrete] table needs sample_time (seconds)")
+        self.number(data["sample_time"], key, positive=True, maximum=1e6)
+        return DiscreteRequest(self.exact(data["sample_time"], key))
 
     # -- [simulation] --------------------------------------------------------
     def simulation(self, data: Any, plant: Plant) -> SimulationRequest:
