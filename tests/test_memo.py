@@ -256,3 +256,58 @@ def test_memo_bad_input_is_one_line(tmp_path):
     assert proc.stderr.count("\n") == 1 and "controler" in proc.stderr and "controller" in proc.stderr
     assert "Traceback" not in proc.stderr
     assert not (tmp_path / "o").exists()
+
+
+def _corpus_design(tmp_path: Path, items: list[str], index: int) -> Path:
+    def q(text: str) -> str:  # a TOML basic string; non-ASCII written as UTF-8, not \u escapes
+        return json.dumps(text, ensure_ascii=False).replace("\x7f", "\\u007f")
+
+    params = []
+    for i, text in enumerate(items):
+        params.append(f"[parameters.p{i}]\nvalue = {i + 1}\ndescription = {q(text)}\nunit = {q('u' + str(i))}\n")
+    text = (
+        f"title = {q('Corpus ' + str(index))}\n"
+        + "\n".join(params)
+        + '\n[plant]\nA = [[0, 1], [-2, -3]]\nB = [[0], [1]]\nC = [[1, 0]]\n'
+        + '[controller]\npoles = ["-4", "-5"]\n'
+    )
+    path = tmp_path / f"corpus{index}.toml"
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+def test_memo_shows_the_tex_attack_corpus_literally(tmp_path):
+    """Every string of the TeX/Markdown attack corpus (tests/test_pdf.py), as a parameter
+    description in a real memo: shown literally (or as its documented replacement), no file read,
+    nothing run."""
+    require_tex()
+    from .test_pdf import CORPUS, _comparable, _corpus
+
+    canary = tmp_path / "canary.tex"
+    token = "CANARYTOKEN" + os.urandom(6).hex().upper()
+    canary.write_text(token + "\n")
+    touch = tmp_path / "TOUCHED"
+    # a lone surrogate cannot be written in a TOML file (the loader's UTF-8 check refuses it)
+    items = [(t, e) for t, e in _corpus(canary, touch) if not any(0xD800 <= ord(c) <= 0xDFFF for c in t)]
+    assert len(items) >= 60
+    halves = [items[: len(items) // 2], items[len(items) // 2 :]]
+    cwd = os.getcwd()
+    os.chdir(tmp_path)
+    try:
+        for index, half in enumerate(halves):
+            design = symbolic.load_design(_corpus_design(tmp_path, [t for t, _ in half], index))
+            out = tmp_path / f"out{index}"
+            assert write_memo(design, out, pdf=True) == 0
+            pdf = out / f"corpus{index}.pdf"
+            text = subprocess.run(
+                ["pdftotext", "-raw", "-enc", "UTF-8", str(pdf), "-"], capture_output=True, check=True
+            ).stdout.decode("utf-8")
+            assert token not in text and token.encode() not in pdf.read_bytes()
+            flat = _comparable(text)
+            for raw, expected in half:
+                assert _comparable(expected) in flat, raw
+            md = (out / f"corpus{index}.md").read_text()
+            assert "<script>" not in md
+    finally:
+        os.chdir(cwd)
+    assert not touch.exists()
