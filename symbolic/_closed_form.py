@@ -32,6 +32,7 @@ determinant identity; e.g. T. Kailath, *Linear Systems*, Prentice Hall,
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import sympy as sp
@@ -209,7 +210,7 @@ def _factor_bounded(expr: sp.Expr) -> sp.Expr:
         return expr
 
 
-def closed_forms(
+def _closed_forms(
     A: sp.Matrix,
     B: sp.Matrix,
     C: sp.Matrix,
@@ -280,7 +281,7 @@ class SeparatedForms:
     compensator_denominator: tuple[sp.Expr, ...] | None
 
 
-def separated_forms(
+def _separated_forms(
     A: sp.Matrix,
     B: sp.Matrix,
     C: sp.Matrix,
@@ -315,3 +316,100 @@ def separated_forms(
         num = tuple(sp.factor(sp.cancel(a - b)) for a, b in zip(shifted[1:], den[1:], strict=True))
         den = tuple(sp.factor(c) for c in den)
     return SeparatedForms(M, cp, ok, num, den)
+
+
+# --------------------------------------------------------------------------
+# Functions of the parameters (sqrt, exp, sin, ...) as generators
+# --------------------------------------------------------------------------
+def _generators(*exprs) -> dict:
+    """Map every non-rational subexpression (a function call, a fractional power) to a symbol.
+
+    The closed forms are then computed over the field of rational functions in
+    the parameters *and* these generators, where every zero test is exact
+    (SymPy's catch-all ``EX`` domain is avoided: its elements break
+    DomainMatrix arithmetic).  Treating ``sqrt(g/l)`` as an independent symbol
+    is sound: Ackermann's formula and the determinant identities hold over any
+    field, so an identity proved with the generator free also holds after
+    substituting it back.
+    """
+    mapping: dict = {}
+
+    def visit(e) -> None:
+        if e.is_Atom:
+            return
+        if isinstance(e, sp.Function) or (e.is_Pow and not e.exp.is_Integer):
+            if e not in mapping:
+                mapping[e] = sp.Dummy(f"g{len(mapping)}", real=True)
+            return
+        for arg in e.args:
+            visit(arg)
+
+    for x in exprs:
+        if isinstance(x, sp.MatrixBase):
+            for entry in x:
+                visit(entry)
+        elif isinstance(x, sp.Basic):
+            visit(x)
+    return mapping
+
+
+def _substitute(obj, mapping: dict):
+    """Apply ``xreplace(mapping)`` through result dataclasses, tuples and matrices."""
+    if not mapping or obj is None or isinstance(obj, bool | int | float | str):
+        return obj
+    if dataclasses.is_dataclass(obj):
+        changes = {f.name: _substitute(getattr(obj, f.name), mapping) for f in dataclasses.fields(obj)}
+        return dataclasses.replace(obj, **changes)
+    if isinstance(obj, tuple):
+        return tuple(_substitute(x, mapping) for x in obj)
+    if isinstance(obj, sp.MatrixBase):
+        return obj.xreplace(mapping)
+    if isinstance(obj, sp.Basic):
+        return obj.xreplace(mapping)
+    return obj
+
+
+def closed_forms(
+    A: sp.Matrix,
+    B: sp.Matrix,
+    C: sp.Matrix,
+    D: sp.Matrix,
+    tracked: int,
+    controller_coeffs: tuple[sp.Expr, ...],
+    observer_coeffs: tuple[sp.Expr, ...],
+) -> ClosedForms:
+    """All closed forms of the basic design (see :func:`_closed_forms`).
+
+    Functions of the parameters are handled as independent generators and
+    substituted back in the results (:func:`_generators`).
+    """
+    forward = _generators(A, B, C, D)
+    back = {v: k for k, v in forward.items()}
+    result = _closed_forms(
+        *(M.xreplace(forward) for M in (A, B, C, D)), tracked, controller_coeffs, observer_coeffs
+    )
+    return _substitute(result, back)
+
+
+def separated_forms(
+    A: sp.Matrix,
+    B: sp.Matrix,
+    C: sp.Matrix,
+    D: sp.Matrix,
+    K: sp.Matrix,
+    L: sp.Matrix,
+    controller_coeffs: tuple[sp.Expr, ...],
+    observer_coeffs: tuple[sp.Expr, ...],
+    compensator: bool,
+) -> SeparatedForms:
+    """The separated loop and the compensator (see :func:`_separated_forms`), with functions of
+    the parameters handled as generators."""
+    forward = _generators(A, B, C, D, K, L)
+    back = {v: k for k, v in forward.items()}
+    result = _separated_forms(
+        *(M.xreplace(forward) for M in (A, B, C, D, K, L)),
+        controller_coeffs,
+        observer_coeffs,
+        compensator,
+    )
+    return _substitute(result, back)

@@ -407,3 +407,22 @@ def test_random_plants_closed_form_agrees_with_scipy(case):
     assert cost[rows, cols].max() <= max(bound, 1e-9 * np.abs(want).max())
     # and the closed form is really a formula in a: substituting back is exact
     assert d.K.closed_form.free_symbols <= {d.design.symbols["a"]}
+
+
+def test_functions_of_parameters_in_the_plant():
+    # sqrt, exp, sin, abs, tanh in the entries: handled as generators of the rational-function
+    # field, then substituted back; the closed form must equal scipy's gain at the values.
+    text = design_text(
+        [[0, 1], ["-sqrt(a)*exp(b)", "-sin(b) - a**2/3"]],
+        [[0], ["abs(cos(a)) + tanh(b)"]],
+        [[1, 0]],
+        ["-2+2j", "-2-2j"],
+        ["-10+10j", "-10-10j"],
+        params="[parameters.a]\nvalue = 1.5\n[parameters.b]\nvalue = 0.25\n",
+    )
+    d = run(text)
+    assert d.K.closed_form is not None and d.passed
+    a, b = d.design.symbols["a"], d.design.symbols["b"]
+    assert d.K.closed_form[0, 0].has(sp.exp(b)) and d.K.closed_form[0, 0].has(sp.sqrt(a))
+    Kp = place_poles(d.plant.A, d.plant.B, [-2 + 2j, -2 - 2j]).gain_matrix
+    np.testing.assert_allclose(d.K.value, Kp, rtol=1e-10)
