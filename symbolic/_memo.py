@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import os
+import re
 import sys
 import time
 from dataclasses import dataclass
@@ -29,7 +30,7 @@ from ._errors import RenderError
 from ._mathtex import equation_lines, expr_latex, matrix_latex, polynomial_latex, symbol_latex
 from ._texsafe import TrustedLatex, TrustedMarkdown, render_template
 
-__all__ = ["MemoDocument", "build_memo", "write_memo", "memo_date"]
+__all__ = ["MemoDocument", "assemble_memo", "build_memo", "write_memo", "memo_date"]
 
 #: A symbolic matrix longer than this (characters of LaTeX) is shown numerically instead.
 MATRIX_LIMIT = 700
@@ -513,6 +514,30 @@ def build_context(d: Derivation, study=None, claims=None) -> dict:
     return context
 
 
+def memo_robustness_section(d: Derivation) -> tuple[dict | None, dict[str, bytes]]:
+    """The robustness section: mismatch study, Routh-Hurwitz, sensitivities, margins.
+
+    The study itself lives in :mod:`symbolic._robust`; here its plain data is
+    marked up (formulas our own code typeset become trusted, in one place).
+    """
+    from ._robust import memo_robustness
+
+    ctx, figures = memo_robustness(d)
+    prefix = d.design.slug + "-"
+    for cap in ctx["figures"]:
+        cap["stem"] = _math(
+            cap["stem"][len(prefix) :] if cap["stem"].startswith(prefix) else cap["stem"]
+        )
+    for cond in ctx["routh_hurwitz_conditions"]:
+        cond["expression"] = _math(cond.pop("expression_latex"))
+    if ctx["routh_hurwitz_conditions"]:  # typeset below: drop the plain-text copies
+        ctx["routh_hurwitz"] = [
+            line for line in ctx["routh_hurwitz"] if not re.match(r"^\s*a\d+ > 0:", line)
+        ]
+    ctx["sensitivity_colspec"] = _math("@{}l" + "r" * (len(ctx["sensitivity_headers"]) - 1) + "@{}")
+    return ctx, figures
+
+
 # --------------------------------------------------------------------------
 # Rendering and writing
 # --------------------------------------------------------------------------
@@ -521,9 +546,11 @@ def build_memo(
     study_context: dict | None = None,
     figures: dict[str, bytes] | None = None,
     claims_context: dict | None = None,
+    robustness_context: dict | None = None,
 ) -> MemoDocument:
     """Render both memo sources from a finished derivation."""
     ctx = build_context(d, study_context, claims_context)
+    ctx["robustness"] = robustness_context
     name = d.design.slug
     # file names are our own slug (letters, digits, '-'), safe to trust in both formats
     ctx["figure_prefix"] = _math(f"figures/{name}-")
@@ -534,13 +561,10 @@ def build_memo(
     return MemoDocument(name=name, tex=tex, markdown=md, figures=dict(figures or {}))
 
 
-def write_memo(design: Design, out_dir: str | Path, pdf: bool = True) -> int:
-    """The ``gainsmith memo`` command: derive, simulate, render, compile, publish."""
-    from ._pdf import compile_pdf, find_tex_engine
-    from ._publish import publish
+def assemble_memo(design: Design) -> tuple[Derivation, MemoDocument]:
+    """Derive, simulate, study robustness and render: everything but the PDF and the files."""
     from ._simreport import memo_simulation
 
-    t0 = time.perf_counter()
     d = derive(design)
     study_ctx, figures = memo_simulation(d)
     claims_ctx = None
@@ -548,7 +572,18 @@ def write_memo(design: Design, out_dir: str | Path, pdf: bool = True) -> int:
         from ._claims import memo_claims
 
         claims_ctx = memo_claims(d, design.claims)
-    doc = build_memo(d, study_ctx, figures, claims_ctx)
+    robustness_ctx, robustness_figures = memo_robustness_section(d)
+    figures = {**figures, **robustness_figures}
+    return d, build_memo(d, study_ctx, figures, claims_ctx, robustness_ctx)
+
+
+def write_memo(design: Design, out_dir: str | Path, pdf: bool = True) -> int:
+    """The ``gainsmith memo`` command: derive, simulate, render, compile, publish."""
+    from ._pdf import compile_pdf, find_tex_engine
+    from ._publish import publish
+
+    t0 = time.perf_counter()
+    d, doc = assemble_memo(design)
     files: dict[str, bytes] = {
         f"{doc.name}.tex": doc.tex.encode("utf-8"),
         f"{doc.name}.md": doc.markdown.encode("utf-8"),

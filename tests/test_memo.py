@@ -16,9 +16,8 @@ import pytest
 import symbolic
 from symbolic import _memo
 from symbolic._derive import derive
-from symbolic._memo import build_memo, write_memo
+from symbolic._memo import assemble_memo, build_memo, write_memo
 from symbolic._report import format_number
-from symbolic._simreport import memo_simulation
 
 from .conftest import ROOT, WORKED, WORKED_FILES, require_tex
 
@@ -63,7 +62,7 @@ def test_worked_design_pdf_contains_the_gains(built_memos, path):
         assert mantissa.replace("-", "") in text.replace("−", "-"), printed
     for heading in ("Summary", "Plantmodel", "Controllabilityandobservability", "Choiceofpoles",
                     "Derivationofthegains", "Verification", "Simulatedresponse",
-                    "Assumptions,limitsandcautions", "References", "Preparedby", "Checkedby",
+                    "Robustness", "Stabilitymargins", "Assumptions,limitsandcautions", "References", "Preparedby", "Checkedby",
                     "Approvedby"):
         assert heading in text, heading
     assert design.sha256[:16] in text
@@ -192,14 +191,8 @@ def test_failed_compile_keeps_the_previous_memo(tmp_path, monkeypatch):
 def test_committed_worked_memos_are_current(path, monkeypatch):
     """Fails when worked_designs/*.md or *.tex are stale: run sh worked_designs/regenerate.sh."""
     monkeypatch.setenv("SOURCE_DATE_EPOCH", PINNED_EPOCH)
-    d = derive(symbolic.load_design(path))
-    ctx, figures = memo_simulation(d)
-    claims = None
-    if d.design.claims is not None:
-        from symbolic._claims import memo_claims
-
-        claims = memo_claims(d, d.design.claims)
-    doc = build_memo(d, ctx, figures, claims)
+    _, doc = assemble_memo(symbolic.load_design(path))
+    figures = doc.figures
     hint = "stale: run `sh worked_designs/regenerate.sh`"
     assert (WORKED / f"{path.stem}.md").read_text(encoding="utf-8") == doc.markdown, hint
     assert (WORKED / f"{path.stem}.tex").read_text(encoding="utf-8") == doc.tex, hint
@@ -281,7 +274,7 @@ def test_memo_shows_the_tex_attack_corpus_literally(tmp_path):
     description in a real memo: shown literally (or as its documented replacement), no file read,
     nothing run."""
     require_tex()
-    from .test_pdf import CORPUS, _comparable, _corpus
+    from .test_pdf import _comparable, _corpus
 
     canary = tmp_path / "canary.tex"
     token = "CANARYTOKEN" + os.urandom(6).hex().upper()
