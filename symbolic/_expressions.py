@@ -28,7 +28,7 @@ Limits are checked before the corresponding work is done:
   between 1e-30 and 1e30 in magnitude and has numerator and denominator of at
   most 512 bits; the finished expression is checked throughout the same way;
 * a number under a root or fractional power is at most 1e30 (SymPy factors it);
-* the degree of the expression is at most 100, where parameters, ``pi`` and
+* the degree of the expression is at most 30, where parameters, ``pi`` and
   other irrational values count one, so neither ``x**1000`` nor ``pi**1000``
   can be written with nested powers;
 * an upper bound on the number of terms the expression would have if fully
@@ -46,8 +46,13 @@ Limits are checked before the corresponding work is done:
   (``cosh(T*sqrt(g/l))`` is fine, ``tanh(sqrt(1 - zeta**2))`` is refused
   unless SymPy can tell that ``1 - zeta**2`` is nonnegative).
 
-Nothing here calls ``evalf``; the guards keep the numerical evaluation that
-SymPy does inside its own assumption queries cheap.  Division by zero and
+The expression is built over stand-ins for the parameters that are only known
+to be real, functions of anything but a rational number or a rational multiple
+of ``pi`` are kept unevaluated, and the caller's symbols are put in at the end
+without re-evaluation (see :func:`parse_expression`): SymPy's sign questions on
+positive parameters are what made innocent-looking text slow.  Nothing here
+calls ``evalf``; the guards keep the numerical evaluation that SymPy does inside
+its own assumption queries cheap.  Division by zero and
 values outside a function's real domain (``log(0)``, ``sqrt(-1)``,
 ``(-8)**(1/3)``) are errors, so the result is free of ``nan``, ``zoo``, ``oo``
 and the imaginary unit.  Two things are left to the caller, who knows the
@@ -56,8 +61,9 @@ tell (``sqrt(k/m - c)``) is accepted as written, and a divisor that is zero
 without SymPy folding it to ``0`` (``sin(1)**2 + cos(1)**2 - 1``) is not
 detected, since deciding either needs numerical evaluation.
 
-Together the limits keep every SymPy step to a few thousand bits of integer
-arithmetic, so parsing takes milliseconds whatever the text.  The limit values
+Together these keep every SymPy step small: typical entries take 1 to 5 ms,
+and the slowest of 18 000 random grammar-shaped expressions took 0.1 s of CPU
+time here (after SymPy's one-time lazy imports on the first call).  The limit values
 are engineering judgement (common practice, no source), except the 15
 significant digits (see :func:`parse_number`).
 """
@@ -109,7 +115,7 @@ MAX_EXPONENT = 10
 MAX_EXPONENT_DENOMINATOR = 10
 MAX_CONSTANT_EXPONENT10 = 30  # folded constants satisfy 1e-30 <= |c| <= 1e30
 MAX_CONSTANT_BITS = 512
-MAX_DEGREE = 1000
+MAX_DEGREE = 30
 MAX_IRRATIONAL_STEPS = 20  # function calls plus fractional powers
 MAX_EXPANDED_TERMS = 300
 _QUOTE_LIMIT = 40
@@ -435,7 +441,11 @@ def _check_all_constants(value: sympy.Expr, text: str) -> None:
             raise ExpressionError(f"a constant in the expression {problem}: {_quote(text)}")
 
 
-# Guards on function arguments, each measured here with SymPy 1.14:
+# Guards on function arguments, each measured here with SymPy 1.14 while
+# functions were still evaluated on construction.  Functions of non-numeric
+# arguments are now kept unevaluated, but a later step that asks SymPy about
+# such a value (is it real, finite, zero?) would pay the same price, so the
+# guards stay:
 # * exp, sinh and cosh grow so fast that exp(exp(1e15)) or sin(exp(1e15)) needs
 #   about 1e15 bits to evaluate, and SymPy evaluates numerically inside many
 #   later operations (abs, sqrt, a division or a product of such a value each
@@ -451,6 +461,115 @@ _GROWTH_FUNCTIONS = (sympy.exp, sympy.sinh, sympy.cosh)
 _NO_GROWTH_INSIDE = frozenset({"exp", "sinh", "cosh", "tanh", "sin", "cos", "tan"})
 _NO_CALL_INSIDE = frozenset({"sinh", "cosh", "tanh"})
 _REAL_ARGUMENT = frozenset({"sinh", "cosh", "tanh", "abs"})
+
+
+# Functions that are real wherever they are finite when their argument is real.
+_REAL_FOR_REAL_ARGUMENT = (
+    sympy.exp,
+    sympy.sin,
+    sympy.cos,
+    sympy.tan,
+    sympy.atan,
+    sympy.sinh,
+    sympy.cosh,
+    sympy.tanh,
+    sympy.Abs,
+)
+
+
+def _is_plain_number(value: sympy.Expr) -> bool:
+    """A rational number or a rational multiple of pi."""
+    coefficient, rest = value.as_coeff_Mul()
+    return bool(coefficient.is_Rational and (rest is sympy.S.One or rest is sympy.pi))
+
+
+def _is_literal_zero(value: sympy.Expr) -> bool:
+    return bool(value.is_Number and value.is_zero)
+
+
+class _Facts:
+    """Structural sign and realness of an expression over proxies.
+
+    SymPy's own answers (``is_positive``, ``is_real``) may cost seconds (a sign
+    query on a univariate polynomial in a positive symbol isolates real roots);
+    these rules only look at the tree and at the assumptions of the caller's
+    symbols, and say "unknown" whenever a rule does not apply.
+    """
+
+    def __init__(self) -> None:
+        self.symbol_of: dict[sympy.Symbol, sympy.Symbol] = {}  # proxy -> caller's symbol
+
+    def sign(self, value: sympy.Expr) -> int | None:
+        """1 if evidently positive, -1 if evidently negative, else None."""
+        if value.is_Rational:
+            return 1 if value.p > 0 else -1 if value.p < 0 else None
+        if value is sympy.pi or value is sympy.E:
+            return 1
+        if value.is_Symbol:
+            symbol = self.symbol_of.get(value, value)
+            return 1 if symbol.is_positive else -1 if symbol.is_negative else None
+        if value.is_Mul:
+            product = 1
+            for factor in value.args:
+                factor_sign = self.sign(factor)
+                if factor_sign is None:
+                    return None
+                product *= factor_sign
+            return product
+        if value.is_Add:
+            signs = {self.sign(term) for term in value.args}
+            return signs.pop() if len(signs) == 1 and None not in signs else None
+        if value.is_Pow:
+            base, exponent = value.args
+            base_sign = self.sign(base)
+            if base_sign == 1 and self.real(exponent):
+                return 1
+            if base_sign == -1 and exponent.is_Integer:
+                return -1 if int(exponent) % 2 else 1
+            return None
+        if isinstance(value, sympy.exp | sympy.cosh) and self.real(value.args[0]):
+            return 1
+        if isinstance(value, sympy.sinh | sympy.tanh | sympy.atan) and self.real(value.args[0]):
+            return self.sign(value.args[0])
+        if isinstance(value, sympy.Abs) and self.sign(value.args[0]) is not None:
+            return 1
+        return None
+
+    def nonnegative(self, value: sympy.Expr) -> bool:
+        """True if the value is evidently real and at least zero."""
+        if value.is_Rational:
+            return value.p >= 0
+        if self.sign(value) == 1 or isinstance(value, sympy.Abs):
+            return self.real(value)
+        if value.is_Pow:
+            base, exponent = value.args
+            if exponent.is_Integer and int(exponent) > 0 and int(exponent) % 2 == 0:
+                return self.real(base)
+            if exponent.is_Rational and exponent.p > 0 and not exponent.is_Integer:
+                return self.nonnegative(base)
+            return False
+        if value.is_Mul or value.is_Add:
+            return all(self.nonnegative(arg) for arg in value.args)
+        return False
+
+    def real(self, value: sympy.Expr) -> bool:
+        """True if the value is evidently real (where it is finite)."""
+        if value.is_Rational or value is sympy.pi or value is sympy.E:
+            return True
+        if value.is_Symbol:
+            return bool(self.symbol_of.get(value, value).is_real)
+        if value.is_Add or value.is_Mul:
+            return all(self.real(arg) for arg in value.args)
+        if value.is_Pow:
+            base, exponent = value.args
+            if not (exponent.is_Rational and self.real(base)):
+                return False
+            return bool(exponent.is_Integer) or self.nonnegative(base)
+        if isinstance(value, sympy.log):
+            return self.sign(value.args[0]) == 1
+        if isinstance(value, _REAL_FOR_REAL_ARGUMENT):
+            return self.real(value.args[0])
+        return False
 
 
 class _Built(NamedTuple):
@@ -480,6 +599,32 @@ class _Builder:
         self.text = text
         self.symbols = symbols
         self.irrational_steps = 0
+        self.proxy_of: dict[sympy.Symbol, sympy.Symbol] = {}  # caller's symbol -> proxy
+        self.facts = _Facts()
+
+    def proxy(self, symbol: sympy.Symbol) -> sympy.Symbol:
+        """A stand-in for ``symbol`` known only to be real (see ``parse_expression``)."""
+        proxy = self.proxy_of.get(symbol)
+        if proxy is None:
+            proxy = (
+                sympy.Symbol(symbol.name, real=True)
+                if symbol.is_real
+                else sympy.Symbol(symbol.name)
+            )
+            if proxy in self.facts.symbol_of and self.facts.symbol_of[proxy] != symbol:
+                # Two declared symbols share a name.
+                proxy = sympy.Dummy(symbol.name, real=bool(symbol.is_real))
+            self.proxy_of[symbol] = proxy
+            self.facts.symbol_of[proxy] = symbol
+        return proxy
+
+    def substitute_symbols(self, expr: sympy.Expr) -> sympy.Expr:
+        """Put the caller's symbols in place of the proxies without re-evaluating."""
+        mapping = {proxy: symbol for symbol, proxy in self.proxy_of.items() if proxy != symbol}
+        if not mapping:
+            return expr
+        with sympy.evaluate(False):
+            return expr.xreplace(mapping)
 
     def segment(self, node: ast.AST) -> str:
         # The text is one line of ASCII, so column offsets are character offsets.
@@ -571,7 +716,7 @@ class _Builder:
             raise _SymbolsMappingError(
                 f"symbols[{name!r}] must be a sympy.Symbol, got {_type_name(symbol)}"
             )
-        return _Built(symbol, 1, 1)
+        return _Built(self.proxy(symbol), 1, 1)
 
     def _undeclared(self, name: str) -> str:
         message = f"undeclared name {_quote(name)}"
@@ -582,7 +727,7 @@ class _Builder:
         if not declared:
             return f"{message}; no parameters are declared"
         shown = ", ".join(declared[:10]) + (", ..." if len(declared) > 10 else "")
-        return f"{message}; declared parameters: {shown}"
+        return f"{message}; declared parameters: {_quote(shown, 100)[1:-1]}"
 
     # -- operators ------------------------------------------------------------
     def _unary(self, node: ast.UnaryOp) -> _Built:
@@ -618,11 +763,16 @@ class _Builder:
             elif isinstance(op, ast.Sub):
                 result = left.expr - right.expr
             elif isinstance(op, ast.Mult):
-                result = left.expr * right.expr
+                if _is_literal_zero(left.expr) or _is_literal_zero(right.expr):
+                    # 0*f is 0 here; SymPy would ask whether f is finite, which for
+                    # tanh(...) expands its argument.
+                    result = sympy.Integer(0)
+                else:
+                    result = left.expr * right.expr
             else:
                 # Only an explicit number is tested for zero: asking SymPy whether a
                 # numeric expression is zero may evaluate it numerically.
-                if right.expr.is_Number and right.expr.is_zero:
+                if _is_literal_zero(right.expr):
                     raise ExpressionError(f"division by zero: {_quote(self.segment(right_node))}")
                 result = left.expr / right.expr
             left = self.finish(result, degree, terms)
@@ -631,7 +781,7 @@ class _Builder:
     def _power(self, node: ast.BinOp) -> _Built:
         exponent = self._exponent(node.right)
         base = self.build(node.left)
-        if base.expr.is_Number and base.expr.is_zero and exponent.is_negative:
+        if _is_literal_zero(base.expr) and exponent.is_negative:
             raise ExpressionError(
                 f"division by zero (zero to a negative power): {_quote(self.segment(node))}"
             )
@@ -654,6 +804,11 @@ class _Builder:
         else:
             self.count_irrational_step(node)
             self._check_root_base(base.expr, node)
+            if self.facts.sign(base.expr) == -1:
+                raise ExpressionError(
+                    f"{_quote(self.segment(node))} is not real (a negative quantity to a "
+                    "fractional power)"
+                )
         result = base.expr**exponent
         if result.has(*_UNDEFINED):
             raise ExpressionError(f"{_quote(self.segment(node))} is undefined")
@@ -754,7 +909,18 @@ class _Builder:
         self.count_irrational_step(node)
         argument = self.build(node.args[0])
         self._check_argument(func.id, argument.expr, node)
-        result = function(argument.expr)
+        if func.id == "sqrt" or _is_plain_number(argument.expr):
+            # A root is a power (kept consistent with **(1/2)); a function of a
+            # rational number or a rational multiple of pi is evaluated, so
+            # sin(pi/6) is 1/2 and log(0) and tan(pi/2) are caught.
+            result = function(argument.expr)
+        else:
+            # SymPy's automatic evaluation of a function asks questions about its
+            # argument (sign, realness, finiteness) whose answers may cost seconds
+            # for a polynomial argument (measured: abs of a degree-8 polynomial,
+            # 0.2-0.5 s) and tenths of a second for a sum of roots; the function
+            # is kept as written.
+            result = function(argument.expr, evaluate=False)
         if result.has(*_UNDEFINED):
             raise ExpressionError(
                 f"{_quote(self.segment(node))} is undefined (outside the function's domain)"
@@ -781,13 +947,15 @@ class _Builder:
             raise ExpressionError(
                 f"'{name}' may not be applied to an argument that contains a function call: {shown}"
             )
-        if name in _REAL_ARGUMENT and argument.is_extended_real is not True:
+        if name in _REAL_ARGUMENT and not self.facts.real(argument):
             raise ExpressionError(
                 f"the argument of '{name}' must be evidently real (no root or logarithm of a "
                 f"quantity that may be negative): {shown}"
             )
         if name == "sqrt":
             self._check_root_base(argument, node)
+        if name in ("sqrt", "log") and self.facts.sign(argument) == -1:
+            raise ExpressionError(f"{shown} is not real (the argument is negative)")
 
 
 def _is_real_number(value: object) -> bool:
@@ -945,8 +1113,9 @@ def parse_expression(text: str | int | float, symbols: Mapping[str, sympy.Symbol
     Returns
     -------
     sympy.Expr
-        A real expression with no ``nan``, ``zoo`` or ``oo`` in it.  Numbers are
-        exact rationals; nothing is evaluated numerically.
+        The expression as written, with no ``nan``, ``zoo``, ``oo`` or
+        imaginary unit in it.  Numbers are exact rationals; nothing is
+        evaluated numerically.
 
     Raises
     ------
@@ -965,6 +1134,20 @@ def parse_expression(text: str | int | float, symbols: Mapping[str, sympy.Symbol
     a whitelist; no Python code is evaluated.  Exponents must be numbers (see
     module notes), so ``x**y`` and ``9**9**9`` are refused.
 
+    The expression is built as written.  SymPy's automatic evaluation asks
+    sign questions that can take seconds (measured here: ``abs``, ``log``,
+    ``sin`` or ``sqrt(c*P)`` of a degree-8 polynomial ``P`` in a positive
+    symbol took 0.2 to 0.5 s, a degree-100 one 22 s), so the expression is
+    first built over stand-ins that are only known to be real, functions of
+    non-numeric arguments are not evaluated, and the caller's symbols are put
+    in at the end without re-evaluation.  Simplifications that need a
+    parameter's sign are therefore not made: with ``m`` positive,
+    ``sqrt(m**2)`` becomes ``Abs(m)`` (true for any real ``m``) but not ``m``,
+    ``abs(m)`` stays ``Abs(m)`` and ``sqrt(g/l)`` stays ``sqrt(g/l)``;
+    ``sympy.simplify`` makes them later if wanted.  Functions of rational
+    numbers and rational multiples of ``pi`` are evaluated (``sin(pi/6)`` is
+    ``1/2``); other functions are kept as written (``abs(sqrt(2) - 2)``).
+
     References
     ----------
     .. [1] Python Software Foundation, *The Python Language Reference*,
@@ -979,6 +1162,8 @@ def parse_expression(text: str | int | float, symbols: Mapping[str, sympy.Symbol
     -c/m
     >>> parse_expression("1e-3*m**(1/2)", {"m": m})
     sqrt(m)/1000
+    >>> parse_expression("sqrt(m**2) + sin(pi/6)", {"m": m})
+    Abs(m) + 1/2
     """
     if isinstance(text, bool):
         raise ExpressionError("expected a number or an expression, got a boolean")
@@ -990,7 +1175,8 @@ def parse_expression(text: str | int | float, symbols: Mapping[str, sympy.Symbol
         stripped = _check_text(text, "expression")
         body = _parse_tree(stripped, "expression")
         _check_tree_size(body, stripped, "expression")
-        result = _Builder(stripped, symbols).build(body).expr
+        builder = _Builder(stripped, symbols)
+        result = builder.build(body).expr
         _check_all_constants(result, stripped)
         if result.has(*_UNDEFINED):
             raise ExpressionError(
@@ -1000,7 +1186,7 @@ def parse_expression(text: str | int | float, symbols: Mapping[str, sympy.Symbol
             raise ExpressionError(
                 f"the expression is not real (it contains an imaginary part): {_quote(stripped)}"
             )
-        return result
+        return builder.substitute_symbols(result)
     except (ExpressionError, _SymbolsMappingError):
         raise
     except _WRAPPED_ERRORS as error:
