@@ -634,7 +634,7 @@ def routh_hurwitz_conditions(coefficients: Sequence[sp.Expr]) -> tuple[sp.Expr, 
     >>> routh_hurwitz_conditions((1, 3, 2, k))      # s(s+1)(s+2) + k
     (3, k, 6 - k)
     """
-    c = tuple(sp.sympify(x) if isinstance(x, int) else x for x in coefficients)
+    c = tuple(sp.Integer(x) if isinstance(x, int) else x for x in coefficients)
     n = len(c) - 1
     if c[0] != 1:
         raise ValueError("the characteristic polynomial must be monic")
