@@ -878,7 +878,7 @@ def _gain_entries(d: Derivation) -> list[tuple[str, sp.Expr | None, float]]:
 
 
 def _sensitivity_forms(
-    entries: list[tuple[str, sp.Expr]], symbols: list[sp.Symbol]
+    entries: list[tuple[str, sp.Expr]], symbols: list[sp.Symbol], factor: bool = True
 ) -> list[list[sp.Expr]]:
     """(p/g)·∂g/∂p for each entry and symbol, factored within FACTOR_LIMIT (runs bounded)."""
     table = []
@@ -889,7 +889,7 @@ def _sensitivity_forms(
                 row.append(sp.Integer(0))
                 continue
             expr = p * sp.diff(g, p) / g
-            row.append(_factored(expr))
+            row.append(_factored(expr) if factor else expr)
         table.append(row)
     return table
 
@@ -912,7 +912,9 @@ def _numeric_gains(d: Derivation, values: np.ndarray) -> np.ndarray:
     return np.concatenate(parts)
 
 
-def gain_sensitivities(d: Derivation, *, budget: float | None = None) -> SensitivityTable:
+def gain_sensitivities(
+    d: Derivation, *, budget: float | None = None, factor: bool = True
+) -> SensitivityTable:
     """Normalised sensitivities (p/g)·∂g/∂p of every gain entry at the nominal values.
 
     Closed form by differentiating the closed-form gains (``sympy.diff``),
@@ -939,7 +941,7 @@ def gain_sensitivities(d: Derivation, *, budget: float | None = None) -> Sensiti
         try:
             forms = run_bounded(
                 _sensitivity_forms,
-                ([(lab, g) for lab, g, _v in entries], symbols),
+                ([(lab, g) for lab, g, _v in entries], symbols, factor),
                 seconds=None if seconds <= 0 else seconds,
                 what="the closed-form sensitivities",
             )
@@ -1032,9 +1034,12 @@ CAUTION = (
 
 
 def robustness_study(
-    d: Derivation, points: int = 5, *, budget: float | None = None
+    d: Derivation, points: int = 5, *, budget: float | None = None, factor: bool = True
 ) -> RobustnessReport:
-    """Mismatch study, Routh–Hurwitz conditions, sensitivities and margins of a derivation."""
+    """Mismatch study, Routh–Hurwitz conditions, sensitivities and margins of a derivation.
+
+    ``factor=False`` skips factoring the sensitivity formulas (their values are unchanged).
+    """
     import time
 
     timings = {}
@@ -1045,7 +1050,7 @@ def robustness_study(
     stability = state_feedback_stability(d, study)
     timings["routh_hurwitz"] = time.perf_counter() - t
     t = time.perf_counter()
-    sens = gain_sensitivities(d, budget=budget)
+    sens = gain_sensitivities(d, budget=budget, factor=factor)
     timings["sensitivities"] = time.perf_counter() - t
     t = time.perf_counter()
     notes: list[str] = list(sens.notes)
@@ -1378,18 +1383,19 @@ def memo_robustness(
     from . import _figures
     from . import _robust_figures as rf
 
-    r = robustness_study(d, points, budget=budget)
+    # the memo shows the sensitivities as numbers: skip factoring their formulas
+    r = robustness_study(d, points, budget=budget, factor=False)
     m = r.mismatch
     name = d.design.slug
-    figures: dict[str, bytes] = {}
+    makers = {
+        f"{name}-mismatch-poles": lambda: rf.mismatch_pole_figure(
+            m.poles[:-1] if m.grid.varied else m.poles,
+            m.stable[:-1] if m.grid.varied else m.stable,
+            d.controller_poles.values,
+            d.observer_poles.values,
+        )
+    }
     captions = []
-    fig = rf.mismatch_pole_figure(
-        m.poles[:-1] if m.grid.varied else m.poles,
-        m.stable[:-1] if m.grid.varied else m.stable,
-        d.controller_poles.values,
-        d.observer_poles.values,
-    )
-    figures.update(_figures.figure_files(fig, f"{name}-mismatch-poles"))
     captions.append(
         {
             "stem": f"{name}-mismatch-poles",
@@ -1404,10 +1410,8 @@ def memo_robustness(
     margins_ctx = None
     if r.margins is not None:
         loops = (r.margins.state_feedback, r.margins.observer_based)
-        figures.update(
-            _figures.figure_files(rf.loop_magnitude_phase_figure(loops), f"{name}-loop-bode")
-        )
-        figures.update(_figures.figure_files(rf.loop_polar_figure(loops), f"{name}-loop-nyquist"))
+        makers[f"{name}-loop-bode"] = lambda: rf.loop_magnitude_phase_figure(loops)
+        makers[f"{name}-loop-nyquist"] = lambda: rf.loop_polar_figure(loops)
         captions.append(
             {
                 "stem": f"{name}-loop-bode",
@@ -1442,6 +1446,7 @@ def memo_robustness(
                 " verified for both loops."
             ),
         }
+    figures = _figures.render_figures(makers)  # drawn in parallel, same bytes
     conds = []
     if r.stability.conditions is not None:
         for c in r.stability.conditions:
