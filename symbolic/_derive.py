@@ -10,9 +10,12 @@ never re-derive anything.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import time
+import warnings
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 import scipy.signal
@@ -21,7 +24,7 @@ import sympy as sp
 from . import _closed_form as cf
 from ._budget import run_bounded
 from ._design import Design, Signal
-from ._errors import BudgetExceeded, DesignFileError, StructureError
+from ._errors import BudgetExceeded, DesignFileError, GainsmithWarning, StructureError
 from ._numeric import (
     eigenvalue_tolerance,
     evaluate_matrix,
@@ -32,6 +35,11 @@ from ._numeric import (
     scipy_placement,
 )
 from ._specs import DominantPair, dominant_pair, remaining_poles
+
+if TYPE_CHECKING:
+    from ._discrete import DigitalController
+    from ._integral import IntegralAction
+    from ._reduced import ReducedObserver
 
 __all__ = [
     "Check",
@@ -204,6 +212,9 @@ class Derivation:
     closed_form: bool
     plant_charpoly: tuple[sp.Expr, ...] | None
     timings: dict[str, float] = field(default_factory=dict, compare=False)
+    integral: IntegralAction | None = None  # [tracking] method = "integral"
+    reduced_observer: ReducedObserver | None = None  # [observer] kind = "reduced"
+    discrete: DigitalController | None = None  # [discrete] sample_time
 
     @property
     def passed(self) -> bool:
@@ -664,7 +675,7 @@ def derive(design: Design, *, budget: float | None = None) -> Derivation:
     if not L.unique:
         notes.append("several outputs: L is one of many gains that place these poles (not unique)")
     timings["total"] = time.perf_counter() - t0
-    return Derivation(
+    result = Derivation(
         design=design,
         plant=num,
         controller_poles=ctrl,
@@ -681,6 +692,43 @@ def derive(design: Design, *, budget: float | None = None) -> Derivation:
         closed_form=forms is not None and (m == 1 or p == 1),
         plant_charpoly=forms.plant_charpoly if forms else None,
         timings=timings,
+    )
+    return _extensions(result, budget)
+
+
+def _extensions(d: Derivation, budget: float | None) -> Derivation:
+    """Integral action, reduced-order observer and digital controller, when the design asks.
+
+    Their checks and notes join the derivation's (their warnings are carried as notes).
+    """
+    design = d.design
+    if not (
+        design.tracking.method == "integral"
+        or design.observer.kind == "reduced"
+        or design.discrete is not None
+    ):
+        return d
+    from ._discrete import digital_controller  # these modules build on a finished Derivation
+    from ._integral import integral_action
+    from ._reduced import reduced_observer
+
+    extra: dict = {}
+    t = time.perf_counter()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", GainsmithWarning)
+        if design.tracking.method == "integral":
+            extra["integral"] = integral_action(d, budget=budget)
+        if design.observer.kind == "reduced":
+            extra["reduced_observer"] = reduced_observer(d, budget=budget)
+        if design.discrete is not None:
+            extra["discrete"] = digital_controller(d, budget=budget)
+    d.timings["extensions"] = time.perf_counter() - t
+    parts = list(extra.values())
+    return dataclasses.replace(
+        d,
+        checks=d.checks + tuple(c for x in parts for c in x.checks),
+        notes=d.notes + tuple(n for x in parts for n in x.notes),
+        **extra,
     )
 
 
@@ -763,10 +811,20 @@ def _reference_gain(
     Acl = A - B @ K
     # DC gain of the closed loop from u_ff to y: (Ct − Dt K)(−Acl)⁻¹B + Dt
     try:
-        M = (Ct - Dt @ K) @ np.linalg.solve(-Acl, B) + Dt
+        X = np.linalg.solve(-Acl, B)
+        M = (Ct - Dt @ K) @ X + Dt
+        # scale of the terms that make up the DC gain: a zero at s = 0 cancels them exactly,
+        # fast poles merely make them small (a relative test, not an absolute one)
+        scale = np.linalg.norm(Ct - Dt @ K) * np.linalg.norm(X) + np.linalg.norm(Dt)
     except np.linalg.LinAlgError:
         M = np.full((1, B.shape[1]), np.nan)
-    if not np.all(np.isfinite(M)) or np.linalg.norm(M) < 1e-12 * max(1.0, np.linalg.norm(Ct)):
+        scale = 1.0
+    zero_at_origin = not np.all(np.isfinite(M)) or np.linalg.norm(M) <= 1e-10 * scale
+    if forms is not None and forms.zero_polynomial is not None:
+        z0 = forms.zero_polynomial[-1].xreplace(values)  # exact at the evaluated values
+        if z0.is_Rational:
+            zero_at_origin = z0 == 0
+    if zero_at_origin:
         notes.append(
             f"no reference gain exists for output '{signal.name}': the plant has a zero at s = 0"
             " (its steady-state gain is zero); use integral action instead"

@@ -21,8 +21,9 @@ from pathlib import Path
 from typing import Any, NoReturn
 
 import sympy as sp
+from sympy.polys.matrices import DomainMatrix
 
-from ._errors import DesignFileError, ExpressionError, SpecificationError
+from ._errors import DesignFileError, ExpressionError, SpecificationError, StructureError
 from ._expressions import check_name, parse_expression, parse_number, parse_pole
 from ._specs import Specifications
 
@@ -730,6 +731,18 @@ class _Reader:
     def observer(self, data: Any, plant: Plant) -> ObserverRequest:
         data = self.table(data, "observer", _OBSERVER_KEYS, required=False)
         kind = self.choice(data.get("kind"), "observer.kind", OBSERVER_KINDS, "full")
+        if kind == "reduced":
+            # exact rank over the field of rational functions: outputs that depend on each
+            # other for every parameter value (a repeated or combined row)
+            rank = DomainMatrix.from_Matrix(sp.Matrix(plant.C)).to_field().rank()
+            if rank < plant.n_outputs:
+                self.fail(
+                    "plant.C",
+                    f"has rank {rank} of {plant.n_outputs} for every parameter value: a"
+                    " reduced-order observer needs independent outputs (remove the dependent"
+                    ' row, or use observer.kind = "full")',
+                    StructureError,
+                )
         if "poles" in data and "speed_factor" in data:
             self.fail("observer", "give either poles or speed_factor, not both")
         if "poles" in data:

@@ -65,7 +65,7 @@ def derivation_json(d: Derivation) -> dict[str, Any]:
             conditions.append(
                 f"{rep.kind}: numeric rank {rep.numeric_rank} of {rep.order} at the evaluated values"
             )
-    return {
+    out: dict[str, Any] = {
         "title": d.design.title,
         "design_file": d.design.path,
         "sha256": d.design.sha256,
@@ -120,6 +120,86 @@ def derivation_json(d: Derivation) -> dict[str, Any]:
         "passed": d.passed,
         "notes": list(d.notes),
     }
+    out.update(_extensions_json(d))
+    return out
+
+
+def _extensions_json(d: Derivation) -> dict[str, Any]:
+    """Keys present only when the design asks for integral action, a reduced-order observer
+    or a digital controller."""
+    out: dict[str, Any] = {}
+    ia = d.integral
+    if ia is not None:
+        out["integral_gain"] = _matrix(ia.integral_gain)
+        out["K_augmented"] = _matrix(ia.K_augmented)
+        out["integral"] = {
+            "K": _matrix(ia.K),
+            "integral_pole": complex_pairs([complex(ia.integral_pole)])[0],
+            "poles": complex_pairs(ia.pole_values),
+            "pole_rule": ia.pole_rule,
+            "sign_convention": ia.sign_convention,
+            "method": ia.method,
+            "formulas": {
+                "K_augmented": _formula_matrix(ia.closed_form),
+                "A_augmented": _formula_matrix(ia.A_augmented_closed_form),
+                "B_augmented": _formula_matrix(ia.B_augmented_closed_form),
+                "augmented_controllability_determinant": None
+                if ia.controllability_determinant is None
+                else str(ia.controllability_determinant),
+                "zero_at_origin": None if ia.zero_at_origin is None else str(ia.zero_at_origin),
+            },
+            "conditions": list(ia.conditions),
+        }
+    ro = d.reduced_observer
+    if ro is not None:
+        F, G, H, J = ro.compensator
+        out["reduced_observer"] = {
+            "order": ro.order,
+            "measured": ro.measured,
+            "T": _matrix(ro.T),
+            "Ke": _matrix(ro.Ke) if ro.Ke.size else [],
+            "poles": complex_pairs(ro.pole_values),
+            "pole_rule": ro.pole_rule,
+            "A_hat": _matrix(ro.observer_matrix) if ro.order else [],
+            "B_hat": _matrix(ro.output_input) if ro.order else [],
+            "F_hat": _matrix(ro.control_input) if ro.order else [],
+            "compensator": {
+                "state": _matrix(F) if ro.order else [],
+                "measurement": _matrix(G) if ro.order else [],
+                "output_state": _matrix(H) if ro.order else [],
+                "output_measurement": _matrix(J),
+            },
+            "closed_loop_poles": complex_pairs(
+                sorted(ro.closed_loop_poles, key=lambda z: (z.real, z.imag))
+            ),
+            "method": ro.method,
+            "formulas": {"Ke": _formula_matrix(ro.Ke_closed_form)},
+        }
+    dc = d.discrete
+    if dc is not None:
+        out["discrete"] = {
+            "sample_time": dc.sample_time,
+            "Phi": _matrix(dc.Phi),
+            "Gamma": _matrix(dc.Gamma),
+            "K": _matrix(dc.K),
+            "L": _matrix(dc.L_predictor),
+            "L_current": _matrix(dc.L_current),
+            "reference_gain": None if dc.reference_gain is None else _matrix(dc.reference_gain),
+            "poles": complex_pairs(dc.poles_z),
+            "controller_poles": complex_pairs(dc.controller_poles_z),
+            "observer_poles": complex_pairs(dc.observer_poles_z),
+            "bandwidth": None if dc.bandwidth is None else _finite(dc.bandwidth),
+            "sampling_ratio": None if dc.sampling_ratio is None else _finite(dc.sampling_ratio),
+            "hold_phase_lag": None if dc.hold_phase_lag is None else _finite(dc.hold_phase_lag),
+            "method": dc.method,
+            "formulas": {
+                "Phi": _formula_matrix(dc.Phi_closed_form),
+                "Gamma": _formula_matrix(dc.Gamma_closed_form),
+                "K": _formula_matrix(dc.K_closed_form),
+                "L": _formula_matrix(dc.L_closed_form),
+            },
+        }
+    return out
 
 
 def dumps(obj: Any) -> str:
@@ -215,6 +295,7 @@ def derivation_summary(d: Derivation) -> str:
             + " ".join(format_number(x) for x in c.denominator)
             + ")  [coefficients, descending powers of s]"
         )
+    _extensions_summary(d, w)
     w("")
     w("Checks")
     width = max(len(c.name) for c in d.checks)
@@ -234,3 +315,52 @@ def derivation_summary(d: Derivation) -> str:
     w("")
     w("all checks passed" if d.passed else "SOME CHECKS FAILED")
     return "\n".join(out)
+
+
+def _extensions_summary(d: Derivation, w) -> None:
+    """Short sections for integral action, the reduced-order observer and the digital loop."""
+    ia = d.integral
+    if ia is not None:
+        w("")
+        w("Integral action")
+        w(f"  {ia.sign_convention}")
+        w(f"  integral pole {_fmt_complex(complex(ia.integral_pole))}  ({ia.pole_rule})")
+        w(f"  [K, k_i] = {_fmt_matrix(ia.K_augmented)}    [{ia.method}]")
+        if ia.closed_form is not None:
+            for j in range(ia.closed_form.shape[1]):
+                label = "k_i" if j == ia.closed_form.shape[1] - 1 else f"K[0][{j}]"
+                w(f"    {label} = {ia.closed_form[0, j]}")
+        if ia.controllability_determinant is not None:
+            w(f"  det of the augmented controllability matrix = {ia.controllability_determinant}")
+        if ia.conditions:
+            w("    integral action impossible if " + " or ".join(ia.conditions))
+    ro = d.reduced_observer
+    if ro is not None:
+        w("")
+        w("Reduced-order observer")
+        w(f"  order n − p = {ro.order}; closed loop of order {2 * ro.T.shape[0] - ro.measured}")
+        if ro.order:
+            w("  poles: " + ", ".join(_fmt_complex(z) for z in ro.pole_values))
+            w(f"    ({ro.pole_rule})")
+            w(f"  Ke = {_fmt_matrix(ro.Ke)}    [{ro.method}]")
+            if ro.Ke_closed_form is not None:
+                for i in range(ro.Ke_closed_form.shape[0]):
+                    w(f"    Ke[{i}][0] = {ro.Ke_closed_form[i, 0]}")
+            w("  η' = Â η + B̂ ȳ + F̂ u,  x̂ = T⁻¹ (Ĉ η + D̂ ȳ),  Â = A_bb − Ke A_ab")
+    dc = d.discrete
+    if dc is not None:
+        w("")
+        w(f"Digital controller (sample time {format_number(dc.sample_time)} s)")
+        w(f"  {dc.method}")
+        w(f"  K = {_fmt_matrix(dc.K)}")
+        w(f"  L (predictor) = {_fmt_matrix(dc.L_predictor.T)}ᵀ")
+        w(f"  L (current estimator) = {_fmt_matrix(dc.L_current.T)}ᵀ")
+        if dc.reference_gain is not None:
+            w(f"  reference gain N = {_fmt_matrix(dc.reference_gain)}")
+        w("  z-plane poles: " + ", ".join(_fmt_complex(z) for z in dc.poles_z))
+        if dc.bandwidth is not None:
+            w(
+                f"  closed-loop bandwidth {format_number(dc.bandwidth, 4)} rad/s; sampling at"
+                f" {format_number(dc.sampling_ratio, 3)} times it; hold lag"
+                f" {format_number(math.degrees(dc.hold_phase_lag), 3)}° at the bandwidth"
+            )

@@ -1,0 +1,1269 @@
+"""Digital implementation: zero-order-hold model, gains in z, sample-rate guidance, C99 code.
+
+A computer samples y every T seconds and holds u constant between samples (zero-order hold,
+ZOH).  At the sample instants the plant is then exactly
+
+.. math::  x[k+1] = \\Phi x[k] + \\Gamma u[k],\\qquad y[k] = C x[k] + D u[k],\\qquad
+           \\Phi = e^{AT},\\quad \\Gamma = \\int_0^T e^{A\\tau}\\,d\\tau\\, B,
+
+both read from one exponential, ``expm([[A, B], [0, 0]] T) = [[Φ, Γ], [0, I]]`` (Van Loan [3]).
+A continuous pole s maps to ``z = e^{sT}`` [1].  The discrete gains place these z-poles:
+``K`` by Ackermann's formula on ``(Φ, Γ)`` and the predictor observer gain ``L_p`` on the dual
+pair ``(Φᵀ, Cᵀ)`` [4]; the current-estimator gain is ``L_c = Φ⁻¹ L_p`` [1].  Two observer forms
+are offered (Franklin, Powell and Workman [1] Sec. 8.2):
+
+* predictor: ``x̂[k+1] = Φ x̂[k] + Γ u[k] + L_p (y[k] - C x̂[k] - D u[k])``,
+  ``u[k] = -K x̂[k] + N r[k]`` (one sample of computation time is available);
+* current estimator: ``x̂[k] = x̄[k] + L_c (y[k] - C x̄[k] - D u[k])``,
+  ``x̄[k+1] = Φ x̂[k] + Γ u[k]``, ``u[k] = -K x̂[k] + N r[k]`` (uses the newest sample;
+  the computation must be short compared with T).
+
+The reference gain gives unit DC gain in discrete time:
+``N = 1 / ((C_t - D_t K)(I - Φ + Γ K)⁻¹ Γ + D_t)``.
+
+Caution: a digital controller for a machine that moves, heats or flies must also handle what
+this model leaves out: the computation delay, quantisation of the converters, actuator
+limits, and a sensor or computer fault.  Run the generated code on the target against the
+Python simulation first, then on the machine with reduced limits and an independent stop.
+
+References
+----------
+.. [1] G. F. Franklin, J. D. Powell and M. L. Workman, *Digital Control of Dynamic Systems*,
+   3rd ed., Addison-Wesley, 1998: Sec. 4.3 (ZOH equivalent, discrete state equations),
+   Sec. 8.2 (prediction and current estimators), Ch. 11 (sample-rate selection) -- section
+   numbers from memory.
+.. [2] K. Ogata, *Discrete-Time Control Systems*, 2nd ed., Prentice Hall, 1995, Sec. 5-5
+   (discretisation of continuous-time state-space equations) -- from memory.
+.. [3] C. F. Van Loan, "Computing integrals involving the matrix exponential", *IEEE
+   Transactions on Automatic Control* 23(3):395-404, 1978. doi:10.1109/TAC.1978.1101743
+.. [4] J. Ackermann, "Der Entwurf linearer Regelungssysteme im Zustandsraum",
+   *Regelungstechnik* 20(7):297-300, 1972.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+import time
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.linalg
+import scipy.optimize
+import scipy.signal
+import sympy as sp
+
+from . import _closed_form as cf
+from ._budget import run_bounded
+from ._derive import Check, Derivation
+from ._errors import BudgetExceeded, GainsmithWarning, RenderError, StructureError
+from ._numeric import (
+    eigenvalue_tolerance,
+    evaluate_matrix,
+    numeric_ackermann,
+    pole_residual,
+    relative_difference,
+    scipy_placement,
+)
+
+__all__ = [
+    "CLOSED_FORM_SECONDS",
+    "NEAR_UNIT_CIRCLE",
+    "OBSERVER_FORMS",
+    "SAMPLE_RATE_RANGE",
+    "ControllerRunner",
+    "DifferenceEquations",
+    "DigitalController",
+    "SampledDataStudy",
+    "ackermann_in_z",
+    "c_controller_files",
+    "closed_loop_bandwidth",
+    "digital_controller",
+    "discrete_feedback_gain",
+    "discrete_coefficients",
+    "numeric_zero_order_hold",
+    "sampled_data_study",
+    "zero_order_hold",
+]
+
+#: Sampling frequency over closed-loop bandwidth, ω_s/ω_bw, outside which a note is given.
+#: Rule of thumb (common practice, no source); Franklin, Powell and Workman [1] Ch. 11 discuss
+#: ratios of about 20 to 40 for a smooth response (from memory).
+SAMPLE_RATE_RANGE = (10.0, 30.0)
+
+#: A mapped pole with |z| above this sits within 1 % of the unit circle: a note is given.
+NEAR_UNIT_CIRCLE = 0.99
+
+#: Wall-clock seconds for the symbolic matrix exponential and the gains in z; the exponential
+#: of a symbolic matrix needs its eigenvalues and can run for minutes, so it is always bounded.
+CLOSED_FORM_SECONDS = 5.0
+
+#: The two observer forms of the digital controller.
+OBSERVER_FORMS = ("current", "predictor")
+
+GAIN_TOLERANCE = 1e-8
+DISCRETISATION_TOLERANCE = 1e-9
+#: Entries of the closed-form Φ, Γ with more operations than this are left unsimplified.
+SIMPLIFY_LIMIT = 60
+#: The gains in z are derived in closed form only when Φ and Γ together have at most this many
+#: operations (a damped oscillator's Φ has about 250, and its K in z runs for minutes to
+#: 20 000 operations).
+GAIN_CLOSED_FORM_LIMIT = 120
+
+z = sp.Symbol("z")
+
+
+# --------------------------------------------------------------------------------------------
+# Results
+# --------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class DifferenceEquations:
+    """The digital controller as difference equations, ready to implement.
+
+    ``u[k] = C_c ξ[k] + D_cy y[k] + D_cr r[k]`` (then limited to ``|u| <= u_max`` if there is a
+    limit), ``ξ[k+1] = A_o ξ[k] + B_oy y[k] + B_ou u[k]`` with the *applied* u.  The state ξ is
+    the estimate ``x̂`` (predictor) or the prediction ``x̄`` (current estimator).
+    """
+
+    form: str
+    state_matrix: np.ndarray  # A_o
+    measurement_matrix: np.ndarray  # B_oy
+    control_matrix: np.ndarray  # B_ou
+    output_state: np.ndarray  # C_c
+    output_measurement: np.ndarray  # D_cy
+    output_reference: np.ndarray  # D_cr
+    sample_time: float
+    description: str
+
+
+@dataclass(frozen=True)
+class DigitalController:
+    """The sampled-data design at one sample time, checked.
+
+    Attributes
+    ----------
+    sample_time : float
+    sample_time_exact : sympy.Rational
+    Phi, Gamma : ndarray
+        ZOH model at the evaluated values.
+    Phi_closed_form, Gamma_closed_form : sympy.Matrix or None
+        In the parameters (None past :data:`CLOSED_FORM_SECONDS`).
+    controller_poles_z, observer_poles_z : ndarray
+        ``e^{sT}`` of the continuous controller and observer poles.
+    K : ndarray
+    K_closed_form : sympy.Matrix or None
+    L_predictor, L_current : ndarray
+    L_closed_form : sympy.Matrix or None
+        Predictor gain in the parameters.
+    reference_gain : ndarray or None
+    bandwidth : float or None
+        −3 dB bandwidth of the continuous closed loop from r to the tracked output (rad/s).
+    sampling_ratio : float or None
+        ω_s/ω_bw with ω_s = 2π/T.
+    hold_phase_lag : float or None
+        Phase lag of the hold at the bandwidth, ω_bw T/2 (rad).
+    equations : dict of str to DifferenceEquations
+        Both observer forms ("current", "predictor").
+    method : str
+    checks, notes : tuple
+    """
+
+    sample_time: float
+    sample_time_exact: sp.Rational
+    Phi: np.ndarray
+    Gamma: np.ndarray
+    Phi_closed_form: sp.Matrix | None
+    Gamma_closed_form: sp.Matrix | None
+    controller_poles_z: np.ndarray
+    observer_poles_z: np.ndarray
+    K: np.ndarray
+    K_closed_form: sp.Matrix | None
+    L_predictor: np.ndarray
+    L_current: np.ndarray
+    L_closed_form: sp.Matrix | None
+    reference_gain: np.ndarray | None
+    tracked_index: int
+    bandwidth: float | None
+    sampling_ratio: float | None
+    hold_phase_lag: float | None
+    equations: dict[str, DifferenceEquations]
+    method: str
+    checks: tuple[Check, ...]
+    notes: tuple[str, ...]
+
+    @property
+    def poles_z(self) -> np.ndarray:
+        """Closed-loop z-plane poles: controller then observer."""
+        return np.concatenate([self.controller_poles_z, self.observer_poles_z])
+
+
+@dataclass(frozen=True)
+class SampledDataStudy:
+    """The digital controller on the continuous plant, against the continuous design."""
+
+    form: str
+    time: np.ndarray  # fine grid, ``substeps`` points per sample
+    tracked_output: np.ndarray
+    control: np.ndarray  # (N, m), piecewise constant
+    sample_times: np.ndarray
+    sampled_output: np.ndarray  # (K, p) y[k] as the controller saw it
+    controls: np.ndarray  # (K, m) u[k]
+    continuous_time: np.ndarray
+    continuous_output: np.ndarray
+    metrics: object  # StepMetrics of the sampled-data loop
+    continuous_metrics: object  # StepMetrics of the continuous design
+    closed_loop_poles: np.ndarray  # of the sampled loop (plant + controller), z-plane
+    final_value: float | None
+    substeps: int
+    notes: tuple[str, ...]
+
+    def comparison(self) -> list[tuple[str, float | None, float | None]]:
+        """(figure, continuous, sampled) rows for the memo."""
+        rows = []
+        for key, label in (
+            ("overshoot_percent", "overshoot [%]"),
+            ("rise_time", "rise time 10-90 % [s]"),
+            ("settling_time_2pct", "settling time 2 % [s]"),
+            ("peak_control", "peak input"),
+            ("steady_state_error", "steady-state error"),
+        ):
+            rows.append((label, getattr(self.continuous_metrics, key), getattr(self.metrics, key)))
+        return rows
+
+
+# --------------------------------------------------------------------------------------------
+# Formulas
+# --------------------------------------------------------------------------------------------
+def zero_order_hold(A, B, T) -> tuple[sp.Matrix, sp.Matrix]:
+    """ZOH equivalent in closed form: ``Φ = e^{AT}``, ``Γ = ∫₀ᵀ e^{Aτ} dτ B``.
+
+    Parameters
+    ----------
+    A, B : sympy.Matrix
+        May contain parameters.
+    T : sympy.Expr
+        The sample time, a positive number or symbol.
+
+    Returns
+    -------
+    (Phi, Gamma) : sympy.Matrix
+        From ``exp([[A, B], [0, 0]] T)`` (Van Loan [3]); entries simplified, complex
+        exponentials rewritten as sines and cosines.  Unbounded: run it under
+        :func:`symbolic._budget.run_bounded`.
+
+    References
+    ----------
+    Franklin, Powell and Workman [1] Sec. 4.3.
+
+    Examples
+    --------
+    >>> T = sp.Symbol("T", positive=True)
+    >>> zero_order_hold(sp.Matrix([[0, 1], [0, 0]]), sp.Matrix([0, 1]), T)
+    (Matrix([
+    [1, T],
+    [0, 1]]), Matrix([
+    [T**2/2],
+    [     T]]))
+    """
+    A, B = sp.Matrix(A), sp.Matrix(B)
+    n, m = A.shape[0], B.shape[1]
+    M = A.row_join(B).col_join(sp.zeros(m, n + m))
+    E = (M * T).exp()
+
+    def tidy(e: sp.Expr) -> sp.Expr:
+        if e.has(sp.I):
+            e = e.rewrite(sp.cos)
+        # simplify is cheap on the short entries of simple plants and slow (seconds) on the
+        # long ones of a damped oscillator, where it hardly shortens them
+        return sp.simplify(e) if sp.count_ops(e) <= SIMPLIFY_LIMIT else e
+
+    return E[:n, :n].applyfunc(tidy), E[:n, n:].applyfunc(tidy)
+
+
+def discrete_coefficients(poles, T) -> tuple[sp.Expr, ...]:
+    """Exact coefficients ``[1, …, a_0]`` of Π (z − e^{s_i T}), real by construction.
+
+    A conjugate pair σ ± jω gives ``z² − 2 e^{σT} cos(ωT) z + e^{2σT}``.
+
+    Examples
+    --------
+    >>> discrete_coefficients((-1 + 2*sp.I, -1 - 2*sp.I), sp.Rational(1, 10))
+    (1, -2*exp(-1/10)*cos(1/5), exp(-1/5))
+    """
+    factors = []
+    remaining = list(poles)
+    while remaining:
+        p = remaining.pop(0)
+        re_, im_ = sp.re(p), sp.im(p)
+        if im_ == 0:
+            factors.append(z - sp.exp(re_ * T))
+            continue
+        conj = sp.conjugate(p)
+        for i, q in enumerate(remaining):
+            if sp.simplify(q - conj) == 0:
+                remaining.pop(i)
+                break
+        else:
+            raise StructureError(f"pole {p} has no conjugate", key="poles")
+        w = abs(im_)
+        factors.append(z**2 - 2 * sp.exp(re_ * T) * sp.cos(w * T) * z + sp.exp(2 * re_ * T))
+    poly = sp.Poly(sp.expand(sp.Mul(*factors)), z)
+    return tuple(poly.all_coeffs())
+
+
+def _opaque(M: sp.Matrix) -> tuple[sp.Matrix, dict]:
+    """Replace functions and fractional powers by symbols so that DomainMatrix sees a field
+    of rational functions; returns the matrix and the map back."""
+    atoms = set()
+    for e in M:
+        atoms |= e.atoms(sp.Function)
+        atoms |= {a for a in e.atoms(sp.Pow) if not a.exp.is_Integer}
+    back = {}
+    forward = {}
+    for i, a in enumerate(sorted(atoms, key=sp.default_sort_key)):
+        d = sp.Symbol(f"_zoh{i}")
+        forward[a] = d
+        back[d] = a
+    return M.xreplace(forward), back
+
+
+def ackermann_in_z(Phi: sp.Matrix, Gamma: sp.Matrix, coeffs) -> sp.Matrix:
+    """``K = e_nᵀ 𝒞⁻¹ α(Φ)`` for transcendental Φ, Γ and coefficients.
+
+    :func:`symbolic._closed_form.ackermann` gives ``wᵀ = e_nᵀ 𝒞⁻¹`` over a field of rational
+    functions (exponentials replaced by symbols); ``α(Φ) = Σ a_i Φ^{n−i}`` is then summed with
+    the exact coefficients, which are not in that field.
+    """
+    n = Phi.shape[0]
+    both, back = _opaque(Phi.row_join(Gamma))
+    P, G = both[:, :n], both[:, n:]
+    steps = cf.ackermann(P, G, (1,) + (0,) * n)
+    row = steps.last_row_of_inverse
+    powers = [row]
+    for _ in range(n):
+        powers.append((powers[-1] * P).applyfunc(sp.cancel))
+    K = sp.zeros(1, n)
+    for i, c in enumerate(coeffs):
+        K += c * powers[n - i]
+    return K.xreplace(back)
+
+
+@dataclass(frozen=True)
+class _Forms:
+    Phi: sp.Matrix
+    Gamma: sp.Matrix
+    K: sp.Matrix | None
+    L: sp.Matrix | None
+
+
+def _gain_stage(Phi, Gamma, C, ctrl_coeffs, obs_coeffs) -> tuple[sp.Matrix | None, ...]:
+    K = L = None
+    if Gamma.shape[1] == 1:
+        K = ackermann_in_z(Phi, Gamma, ctrl_coeffs)
+    if C.shape[0] == 1:
+        L = ackermann_in_z(Phi.T, C.T, obs_coeffs).T
+    return K, L
+
+
+def _closed_forms(d: Derivation, T_exact, seconds: float, notes: list[str]) -> _Forms | None:
+    """Φ, Γ in closed form, then K and L_p in z, sharing one deadline."""
+    plant = d.design.plant
+    deadline = time.monotonic() + seconds
+    try:
+        Phi, Gamma = run_bounded(
+            zero_order_hold,
+            (sp.Matrix(plant.A), sp.Matrix(plant.B), T_exact),
+            seconds=seconds,
+            what="the closed-form ZOH model (SymPy matrix exponential)",
+        )
+    except BudgetExceeded as exc:
+        notes.append(
+            f"discrete: {exc}; Φ and Γ are computed with scipy.linalg.expm of the augmented"
+            " matrix [[A, B], [0, 0]]·T instead"
+        )
+        return None
+    size = sum(sp.count_ops(e) for e in Phi) + sum(sp.count_ops(e) for e in Gamma)
+    left = deadline - time.monotonic()
+    if size > GAIN_CLOSED_FORM_LIMIT or left < 0.1:
+        why = (
+            f"Φ and Γ have {size} operations (limit {GAIN_CLOSED_FORM_LIMIT})"
+            if size > GAIN_CLOSED_FORM_LIMIT
+            else "the time budget is used up"
+        )
+        notes.append(f"discrete: K and L_p are not given in closed form ({why}); numbers only")
+        return _Forms(Phi, Gamma, None, None)
+    try:
+        K, L = run_bounded(
+            _gain_stage,
+            (
+                Phi,
+                Gamma,
+                sp.Matrix(plant.C),
+                discrete_coefficients(d.controller_poles.poles, T_exact),
+                discrete_coefficients(d.observer_poles.poles, T_exact),
+            ),
+            seconds=left,
+            what="the closed-form gains in z",
+        )
+    except BudgetExceeded as exc:
+        notes.append(f"discrete: {exc}; K and L_p are given as numbers only")
+        K = L = None
+    return _Forms(Phi, Gamma, K, L)
+
+
+def numeric_zero_order_hold(
+    A: np.ndarray, B: np.ndarray, T: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """Φ and Γ from one ``scipy.linalg.expm`` of the augmented matrix (Van Loan [3])."""
+    n, m = B.shape
+    M = np.zeros((n + m, n + m))
+    M[:n, :n] = A * T
+    M[:n, n:] = B * T
+    E = scipy.linalg.expm(M)
+    return E[:n, :n], E[:n, n:]
+
+
+def discrete_feedback_gain(Phi: np.ndarray, Gamma: np.ndarray, poles_z) -> np.ndarray:
+    """Numeric K with eig(Φ − ΓK) at the given z-plane poles.
+
+    One input: Ackermann's formula in floating point [4] (repeated poles allowed); several
+    inputs: ``scipy.signal.place_poles`` (not unique), refused when it misses the poles.  The
+    observer gain is the dual: ``discrete_feedback_gain(Φᵀ, Cᵀ, poles).T``.
+
+    Raises
+    ------
+    StructureError
+        Several inputs and ``place_poles`` cannot place these poles.
+
+    Examples
+    --------
+    >>> Phi = np.array([[1.0, 0.1], [0.0, 1.0]]); Gamma = np.array([[0.005], [0.1]])
+    >>> K = discrete_feedback_gain(Phi, Gamma, [0.5, 0.6])
+    >>> np.sort(np.linalg.eigvals(Phi - Gamma @ K).real).round(12)
+    array([0.5, 0.6])
+    """
+    poles_z = np.asarray(poles_z, dtype=complex)
+    if Gamma.shape[1] == 1:
+        return numeric_ackermann(Phi, Gamma, poles_z)
+    K, how = scipy_placement(Phi, Gamma, poles_z)
+    if K is None:
+        raise StructureError(f"cannot place the discrete poles: {how}", key="discrete.sample_time")
+    return K
+
+
+def closed_loop_bandwidth(A, B, C, D, K, N, tracked: int = 0) -> float | None:
+    """−3 dB bandwidth (rad/s) of the continuous loop from r to the tracked output.
+
+    ``G(jω) = (C_t − D_t K)(jωI − A + BK)⁻¹ B N + D_t N``; the first ω where
+    ``|G(jω)| = |G(0)|/√2``, found on a logarithmic grid and refined with Brent's method.
+    None when ``G(0) = 0`` or the magnitude never falls that far.
+
+    Examples
+    --------
+    >>> round(closed_loop_bandwidth(np.array([[-1.0]]), np.array([[1.0]]), np.array([[1.0]]),
+    ...                             np.zeros((1, 1)), np.array([[1.0]]), np.array([[2.0]])), 9)
+    2.0
+    """
+    Acl = A - B @ K
+    Ct, Dt = C[tracked : tracked + 1, :], D[tracked : tracked + 1, :]
+    Cc, Bc, Dc = Ct - Dt @ K, B @ N, Dt @ N
+    n = A.shape[0]
+
+    def mag(w: float) -> float:
+        G = Cc @ np.linalg.solve(1j * w * np.eye(n) - Acl, Bc) + Dc
+        return float(np.abs(G).item())
+
+    try:
+        g0 = float(np.abs(Cc @ np.linalg.solve(-Acl, Bc) + Dc).item())
+    except np.linalg.LinAlgError:
+        return None
+    if not math.isfinite(g0) or g0 == 0:
+        return None
+    level = g0 / math.sqrt(2.0)
+    eig = np.abs(np.linalg.eigvals(Acl))
+    eig = eig[eig > 0]
+    lo = float(np.min(eig)) if eig.size else 1.0
+    hi = float(np.max(eig)) if eig.size else 1.0
+    grid = np.logspace(math.log10(lo) - 3, math.log10(hi) + 3, 3000)
+    previous = 0.0
+    for w in grid:
+        if mag(w) < level:
+            return float(
+                scipy.optimize.brentq(lambda x: mag(x) - level, previous, w, xtol=1e-14 * w)
+            )
+        previous = w
+    return None
+
+
+def _seconds(design, budget: float | None) -> float:
+    seconds = design.symbolic_budget_seconds if budget is None else budget
+    return CLOSED_FORM_SECONDS if seconds <= 0 else min(seconds, CLOSED_FORM_SECONDS)
+
+
+def _equations(form: str, Phi, Gamma, C, D, K, Lp, Lc, N, T: float) -> DifferenceEquations:
+    n, m = Gamma.shape
+    if form == "predictor":
+        # u = -K x̂ + N r;  x̂⁺ = (Φ − L_p C) x̂ + (Γ − L_p D) u + L_p y
+        return DifferenceEquations(
+            form=form,
+            state_matrix=Phi - Lp @ C,
+            measurement_matrix=Lp.copy(),
+            control_matrix=Gamma - Lp @ D,
+            output_state=-K,
+            output_measurement=np.zeros((m, C.shape[0])),
+            output_reference=N.copy(),
+            sample_time=T,
+            description=(
+                "predictor observer: u[k] = −K x̂[k] + N r[k];"
+                " x̂[k+1] = (Φ − L_p C) x̂[k] + (Γ − L_p D) u[k] + L_p y[k]"
+            ),
+        )
+    # current estimator: x̂ = (I − L_c C) x̄ + L_c y − L_c D u;  u = −K x̂ + N r
+    #   ⇒ (I − K L_c D) u = −K (I − L_c C) x̄ − K L_c y + N r
+    #   x̄⁺ = Φ x̂ + Γ u = Φ (I − L_c C) x̄ + Φ L_c y + (Γ − Φ L_c D) u
+    Mi = np.linalg.inv(np.eye(m) - K @ Lc @ D)
+    I_LC = np.eye(n) - Lc @ C
+    return DifferenceEquations(
+        form=form,
+        state_matrix=Phi @ I_LC,
+        measurement_matrix=Phi @ Lc,
+        control_matrix=Gamma - Phi @ Lc @ D,
+        output_state=-Mi @ K @ I_LC,
+        output_measurement=-Mi @ K @ Lc,
+        output_reference=Mi @ N,
+        sample_time=T,
+        description=(
+            "current estimator: x̂[k] = x̄[k] + L_c (y[k] − C x̄[k] − D u[k]);"
+            " u[k] = −K x̂[k] + N r[k]; x̄[k+1] = Φ x̂[k] + Γ u[k]"
+        ),
+    )
+
+
+def _sampled_loop(eq: DifferenceEquations, Phi, Gamma, C, D) -> tuple[np.ndarray, np.ndarray]:
+    """Plant and controller at the samples, state [x; ξ]: ``w⁺ = F w + G r``."""
+    m = Gamma.shape[1]
+    Mi = np.linalg.inv(np.eye(m) - eq.output_measurement @ D)
+    Ux = Mi @ eq.output_measurement @ C
+    Uxi = Mi @ eq.output_state
+    Ur = Mi @ eq.output_reference
+    Bxi = eq.measurement_matrix @ D + eq.control_matrix
+    F = np.block(
+        [
+            [Phi + Gamma @ Ux, Gamma @ Uxi],
+            [eq.measurement_matrix @ C + Bxi @ Ux, eq.state_matrix + Bxi @ Uxi],
+        ]
+    )
+    G = np.vstack([Gamma @ Ur, Bxi @ Ur])
+    return F, G
+
+
+# --------------------------------------------------------------------------------------------
+# The design
+# --------------------------------------------------------------------------------------------
+def digital_controller(
+    d: Derivation,
+    *,
+    sample_time=None,
+    budget: float | None = None,
+    closed_form: bool = True,
+) -> DigitalController:
+    """Discretise the plant (ZOH), place the mapped poles in z, and check everything.
+
+    Parameters
+    ----------
+    d : Derivation
+        The continuous design (its controller and observer poles are mapped by z = e^{sT}).
+    sample_time : number, optional
+        Seconds; default ``[discrete] sample_time`` of the design.
+    budget : float, optional
+        Seconds for the closed forms; never more than :data:`CLOSED_FORM_SECONDS`, and that
+        limit also applies when the design's budget is zero (the exponential of a symbolic
+        matrix may not finish).
+    closed_form : bool, optional
+        False skips the symbolic stages (numbers only, no child process).
+
+    Returns
+    -------
+    DigitalController
+
+    Raises
+    ------
+    StructureError
+        Naming ``discrete.sample_time`` when a controller or observer pole aliases,
+        ``|Im s|·T ≥ π`` (two poles would map to the same z), or the sample time is not
+        positive.
+
+    Warns
+    -----
+    GainsmithWarning
+        A mapped pole within 1 % of the unit circle; a sampling ratio ω_s/ω_bw outside
+        :data:`SAMPLE_RATE_RANGE`; a plant pole that aliases.
+
+    Notes
+    -----
+    ``Φ, Γ`` in closed form by SymPy's matrix exponential within the budget, otherwise by
+    ``scipy.linalg.expm`` of the augmented matrix (note), and always compared with
+    ``scipy.signal.cont2discrete(..., method="zoh")``.  K and ``L_p`` by Ackermann's formula in
+    z (closed form when Φ, Γ have one; floating point otherwise), compared with
+    ``scipy.signal.place_poles`` and with the eigenvalues of ``Φ − ΓK`` and ``Φ − L_p C``.
+
+    References
+    ----------
+    See the module references [1]-[4].
+
+    Examples
+    --------
+    >>> import symbolic
+    >>> design = symbolic.parse_design(b'''
+    ... [parameters.m]
+    ... value = 2.0
+    ... [plant]
+    ... A = [[0, 1], [0, 0]]
+    ... B = [[0], ["1/m"]]
+    ... C = [[1, 0]]
+    ... [controller]
+    ... poles = [-2, -3]
+    ... [discrete]
+    ... sample_time = 0.2
+    ... ''')
+    >>> dc = digital_controller(symbolic.derive(design, budget=0))
+    >>> dc.Phi_closed_form
+    Matrix([
+    [1, 1/5],
+    [0,   1]])
+    >>> dc.Gamma_closed_form.T      # [T^2/(2m), T/m]
+    Matrix([[1/(50*m), 1/(5*m)]])
+    """
+    design = d.design
+    values = design.values
+    if sample_time is None:
+        if design.discrete is None:
+            raise StructureError(
+                "no sample time: add a [discrete] table with sample_time",
+                design.path,
+                "discrete.sample_time",
+            )
+        sample_time = design.discrete.sample_time
+    T_exact = (
+        sp.Rational(sample_time)
+        if not isinstance(sample_time, float)
+        else sp.Rational(repr(sample_time))
+    )
+    T = float(T_exact)
+    if not (T > 0 and math.isfinite(T)):
+        raise StructureError(
+            f"the sample time must be positive, got {sample_time}",
+            design.path,
+            "discrete.sample_time",
+        )
+    notes: list[str] = []
+    checks: list[Check] = []
+    soft: list[str] = []
+    A, B, C, D = d.plant.A, d.plant.B, d.plant.C, d.plant.D
+    n, m = A.shape[0], B.shape[1]
+    sc, so = d.controller_poles.values, d.observer_poles.values
+
+    # ---- aliasing -----------------------------------------------------------------------
+    for label, poles in (("controller", sc), ("observer", so)):
+        worst = max(poles, key=lambda s: abs(s.imag))
+        if abs(worst.imag) * T >= math.pi:
+            raise StructureError(
+                f"the sample time {T:g} s is too long for the {label} pole"
+                f" {worst.real:.6g}{worst.imag:+.6g}j: |Im s|·T = {abs(worst.imag) * T:.4g} ≥ π,"
+                " so the pole aliases (a different pole would give the same z = e^{sT});"
+                f" choose T < π/|Im s| = {math.pi / abs(worst.imag):.4g} s, and in practice"
+                " much shorter",
+                design.path,
+                "discrete.sample_time",
+            )
+    plant_poles = np.linalg.eigvals(A)
+    if plant_poles.size and np.max(np.abs(plant_poles.imag)) * T >= math.pi:
+        soft.append(
+            f"a plant pole aliases at T = {T:g} s (|Im s|·T ≥ π): the sampled model cannot tell"
+            " that mode from a slower one; sample faster"
+        )
+
+    # ---- ZOH --------------------------------------------------------------------------------
+    zc, zo = np.exp(sc * T), np.exp(so * T)
+    forms = _closed_forms(d, T_exact, _seconds(design, budget), notes) if closed_form else None
+    Phi, Gamma = numeric_zero_order_hold(A, B, T)
+    ref = scipy.signal.cont2discrete((A, B, C, D), T, method="zoh")
+    diff = max(relative_difference(Phi, ref[0]), relative_difference(Gamma, ref[1]))
+    checks.append(
+        Check(
+            "discrete: expm of [[A, B], [0, 0]]·T vs scipy.signal.cont2discrete (zoh, relative)",
+            diff,
+            DISCRETISATION_TOLERANCE,
+            diff <= DISCRETISATION_TOLERANCE,
+        )
+    )
+    Phi_cf = Gamma_cf = K_cf = L_cf = None
+    if forms is not None:
+        P_val = evaluate_matrix(forms.Phi, values)
+        G_val = evaluate_matrix(forms.Gamma, values)
+        diff = max(relative_difference(P_val, ref[0]), relative_difference(G_val, ref[1]))
+        ok = bool(np.all(np.isfinite(P_val)) and np.all(np.isfinite(G_val))) and (
+            diff <= DISCRETISATION_TOLERANCE
+        )
+        checks.append(
+            Check(
+                "discrete: closed-form Φ, Γ vs scipy.signal.cont2discrete (zoh, relative)",
+                diff,
+                DISCRETISATION_TOLERANCE,
+                ok,
+            )
+        )
+        if ok:
+            Phi_cf, Gamma_cf = forms.Phi, forms.Gamma
+            K_cf, L_cf = forms.K, forms.L
+        else:
+            notes.append("discrete: the closed-form Φ, Γ disagree with SciPy; not used")
+
+    # ---- gains in z ---------------------------------------------------------------------------
+    def gain(name, closed, M, G, poles):
+        reference, how = scipy_placement(M, G, poles)
+        label = "K" if name == "K" else "L_pᵀ (dual pair)"
+        value = None
+        if closed is not None:
+            value = evaluate_matrix(closed if name == "K" else closed.T, values)
+            if not np.all(np.isfinite(value)):
+                value = None
+                closed = None
+        if value is None:
+            try:
+                value = discrete_feedback_gain(M, G, poles)
+            except StructureError as exc:
+                raise StructureError(
+                    f"the discrete {'controller' if name == 'K' else 'observer'}: {exc.problem}",
+                    design.path,
+                    "discrete.sample_time",
+                ) from exc
+        if G.shape[1] == 1:
+            if reference is not None:
+                diff = relative_difference(value, reference)
+                checks.append(
+                    Check(
+                        f"discrete: {label} by Ackermann in z vs scipy.signal.place_poles"
+                        " (relative)",
+                        diff,
+                        GAIN_TOLERANCE,
+                        diff <= GAIN_TOLERANCE,
+                    )
+                )
+            else:
+                checks.append(
+                    Check(f"discrete: {label} vs scipy.signal.place_poles", None, None, None, how)
+                )
+        return value, closed
+
+    K, K_cf = gain("K", K_cf, Phi, Gamma, zc)
+    Lt, L_cf = gain("L", L_cf, Phi.T, C.T, zo)
+    Lp = Lt.T
+    Lc = np.linalg.solve(Phi, Lp)
+    for label, M, poles in (("Φ − ΓK", Phi - Gamma @ K, zc), ("Φ − L_p C", Phi - Lp @ C, zo)):
+        res = pole_residual(np.linalg.eigvals(M), poles)
+        tol = eigenvalue_tolerance(poles)
+        checks.append(
+            Check(f"discrete: eigenvalues of {label} vs e^(sT) of the poles", res, tol, res <= tol)
+        )
+    res = relative_difference(Phi @ Lc, Lp)
+    checks.append(Check("discrete: Φ L_c = L_p (current-estimator gain)", res, 1e-12, res <= 1e-12))
+
+    # ---- reference gain -----------------------------------------------------------------------
+    idx = d.reference.tracked_index if d.reference is not None else design.tracking.output
+    Ct, Dt = C[idx : idx + 1, :], D[idx : idx + 1, :]
+    N = None
+    try:
+        Mdc = (Ct - Dt @ K) @ np.linalg.solve(np.eye(n) - Phi + Gamma @ K, Gamma) + Dt
+    except np.linalg.LinAlgError:
+        Mdc = np.full((1, m), np.nan)
+    if np.all(np.isfinite(Mdc)) and np.linalg.norm(Mdc) > 1e-12:
+        N = Mdc.T / (Mdc @ Mdc.T).item()
+        dc = (Mdc @ N).item()
+        checks.append(
+            Check(
+                "discrete: steady-state gain from r to the tracked output equals 1",
+                abs(dc - 1.0),
+                GAIN_TOLERANCE,
+                abs(dc - 1.0) <= GAIN_TOLERANCE,
+            )
+        )
+    else:
+        notes.append("discrete: no reference gain exists (zero DC gain); N = 0 is used")
+    Nv = N if N is not None else np.zeros((m, 1))
+
+    # ---- both observer forms, in the sampled loop -----------------------------------------
+    equations = {}
+    for form in OBSERVER_FORMS:
+        eq = _equations(form, Phi, Gamma, C, D, K, Lp, Lc, Nv, T)
+        equations[form] = eq
+        F, _G = _sampled_loop(eq, Phi, Gamma, C, D)
+        union = np.concatenate([zc, zo])
+        res = pole_residual(np.linalg.eigvals(F), union)
+        tol = eigenvalue_tolerance(union)
+        checks.append(
+            Check(
+                f"discrete: sampled loop with the {form} {'estimator' if form == 'current' else 'observer'}"
+                " has poles e^(sT) of controller ∪ observer",
+                res,
+                tol,
+                res <= tol,
+            )
+        )
+
+    # ---- guidance ------------------------------------------------------------------------------
+    for label, zs in (("controller", zc), ("observer", zo)):
+        near = zs[np.abs(zs) > NEAR_UNIT_CIRCLE]
+        if near.size:
+            soft.append(
+                f"{near.size} {label} pole(s) map within 1 % of the unit circle (|z| up to"
+                f" {np.max(np.abs(near)):.5f}): T is very short against their time constants, so"
+                " the difference-equation coefficients need many digits (fixed-point or single"
+                " precision will move these poles)"
+            )
+    bandwidth = ratio = lag = None
+    if d.reference is not None:
+        bandwidth = closed_loop_bandwidth(A, B, C, D, d.K.value, d.reference.value, idx)
+    if bandwidth is not None:
+        ratio = (2 * math.pi / T) / bandwidth
+        lag = bandwidth * T / 2
+        lo, hi = SAMPLE_RATE_RANGE
+        if ratio < lo:
+            soft.append(
+                f"sampling at {ratio:.3g} times the closed-loop bandwidth ({bandwidth:.4g} rad/s);"
+                f" rule of thumb (common practice, no source): {lo:g} to {hi:g} times. The hold"
+                f" alone lags {math.degrees(lag):.3g}° at the bandwidth: expect more overshoot"
+                " than the continuous design"
+            )
+        elif ratio > hi:
+            soft.append(
+                f"sampling at {ratio:.3g} times the closed-loop bandwidth ({bandwidth:.4g} rad/s),"
+                f" above the {lo:g} to {hi:g} times of the rule of thumb (common practice, no"
+                " source): fine for the response, but the poles crowd towards z = 1"
+            )
+    else:
+        notes.append("discrete: no closed-loop bandwidth found; no sample-rate guidance")
+    if design.tracking.method == "integral":
+        notes.append(
+            "discrete: the digital controller implements the reference-gain loop"
+            " (u = −K x̂ + N r); integral action is not discretised here"
+        )
+    if design.observer.kind == "reduced":
+        notes.append("discrete: the digital controller uses the full-order observer")
+    for text in soft:
+        warnings.warn(text, GainsmithWarning, stacklevel=2)
+    notes.extend(f"discrete: {t}" for t in soft)
+    method = (
+        (
+            "ZOH by SymPy's matrix exponential (closed form)"
+            if Phi_cf is not None
+            else "ZOH by scipy.linalg.expm of [[A, B], [0, 0]]·T"
+        )
+        + "; K "
+        + (
+            "by Ackermann's formula in z" + (" (closed form)" if K_cf is not None else "")
+            if m == 1
+            else "by scipy.signal.place_poles (several inputs: not unique)"
+        )
+        + "; L_p "
+        + (
+            "by Ackermann's formula in z on the dual pair"
+            + (" (closed form)" if L_cf is not None else "")
+            if C.shape[0] == 1
+            else "by scipy.signal.place_poles on the dual pair (several outputs: not unique)"
+        )
+    )
+    return DigitalController(
+        sample_time=T,
+        sample_time_exact=T_exact,
+        Phi=Phi,
+        Gamma=Gamma,
+        Phi_closed_form=Phi_cf,
+        Gamma_closed_form=Gamma_cf,
+        controller_poles_z=zc,
+        observer_poles_z=zo,
+        K=K,
+        K_closed_form=K_cf,
+        L_predictor=Lp,
+        L_current=Lc,
+        L_closed_form=L_cf,
+        reference_gain=N,
+        tracked_index=idx,
+        bandwidth=bandwidth,
+        sampling_ratio=ratio,
+        hold_phase_lag=lag,
+        equations=equations,
+        method=method,
+        checks=tuple(checks),
+        notes=tuple(notes),
+    )
+
+
+# --------------------------------------------------------------------------------------------
+# Running the difference equations
+# --------------------------------------------------------------------------------------------
+class ControllerRunner:
+    """The difference equations stepped one sample at a time, exactly as the C code does.
+
+    The arithmetic is done in the same order as in the generated ``step`` function (plain
+    double-precision sums, no fused operations), so the two agree to the last bit or nearly.
+
+    Examples
+    --------
+    >>> eq = DifferenceEquations("predictor", np.array([[0.5]]), np.array([[0.1]]),
+    ...                          np.array([[1.0]]), np.array([[-2.0]]), np.zeros((1, 1)),
+    ...                          np.array([[3.0]]), 0.1, "")
+    >>> runner = ControllerRunner(eq)
+    >>> runner.step([1.0], 1.0), runner.step([1.0], 1.0)
+    (array([3.]), array([-3.2]))
+    """
+
+    def __init__(self, equations: DifferenceEquations, u_max: float | None = None):
+        self.eq = equations
+        self.u_max = u_max
+        self._A = equations.state_matrix.tolist()
+        self._By = equations.measurement_matrix.tolist()
+        self._Bu = equations.control_matrix.tolist()
+        self._C = equations.output_state.tolist()
+        self._Dy = equations.output_measurement.tolist()
+        self._Dr = equations.output_reference[:, 0].tolist()
+        self.state = [0.0] * equations.state_matrix.shape[0]
+
+    def reset(self, state=None) -> None:
+        n = len(self.state)
+        self.state = [0.0] * n if state is None else [float(v) for v in state]
+
+    def step(self, y, r: float) -> np.ndarray:
+        """One sample: returns u[k] and advances the controller state."""
+        x = self.state
+        y = [float(v) for v in np.atleast_1d(y)]
+        r = float(r)
+        u = []
+        for i in range(len(self._C)):
+            acc = self._Dr[i] * r
+            for j, c in enumerate(self._C[i]):
+                acc += c * x[j]
+            for j, c in enumerate(self._Dy[i]):
+                acc += c * y[j]
+            if self.u_max is not None:
+                if acc > self.u_max:
+                    acc = self.u_max
+                elif acc < -self.u_max:
+                    acc = -self.u_max
+            u.append(acc)
+        nxt = []
+        for i in range(len(x)):
+            acc = 0.0
+            for j, c in enumerate(self._A[i]):
+                acc += c * x[j]
+            for j, c in enumerate(self._By[i]):
+                acc += c * y[j]
+            for j, c in enumerate(self._Bu[i]):
+                acc += c * u[j]
+            nxt.append(acc)
+        self.state = nxt
+        return np.array(u)
+
+
+def sampled_data_study(
+    d: Derivation,
+    digital: DigitalController | None = None,
+    *,
+    form: str = "current",
+    substeps: int = 20,
+    horizon: float | None = None,
+    u_max: float | None = None,
+) -> SampledDataStudy:
+    """Run the digital controller on the continuous plant and compare with the continuous loop.
+
+    The plant is stepped exactly between samples with the held input (matrix exponential over
+    ``T/substeps``), so the inter-sample behaviour is shown; the controller sees
+    ``y[k] = C x(kT) + D u[k]``.  Both loops start at ``[simulation] initial_state`` (default
+    zero) with a matched estimate and a step of ``[simulation] reference`` at t = 0; the
+    continuous loop is :func:`symbolic._simulate.simulate_step` with the observer.  Metrics by
+    :func:`symbolic._simulate.step_metrics` on both.
+
+    Parameters
+    ----------
+    form : {"current", "predictor"}
+    substeps : int
+        Plant steps per sample (inter-sample resolution).
+    horizon : float, optional
+        Default ``[simulation] horizon``, else the continuous study's default, at least 20 T.
+    u_max : float, optional
+        Limit applied inside the controller (default none: the linear designs are compared).
+    """
+    from ._simreport import loop_model
+    from ._simulate import Response, default_horizon, simulate_step, step_metrics
+
+    if digital is None:
+        digital = getattr(d, "discrete", None) or digital_controller(d)
+    if form not in OBSERVER_FORMS:
+        raise ValueError(f"form must be one of {OBSERVER_FORMS}, got {form!r}")
+    design = d.design
+    A, B, C, D = d.plant.A, d.plant.B, d.plant.C, d.plant.D
+    n, m, p = A.shape[0], B.shape[1], C.shape[0]
+    T = digital.sample_time
+    eq = digital.equations[form]
+    r = float(design.simulation.reference)
+    x0 = np.array(design.simulation.initial_state or [0.0] * n, dtype=float)
+    model = loop_model(d)
+    if horizon is None:
+        horizon = design.simulation.horizon or default_horizon(model)
+    count = max(20, int(math.ceil(horizon / T)))
+    count = min(count, 200_000)
+    h = T / substeps
+    Ph, Gh = numeric_zero_order_hold(A, B, h)
+
+    runner = ControllerRunner(eq, u_max=u_max)
+    runner.reset(x0)
+    Mi = np.linalg.inv(np.eye(m) - eq.output_measurement @ D)
+    x = x0.copy()
+    fine_t, fine_y, fine_u, fine_x = [], [], [], []
+    ks, ys, us = [], [], []
+    idx = digital.tracked_index
+    notes: list[str] = []
+    for k in range(count):
+        # the measurement depends on u[k] only through D (algebraic loop solved once)
+        u_guess = Mi @ (
+            eq.output_state @ np.array(runner.state)
+            + eq.output_measurement @ (C @ x)
+            + eq.output_reference[:, 0] * r
+        )
+        y = C @ x + D @ u_guess
+        u = runner.step(y, r)
+        ks.append(k * T)
+        ys.append(y)
+        us.append(u)
+        for j in range(substeps):
+            fine_t.append(k * T + j * h)
+            fine_x.append(x.copy())
+            fine_y.append(C @ x + D @ u)
+            fine_u.append(u)
+            x = Ph @ x + Gh @ u
+        if not np.all(np.abs(x) < 1e12):
+            notes.append(f"the sampled-data loop diverged at t = {(k + 1) * T:.4g}; run stopped")
+            break
+    fine_t.append(len(ks) * T)
+    fine_x.append(x.copy())
+    fine_y.append(C @ x + D @ fine_u[-1])
+    fine_u.append(fine_u[-1])
+    grid = np.array(fine_t)
+    Y = np.array(fine_y)
+    U = np.array(fine_u).reshape(len(fine_t), m)
+
+    F, G = _sampled_loop(eq, digital.Phi, digital.Gamma, C, D)
+    poles = np.linalg.eigvals(F)
+    final = None
+    if np.max(np.abs(poles)) < 1 - 1e-12 and u_max is None:
+        w = np.linalg.solve(np.eye(F.shape[0]) - F, G[:, 0] * r)
+        xs, xis = w[:n], w[n:]
+        us_ = Mi @ (
+            eq.output_state @ xis + eq.output_measurement @ (C @ xs) + eq.output_reference[:, 0] * r
+        )
+        final = float((C @ xs + D @ us_)[idx])
+    sampled = Response(
+        name=f"sampled-data loop ({form})",
+        slug=f"sampled_{form}",
+        time=grid,
+        output=Y,
+        tracked_output=Y[:, idx],
+        control=U,
+        state=np.array(fine_x),
+        estimate=None,
+        estimation_error_norm=None,
+        saturated=u_max is not None,
+        reference=r,
+        stable=bool(np.max(np.abs(poles)) < 1),
+        final_value=final,
+        horizon=float(grid[-1]),
+        method=f"exact plant stepping, {substeps} steps per sample, ZOH input",
+    )
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", GainsmithWarning)
+        cont = simulate_step(
+            model,
+            reference=r,
+            x0=x0,
+            horizon=float(grid[-1]),
+            samples=min(20001, max(2001, grid.size)),
+        )
+    return SampledDataStudy(
+        form=form,
+        time=grid,
+        tracked_output=Y[:, idx],
+        control=U,
+        sample_times=np.array(ks),
+        sampled_output=np.array(ys).reshape(len(ks), p),
+        controls=np.array(us).reshape(len(ks), m),
+        continuous_time=cont.time,
+        continuous_output=cont.tracked_output,
+        metrics=step_metrics(sampled),
+        continuous_metrics=step_metrics(cont),
+        closed_loop_poles=poles,
+        final_value=final,
+        substeps=substeps,
+        notes=tuple(notes),
+    )
+
+
+# --------------------------------------------------------------------------------------------
+# C99 export
+# --------------------------------------------------------------------------------------------
+_C_NAME = re.compile(r"[^A-Za-z0-9_]+")
+
+
+def _c_prefix(name: str) -> str:
+    text = _C_NAME.sub("_", name).strip("_").lower() or "controller"
+    if not text[0].isalpha():
+        text = "c_" + text
+    return text[:40]
+
+
+def _comment_text(text: str) -> str:
+    """Printable ASCII only, and no comment terminator."""
+    clean = "".join(ch if 32 <= ord(ch) < 127 else "?" for ch in text)
+    return clean.replace("*/", "* /").replace("/*", "/ *")
+
+
+def _c_number(x: float) -> str:
+    text = repr(float(x))
+    return text if any(ch in text for ch in ".en") else text + ".0"
+
+
+def _c_matrix(name: str, M: np.ndarray) -> str:
+    rows = ["    {" + ", ".join(_c_number(v) for v in row) + "}" for row in np.atleast_2d(M)]
+    r, c = np.atleast_2d(M).shape
+    return f"static const double {name}[{r}][{c}] = {{\n" + ",\n".join(rows) + "\n};\n"
+
+
+def c_controller_files(
+    digital: DigitalController,
+    *,
+    name: str = "controller",
+    form: str = "current",
+    u_max: float | None = None,
+    title: str = "",
+) -> dict[str, bytes]:
+    """The digital controller as C99: ``<prefix>.h`` and ``<prefix>.c``.
+
+    The code has a fixed sample time, no allocation and no library calls: a state struct,
+    ``<prefix>_reset(state)`` and ``double <prefix>_step(state, y, r)`` returning ``u[k]``
+    (``y`` is a ``double`` for one output, ``const double y[P]`` otherwise).  With ``u_max``
+    the output is limited inside ``step`` and the observer is fed the limited value.
+
+    Raises
+    ------
+    RenderError
+        Several inputs (the C interface returns one u), or an unknown form.
+    """
+    if form not in OBSERVER_FORMS:
+        raise RenderError(f"unknown observer form {form!r}; expected one of {OBSERVER_FORMS}")
+    eq = digital.equations[form]
+    n = eq.state_matrix.shape[0]
+    m = eq.output_state.shape[0]
+    p = eq.measurement_matrix.shape[1]
+    if m != 1:
+        raise RenderError("the C export handles one input; this plant has several")
+    pre = _c_prefix(name)
+    PRE = pre.upper()
+    guard = f"{PRE}_H"
+    y_param = "double y" if p == 1 else f"const double y[{PRE}_OUTPUTS]"
+    equations = (
+        "x_hat[k+1] = (Phi - Lp C) x_hat[k] + (Gamma - Lp D) u[k] + Lp y[k];"
+        "  u[k] = -K x_hat[k] + N r[k]"
+        if form == "predictor"
+        else "x_hat[k] = x_bar[k] + Lc (y[k] - C x_bar[k] - D u[k]);"
+        "  u[k] = -K x_hat[k] + N r[k];  x_bar[k+1] = Phi x_hat[k] + Gamma u[k]"
+    )
+    header = f"""/* {_comment_text(title or "gainsmith digital controller")}
+ *
+ * Generated by gainsmith.  Digital observer-based state feedback, {form} form:
+ *   {equations}
+ * implemented as the difference equations
+ *   u[k]     = Cc xi[k] + Dcy y[k] + Dcr r[k]          (limited to +/-U_MAX if defined)
+ *   xi[k+1]  = Ao xi[k] + Boy y[k] + Bou u[k]           (with the applied u)
+ * Call {pre}_step exactly once every {PRE}_SAMPLE_TIME seconds, right after sampling y,
+ * and apply the returned u through a zero-order hold until the next call.
+ *
+ * Caution: before this code drives a machine that moves, heats or flies, run it against the
+ * simulation, then on the machine with reduced limits and an independent emergency stop.
+ */
+#ifndef {guard}
+#define {guard}
+
+#define {PRE}_SAMPLE_TIME {_c_number(digital.sample_time)}
+#define {PRE}_STATES {n}
+#define {PRE}_OUTPUTS {p}
+
+typedef struct {{
+    double xi[{PRE}_STATES];
+}} {pre}_state;
+
+/* Set the controller state to zero (estimate of a plant at rest). */
+void {pre}_reset({pre}_state *state);
+
+/* One sample: measurement y[k] and reference r[k] in, u[k] out. */
+double {pre}_step({pre}_state *state, {y_param}, double r);
+
+#endif /* {guard} */
+"""
+    y_at = "y" if p == 1 else "y[j]"
+    limit = ""
+    if u_max is not None:
+        limit = (
+            f"    if (u > {_c_number(u_max)}) {{\n        u = {_c_number(u_max)};\n"
+            f"    }} else if (u < {_c_number(-u_max)}) {{\n        u = {_c_number(-u_max)};\n    }}\n"
+        )
+    loop_y_out = (
+        f"    for (j = 0; j < {PRE}_OUTPUTS; ++j) {{\n        u += Dcy[0][j] * {y_at};\n    }}\n"
+    )
+    loop_y_state = (
+        f"        for (j = 0; j < {PRE}_OUTPUTS; ++j) {{\n"
+        f"            acc += Boy[i][j] * {y_at};\n        }}\n"
+    )
+    source = f"""/* {_comment_text(title or "gainsmith digital controller")}: generated by gainsmith
+ * ({form} form, sample time {digital.sample_time!r} s).  See {pre}.h.
+ */
+#include "{pre}.h"
+
+{_c_matrix("Ao", eq.state_matrix)}
+{_c_matrix("Boy", eq.measurement_matrix)}
+{_c_matrix("Bou", eq.control_matrix)}
+{_c_matrix("Cc", eq.output_state)}
+{_c_matrix("Dcy", eq.output_measurement)}
+static const double Dcr = {_c_number(eq.output_reference[0, 0])};
+
+void {pre}_reset({pre}_state *state)
+{{
+    int i;
+    for (i = 0; i < {PRE}_STATES; ++i) {{
+        state->xi[i] = 0.0;
+    }}
+}}
+
+double {pre}_step({pre}_state *state, {y_param}, double r)
+{{
+    double next[{PRE}_STATES];
+    double u = Dcr * r;
+    double acc;
+    int i, j;
+    for (j = 0; j < {PRE}_STATES; ++j) {{
+        u += Cc[0][j] * state->xi[j];
+    }}
+{loop_y_out}{limit}    for (i = 0; i < {PRE}_STATES; ++i) {{
+        acc = 0.0;
+        for (j = 0; j < {PRE}_STATES; ++j) {{
+            acc += Ao[i][j] * state->xi[j];
+        }}
+{loop_y_state}        acc += Bou[i][0] * u;
+        next[i] = acc;
+    }}
+    for (i = 0; i < {PRE}_STATES; ++i) {{
+        state->xi[i] = next[i];
+    }}
+    return u;
+}}
+"""
+    return {f"{pre}.h": header.encode("ascii"), f"{pre}.c": source.encode("ascii")}
