@@ -514,6 +514,137 @@ def build_context(d: Derivation, study=None, claims=None) -> dict:
     return context
 
 
+def _matrix_math(name: str, closed: sp.Matrix | None, value: np.ndarray) -> _Math:
+    """``name = [closed form]`` when short, else the numbers."""
+    if closed is not None:
+        tex = matrix_latex(closed, MATRIX_LIMIT)
+        if tex is not None:
+            return _math(f"{name} = {tex}")
+    return _math(f"{name} = " + _numeric_matrix(np.atleast_2d(value), 6))
+
+
+_UNICODE_MATH = {
+    "\u0302": "_hat",  # combining circumflex: x̂ -> x_hat
+    "\u0304": "_bar",  # combining macron: ȳ -> y_bar
+    "\u0233": "y_bar",  # precomposed y with macron
+    "\u1d40": "^T",
+    "\u207b\u00b9": "^-1",
+    "\u207b": "^-",
+    "\u00b9": "1",
+    "\u2212": "-",
+}
+
+
+def _plain(text: str) -> str:
+    """Our own explanatory strings with Unicode math written in ASCII (x̂ as x_hat, ᵀ as ^T)."""
+    for k, v in _UNICODE_MATH.items():
+        text = text.replace(k, v)
+    return text
+
+
+def extended_sections(d: Derivation) -> dict:
+    """Memo context of integral action, the reduced-order observer and the digital controller.
+
+    Each entry is None unless the design asks for it; the numbers and formulas come from the
+    result objects that :func:`symbolic.derive` attached (nothing is re-derived here).
+    """
+    out: dict = {"integral": None, "reduced": None, "digital": None}
+    if d.integral is not None:
+        from ._integral import integral_study
+
+        ia = d.integral
+        study = integral_study(d, ia)
+        out["integral"] = {
+            "convention": _plain(ia.sign_convention),
+            "pole_rule": _plain(ia.pole_rule),
+            "Aa": _matrix_math("A_a", ia.A_augmented_closed_form, ia.A_augmented),
+            "Ba": _matrix_math("B_a", ia.B_augmented_closed_form, ia.B_augmented),
+            "gain": _matrix_math(r"[K,\; k_i]", ia.closed_form, ia.K_augmented),
+            "gain_value": _math(r"[K,\; k_i] = " + _numeric_matrix(ia.K_augmented, 6)),
+            "poles": _poles(np.array([complex(p) for p in ia.poles])),
+            "determinant": None
+            if ia.controllability_determinant is None
+            else _math(
+                r"\det \mathcal{C}_a = " + expr_latex(_factored(ia.controllability_determinant))
+            ),
+            "conditions": [_plain(c) for c in ia.conditions],
+            "disturbance_rule": _plain(study.disturbance_rule),
+            "mismatch_rule": _plain(study.mismatch_rule),
+            "anti_windup_rule": _plain(study.anti_windup_rule) if study.windup else None,
+            "runs": [
+                {
+                    "loop": r.loop,
+                    "plant": r.plant_description,
+                    "before": _math(
+                        "\\text{--}" if r.error_before is None else _num(r.error_before, 3)
+                    ),
+                    "after": _math(
+                        "\\text{--}" if r.error_after is None else _num(r.error_after, 3)
+                    ),
+                    "overshoot": _math(
+                        "\\text{--}"
+                        if r.overshoot_percent is None
+                        else _num(r.overshoot_percent, 3)
+                    ),
+                }
+                for r in study.runs
+            ],
+            "windup": None
+            if not study.windup
+            else [
+                {
+                    "label": "with anti-windup" if w.anti_windup else "without anti-windup",
+                    "overshoot": _math(
+                        "\\text{--}"
+                        if w.overshoot_percent is None
+                        else _num(w.overshoot_percent, 3)
+                    ),
+                }
+                for w in study.windup
+            ],
+            "notes": [_plain(n) for n in study.notes],
+        }
+    if d.reduced_observer is not None:
+        ro = d.reduced_observer
+        out["reduced"] = {
+            "order": ro.order,
+            "measured": ro.measured,
+            "T": _matrix_math("T", ro.T_closed_form, ro.T),
+            "Ke": _matrix_math("K_e", ro.Ke_closed_form, ro.Ke),
+            "Ke_value": _math("K_e = " + _numeric_matrix(ro.Ke, 6)),
+            "poles": _poles(np.array([complex(p) for p in ro.poles])),
+            "pole_rule": _plain(ro.pole_rule),
+            "closed_loop_poles": _poles(
+                np.array(sorted(ro.closed_loop_poles, key=lambda z: (z.real, z.imag)))
+            ),
+            "factors": ro.factors_as_expected,
+            "comparison": _plain(ro.comparison),
+        }
+    if d.discrete is not None:
+        dc = d.discrete
+        out["digital"] = {
+            "T": _math(_num(dc.sample_time, 6)),
+            "Phi": _matrix_math(r"\Phi", dc.Phi_closed_form, dc.Phi),
+            "Gamma": _matrix_math(r"\Gamma", dc.Gamma_closed_form, dc.Gamma),
+            "K": _math("K_d = " + _numeric_matrix(dc.K, 6)),
+            "Lp": _math("L_p = " + _numeric_matrix(dc.L_predictor, 6)),
+            "Lc": _math("L_c = " + _numeric_matrix(dc.L_current, 6)),
+            "N": None
+            if dc.reference_gain is None
+            else _math("N_d = " + _numeric_matrix(dc.reference_gain, 6)),
+            "controller_z": _poles(dc.controller_poles_z),
+            "observer_z": _poles(dc.observer_poles_z),
+            "bandwidth": None if dc.bandwidth is None else _math(_num(dc.bandwidth, 4)),
+            "ratio": None if dc.sampling_ratio is None else _math(_num(dc.sampling_ratio, 3)),
+            "lag": None
+            if dc.hold_phase_lag is None
+            else _math(_num(float(np.degrees(dc.hold_phase_lag)), 3)),
+            "equations": [_plain(eq.description) for eq in dc.equations.values()],
+            "method": _plain(dc.method),
+        }
+    return out
+
+
 def memo_robustness_section(d: Derivation) -> tuple[dict | None, dict[str, bytes]]:
     """The robustness section: mismatch study, Routh-Hurwitz, sensitivities, margins.
 
@@ -551,6 +682,7 @@ def build_memo(
     """Render both memo sources from a finished derivation."""
     ctx = build_context(d, study_context, claims_context)
     ctx["robustness"] = robustness_context
+    ctx.update(extended_sections(d))
     name = d.design.slug
     # file names are our own slug (letters, digits, '-'), safe to trust in both formats
     ctx["figure_prefix"] = _math(f"figures/{name}-")

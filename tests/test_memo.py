@@ -19,7 +19,7 @@ from symbolic._derive import derive
 from symbolic._memo import assemble_memo, build_memo, write_memo
 from symbolic._report import format_number
 
-from .conftest import ROOT, WORKED, WORKED_FILES, require_tex
+from .conftest import ROOT, WORKED, WORKED_FILES, require_tex, tex_available
 
 PINNED_EPOCH = "1764633600"  # the date pinned by worked_designs/regenerate.sh
 
@@ -304,3 +304,23 @@ def test_memo_shows_the_tex_attack_corpus_literally(tmp_path):
     finally:
         os.chdir(cwd)
     assert not touch.exists()
+
+
+def test_memo_sections_for_integral_reduced_and_digital(tmp_path):
+    """Integral action, the reduced-order observer and the digital controller reach the memo."""
+    text = (WORKED / "belt_drive.toml").read_text()
+    text = text.replace("[observer]\nspeed_factor = 5", '[observer]\nspeed_factor = 5\nkind = "reduced"')
+    text += '\n[tracking]\nmethod = "integral"\n\n[discrete]\nsample_time = 0.01\n'
+    path = tmp_path / "extended.toml"
+    path.write_text(text)
+    design = symbolic.load_design(path)
+    d, doc = assemble_memo(design)
+    for heading in ("## Integral action", "## Reduced-order observer", "## Digital implementation"):
+        assert heading in doc.markdown
+    assert r"\section{Integral action}" in doc.tex and r"\section{Digital implementation}" in doc.tex
+    assert d.integral is not None and d.reduced_observer is not None and d.discrete is not None
+    # the gains printed are the derived ones
+    assert format_number(d.integral.integral_gain.ravel()[0]) in doc.markdown.replace("\\-", "-")
+    if tex_available():
+        assert write_memo(design, tmp_path / "out", pdf=True) in (0, 1)
+        assert (tmp_path / "out" / "extended.pdf").read_bytes().startswith(b"%PDF")
