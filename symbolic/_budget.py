@@ -4,14 +4,23 @@ SymPy can run for minutes (or exhaust memory) on an innocent-looking
 expression.  :func:`run_bounded` runs a function in a forked child process
 with a wall-clock limit and an address-space limit; the caller catches
 :class:`~symbolic._errors.BudgetExceeded` and falls back to numbers.
+
+The child cannot outlive its budget by much, even when the parent is killed
+(SIGKILL, the out-of-memory killer) and so never stops it: on Linux the kernel
+kills the child when its parent dies (:func:`die_with_parent`), and everywhere
+a CPU-time limit a little above the budget ends it.  Core dumps of the child
+are switched off, so that limit leaves no ``core`` file behind.
 """
 
 from __future__ import annotations
 
+import ctypes
+import math
 import multiprocessing as mp
 import os
 import pickle
 import resource
+import signal
 import sys
 import traceback
 from collections.abc import Callable
@@ -19,7 +28,7 @@ from typing import Any, TypeVar
 
 from ._errors import BudgetExceeded, GainsmithError
 
-__all__ = ["run_bounded", "DEFAULT_MEMORY_BYTES"]
+__all__ = ["run_bounded", "die_with_parent", "DEFAULT_MEMORY_BYTES"]
 
 T = TypeVar("T")
 
@@ -28,12 +37,64 @@ T = TypeVar("T")
 DEFAULT_MEMORY_BYTES = 6 * 1024**3
 
 
-def _child(conn: Any, func: Callable[..., Any], args: tuple, memory: int | None) -> None:
+#: Seconds of CPU the child may use beyond its wall-clock budget before the kernel
+#: stops it (a safety net for a child whose parent is gone; common practice, no source).
+CPU_GRACE_SECONDS = 2
+
+_PR_SET_PDEATHSIG = 1  # <linux/prctl.h>
+
+
+def die_with_parent(parent: int | None = None) -> None:
+    """Have the kernel SIGKILL this process when its parent dies (Linux only).
+
+    For forked helpers (the symbolic stages here, figure workers) that must not
+    keep running, or wait forever, after the gainsmith process is killed.  Uses
+    ``prctl(PR_SET_PDEATHSIG, SIGKILL)`` (Linux man-pages, prctl(2)); elsewhere
+    it does nothing.  If ``parent`` is given and is no longer this process's
+    parent (it died before the request took effect), the process exits at once.
+
+    Notes
+    -----
+    The signal is tied to the *thread* that forked the child: fork from a thread
+    that outlives the child (as :func:`run_bounded` does, since it waits).
+    """
+    if not sys.platform.startswith("linux"):
+        return
     try:
-        if memory:
-            soft, hard = resource.getrlimit(resource.RLIMIT_AS)
-            cap = memory if hard == resource.RLIM_INFINITY else min(memory, hard)
-            resource.setrlimit(resource.RLIMIT_AS, (cap, hard))
+        libc = ctypes.CDLL(None, use_errno=True)
+        libc.prctl(_PR_SET_PDEATHSIG, int(signal.SIGKILL), 0, 0, 0)
+    except (OSError, AttributeError):  # no libc symbol: keep the CPU limit only
+        return
+    if parent is not None and os.getppid() != parent:
+        os._exit(1)
+
+
+def _limit_child(seconds: float | None, memory: int | None) -> None:
+    """Resource limits of the forked child: address space, CPU time, no core file."""
+    if memory:
+        _soft, hard = resource.getrlimit(resource.RLIMIT_AS)
+        cap = memory if hard == resource.RLIM_INFINITY else min(memory, hard)
+        resource.setrlimit(resource.RLIMIT_AS, (cap, hard))
+    if seconds is not None:
+        _soft, hard = resource.getrlimit(resource.RLIMIT_CPU)
+        cpu = math.ceil(seconds) + CPU_GRACE_SECONDS
+        if hard == resource.RLIM_INFINITY or cpu <= hard:
+            resource.setrlimit(resource.RLIMIT_CPU, (cpu, hard))
+    _soft, hard = resource.getrlimit(resource.RLIMIT_CORE)
+    resource.setrlimit(resource.RLIMIT_CORE, (0, hard))
+
+
+def _child(
+    conn: Any,
+    func: Callable[..., Any],
+    args: tuple,
+    memory: int | None,
+    seconds: float | None = None,
+    parent: int | None = None,
+) -> None:
+    try:
+        die_with_parent(parent)
+        _limit_child(seconds, memory)
         sys.setrecursionlimit(max(sys.getrecursionlimit(), 20000))
         result = func(*args)
         payload = pickle.dumps(("ok", result), protocol=pickle.HIGHEST_PROTOCOL)
@@ -84,7 +145,11 @@ def run_bounded(
         return func(*args)
     ctx = mp.get_context("fork")
     receiver, sender = ctx.Pipe(duplex=False)
-    proc = ctx.Process(target=_child, args=(sender, func, args, memory_bytes), daemon=True)
+    proc = ctx.Process(
+        target=_child,
+        args=(sender, func, args, memory_bytes, seconds, os.getpid()),
+        daemon=True,
+    )
     proc.start()
     sender.close()
     try:

@@ -333,9 +333,18 @@ def _generators(*exprs) -> dict:
     substituting it back.
     """
     mapping: dict = {}
+    powers: dict = {}  # x**(p/q) -> g**p, applied together with mapping
 
     def visit(e) -> None:
         if e.is_Atom:
+            return
+        if e.is_Pow and e.exp.is_Rational and not e.exp.is_Integer:
+            # x**(p/q) = (x**(1/q))**p: one generator per root, so that sqrt(x) and 1/sqrt(x)
+            # stay related (their product is 1)
+            root = sp.Pow(e.base, sp.Rational(1, e.exp.q))
+            if root not in mapping:
+                mapping[root] = sp.Dummy(f"g{len(mapping)}", real=True)
+            powers[e] = mapping[root] ** e.exp.p
             return
         if isinstance(e, sp.Function) or (e.is_Pow and not e.exp.is_Integer):
             if e not in mapping:
@@ -350,7 +359,7 @@ def _generators(*exprs) -> dict:
                 visit(entry)
         elif isinstance(x, sp.Basic):
             visit(x)
-    return mapping
+    return mapping, powers
 
 
 def _substitute(obj, mapping: dict):
@@ -358,7 +367,9 @@ def _substitute(obj, mapping: dict):
     if not mapping or obj is None or isinstance(obj, bool | int | float | str):
         return obj
     if dataclasses.is_dataclass(obj):
-        changes = {f.name: _substitute(getattr(obj, f.name), mapping) for f in dataclasses.fields(obj)}
+        changes = {
+            f.name: _substitute(getattr(obj, f.name), mapping) for f in dataclasses.fields(obj)
+        }
         return dataclasses.replace(obj, **changes)
     if isinstance(obj, tuple):
         return tuple(_substitute(x, mapping) for x in obj)
@@ -383,8 +394,9 @@ def closed_forms(
     Functions of the parameters are handled as independent generators and
     substituted back in the results (:func:`_generators`).
     """
-    forward = _generators(A, B, C, D)
-    back = {v: k for k, v in forward.items()}
+    mapping, powers = _generators(A, B, C, D)
+    forward = {**mapping, **powers}
+    back = {v: k for k, v in mapping.items()}
     result = _closed_forms(
         *(M.xreplace(forward) for M in (A, B, C, D)), tracked, controller_coeffs, observer_coeffs
     )
@@ -404,8 +416,9 @@ def separated_forms(
 ) -> SeparatedForms:
     """The separated loop and the compensator (see :func:`_separated_forms`), with functions of
     the parameters handled as generators."""
-    forward = _generators(A, B, C, D, K, L)
-    back = {v: k for k, v in forward.items()}
+    mapping, powers = _generators(A, B, C, D, K, L)
+    forward = {**mapping, **powers}
+    back = {v: k for k, v in mapping.items()}
     result = _separated_forms(
         *(M.xreplace(forward) for M in (A, B, C, D, K, L)),
         controller_coeffs,

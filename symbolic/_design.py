@@ -14,6 +14,7 @@ import difflib
 import hashlib
 import math
 import re
+import reprlib
 import tomllib
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
@@ -323,6 +324,9 @@ def parse_design(
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
         raise DesignFileError(f"not UTF-8 text (byte {exc.start})", where) from exc
+    deep = _too_deep(text)
+    if deep:
+        raise DesignFileError(deep, where)
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -332,13 +336,57 @@ def parse_design(
     return _Reader(where, sha).read(data, dict(overrides or {}))
 
 
+#: Deepest nesting of arrays, inline tables or dotted keys a design file may use.  Ours needs 3;
+#: TOML parsers spend time quadratic in the depth of a dotted key.
+MAX_NESTING = 32
+_KEY_LINE = re.compile(r"^\s*(\[\[?[^\]]*\]\]?|[^=\n]+=)", re.M)
+
+
+def _too_deep(text: str) -> str | None:
+    """A one-line reason when the text nests deeper than :data:`MAX_NESTING`, else None."""
+    depth = worst = 0
+    quote = None
+    for ch in text:  # brackets outside strings (approximate, conservative for our format)
+        if quote:
+            if ch == quote:
+                quote = None
+            continue
+        if ch in "\"'":
+            quote = ch
+        elif ch in "[{":
+            depth += 1
+            worst = max(worst, depth)
+        elif ch in "]}":
+            depth = max(0, depth - 1)
+        elif ch == "\n":
+            quote = None
+    if worst > MAX_NESTING:
+        return f"nested too deeply: arrays or tables {worst} deep; design files nest at most {MAX_NESTING}"
+    for match in _KEY_LINE.finditer(text):
+        dots = match.group(1).count(".")
+        if dots > MAX_NESTING:
+            parts = [p.strip() for p in match.group(1).strip("[]= \t").split(".")]
+            return (
+                f"{'.'.join(parts[:4])}...: nested too deeply: a key with {dots + 1} parts;"
+                f" design files use at most {MAX_NESTING}"
+            )
+    return None
+
+
 def _suggest(word: str, choices: Sequence[str]) -> str:
     close = difflib.get_close_matches(word, list(choices), n=1, cutoff=0.6)
     return f"; did you mean '{close[0]}'?" if close else f"; expected one of: {', '.join(choices)}"
 
 
+_REPR = reprlib.Repr()
+_REPR.maxlevel = 3
+_REPR.maxstring = 40
+_REPR.maxother = 40
+
+
 def _short(value: object) -> str:
-    text = repr(value)
+    """A bounded repr for messages: depth and length limited, never recursive blow-up."""
+    text = _REPR.repr(value)
     return text if len(text) <= 40 else text[:37] + "..."
 
 
@@ -630,6 +678,10 @@ class _Reader:
             self.fail(key, 'expected a list of poles such as ["-4+3j", "-4-3j"]')
         if not value and not allow_empty:
             self.fail(key, "empty list of poles")
+        if len(value) > MAX_ORDER:
+            self.fail(
+                key, f"{len(value)} poles; gainsmith handles plants of order {MAX_ORDER} at most"
+            )
         out = []
         for i, v in enumerate(value):
             if isinstance(v, bool) or not isinstance(v, int | float | str):
