@@ -67,6 +67,40 @@ def _plain(text: str) -> str:
     return text.replace("$", r"\$")
 
 
+def plot_design_poles(
+    ax: Axes,
+    controller: np.ndarray,
+    observer: np.ndarray,
+    *,
+    controller_label: str = "controller poles (A − BK)",
+    observer_label: str = "observer poles (A − LC)",
+    observer_colour: str = "#c0392b",
+    observer_size: float = 7,
+) -> None:
+    """Controller poles as crosses and observer poles as open circles (shared by the maps)."""
+    ax.plot(
+        controller.real,
+        controller.imag,
+        linestyle="none",
+        marker="x",
+        markersize=9,
+        markeredgewidth=2,
+        color="#000000",
+        label=controller_label,
+    )
+    ax.plot(
+        observer.real,
+        observer.imag,
+        linestyle="none",
+        marker="o",
+        markersize=observer_size,
+        markerfacecolor="none",
+        markeredgewidth=1.5,
+        color=observer_colour,
+        label=observer_label,
+    )
+
+
 def step_response_figure(
     responses: Sequence, output_name: str, output_unit: str, reference: float
 ) -> Figure:
@@ -191,27 +225,7 @@ def pole_map_figure(
             markeredgecolor="#555555",
             label="open-loop plant poles",
         )
-    ax.plot(
-        controller.real,
-        controller.imag,
-        linestyle="none",
-        marker="x",
-        markersize=9,
-        markeredgewidth=2,
-        color="#000000",
-        label="controller poles (A − BK)",
-    )
-    ax.plot(
-        observer.real,
-        observer.imag,
-        linestyle="none",
-        marker="o",
-        markersize=7,
-        markerfacecolor="none",
-        markeredgewidth=1.5,
-        color="#c0392b",
-        label="observer poles (A − LC)",
-    )
+    plot_design_poles(ax, controller, observer)
     ax.set_xlabel("real part [1/s]")
     ax.set_ylabel("imaginary part [rad/s]")
     ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=2, fontsize=8)

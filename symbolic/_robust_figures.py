@@ -20,6 +20,7 @@ import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
+from ._figures import _plain, plot_design_poles
 from ._margins import MarginReport
 
 __all__ = ["loop_magnitude_phase_figure", "loop_polar_figure", "mismatch_pole_figure"]
@@ -41,8 +42,6 @@ def _figure(size) -> Figure:
     return fig
 
 
-def _plain(text: str) -> str:
-    return text.replace("$", r"\$")
 
 
 def _unwrapped_phase_deg(response: np.ndarray) -> np.ndarray:
@@ -270,26 +269,14 @@ def mismatch_pole_figure(
             color="#c0392b",
             label="poles at unstable points",
         )
-    ax.plot(
-        controller.real,
-        controller.imag,
-        linestyle="none",
-        marker="x",
-        markersize=9,
-        markeredgewidth=2,
-        color="#000000",
-        label="nominal controller poles",
-    )
-    ax.plot(
-        observer.real,
-        observer.imag,
-        linestyle="none",
-        marker="o",
-        markersize=8,
-        markerfacecolor="none",
-        markeredgewidth=1.5,
-        color="#1f5fa8",
-        label="nominal observer poles",
+    plot_design_poles(
+        ax,
+        controller,
+        observer,
+        controller_label="nominal controller poles",
+        observer_label="nominal observer poles",
+        observer_colour="#1f5fa8",
+        observer_size=8,
     )
     allp = np.concatenate([poles.ravel(), controller, observer])
     allp = allp[np.isfinite(allp)]
