@@ -327,6 +327,11 @@ def parse_design(
     deep = _too_deep(text)
     if deep:
         raise DesignFileError(deep, where)
+    declared = len(set(_PARAMETER_LINE.findall(text)))
+    if declared > MAX_PARAMETERS:  # counted before parsing: a huge table costs seconds to parse
+        raise DesignFileError(
+            f"{declared} parameters; the limit is {MAX_PARAMETERS}", where, "parameters"
+        )
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -340,6 +345,9 @@ def parse_design(
 #: TOML parsers spend time quadratic in the depth of a dotted key.
 MAX_NESTING = 32
 _KEY_LINE = re.compile(r"^\s*(\[\[?[^\]]*\]\]?|[^=\n]+=)", re.M)
+
+
+_PARAMETER_LINE = re.compile(r"^[ \t]*\[?[ \t]*parameters[ \t]*\.[ \t]*([^ \t.\]=]+)", re.M)
 
 
 def _too_deep(text: str) -> str | None:
