@@ -344,7 +344,8 @@ def parse_design(
 #: Deepest nesting of arrays, inline tables or dotted keys a design file may use.  Ours needs 3;
 #: TOML parsers spend time quadratic in the depth of a dotted key.
 MAX_NESTING = 32
-_KEY_LINE = re.compile(r"^\s*(\[\[?[^\]]*\]\]?|[^=\n]+=)", re.M)
+# [ \t]* rather than \s*: \s* spans blank lines and made this scan quadratic
+_KEY_LINE = re.compile(r"^[ \t]*(\[\[?[^\]\n]*\]\]?|[^=\n]+=)", re.M)
 
 
 _PARAMETER_LINE = re.compile(r"^[ \t]*\[?[ \t]*parameters[ \t]*\.[ \t]*([^ \t.\]=]+)", re.M)
@@ -392,6 +393,11 @@ _REPR.maxstring = 40
 _REPR.maxother = 40
 
 
+def _key_part(name: str) -> str:
+    """A key from the file as quoted in a message: at most 64 characters."""
+    return name if len(name) <= 64 else name[:61] + "..."
+
+
 def _short(value: object) -> str:
     """A bounded repr for messages: depth and length limited, never recursive blow-up."""
     text = _REPR.repr(value)
@@ -420,7 +426,8 @@ class _Reader:
             self.fail(key, f"expected a table, got {type(data).__name__}")
         for name in data:
             if name not in allowed:
-                self.fail(f"{key}.{name}" if key else name, "unknown key" + _suggest(name, allowed))
+                part = _key_part(name)
+                self.fail(f"{key}.{part}" if key else part, "unknown key" + _suggest(name, allowed))
         return data
 
     def string(self, value: Any, key: str, default: str = "") -> str:
@@ -521,7 +528,7 @@ class _Reader:
             self.fail("parameters", f"{len(data)} parameters; the limit is {MAX_PARAMETERS}")
         out = []
         for name, spec in data.items():
-            key = f"parameters.{name}"
+            key = f"parameters.{_key_part(name)}"
             try:
                 check_name(name)
             except ExpressionError as exc:
