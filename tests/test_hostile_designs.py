@@ -35,6 +35,9 @@ from .hostile.corpus import CASES, HostileCase
 
 #: Seconds allowed per case, loading and deriving together (common practice, no source).
 CASE_SECONDS = 2.0
+#: Longest error message accepted: one readable line, whatever the file holds (the longest
+#: legitimate one quotes a 2000-character string; common practice, no source).
+MESSAGE_LIMIT = 4000
 #: Symbolic budget for the cases that load: a hostile file must not buy time.
 DERIVE_BUDGET = 1.0
 
@@ -94,6 +97,7 @@ def _write(case: HostileCase, tmp_path: Path) -> tuple[Path, Path]:
 def _check_error(case: HostileCase, result: Outcome) -> None:
     message = result.message
     assert "\n" not in message.strip(), f"{case.name}: the message spans several lines"
+    assert len(message) <= MESSAGE_LIMIT, f"{case.name}: a message of {len(message)} characters"
     assert case.key in message, f"{case.name}: {case.key!r} not in the message {message[:300]!r}"
     if case.where == "key":
         assert result.is_design_error, f"{case.name}: {result.error} carries no key"
@@ -164,7 +168,7 @@ def _run_case_guarded(case: HostileCase, path: Path, seconds: float) -> Outcome:
         if receiver.poll(seconds):
             return receiver.recv()
         return Outcome(
-            "crash", time.perf_counter() - start, "Timeout", f"still running after {seconds} s"
+            "timeout", time.perf_counter() - start, "", f"still running after {seconds} s"
         )
     except EOFError:
         return Outcome(

@@ -20,8 +20,9 @@ no process behind.  A final complete run removes the staging folders.
 Two variants: ``test_kill_during_memo_command`` runs the real command
 (``python -m symbolic memo``) at every delay and is marked slow;
 ``test_kill_during_memo_forked`` forks this test process (already importing
-gainsmith, so each run starts in a fraction of a second) for a few kills and
-runs in the ordinary suite.
+gainsmith, so each run starts in a fraction of a second), makes the previous
+version by overwriting the files of one complete run, kills three times and
+runs in the ordinary suite (two memo runs in all).
 """
 
 from __future__ import annotations
@@ -241,17 +242,10 @@ def kill_forked(out: Path, trigger: Trigger) -> tuple[bool, list[int]]:
 # --------------------------------------------------------------------------
 # The scenario
 # --------------------------------------------------------------------------
-def _scenario(
-    tmp_path: Path, complete, kill, triggers: list[Callable[[Path], Trigger]]
-) -> list[str]:
-    """Previous memo, then one kill per trigger (each built just before its run), then a
-    complete run; returns one line per kill."""
-    out = tmp_path / "memo"
-    complete(out, PREVIOUS)
-    previous = snapshot(out)
-    assert any(name.endswith(".md") for name in previous)
-    assert any(name.startswith("figures/") for name in previous)
-
+def _kill_all(
+    out: Path, kill, triggers: list[Callable[[Path], Trigger]], previous: dict[str, str]
+) -> tuple[list[tuple[str, bool, dict[str, str], list[str]]], list[str]]:
+    """One kill per trigger (each built just before its run); snapshots after each."""
     after_kills: list[tuple[str, bool, dict[str, str], list[str]]] = []
     orphans: list[str] = []
     for make_trigger in triggers:
@@ -271,13 +265,13 @@ def _scenario(
             f"{trigger.label}: unexpected files {sorted(visible - set(previous))}"
         )
         after_kills.append((trigger.label, killed, snapshot(out), staging_folders(out)))
+    return after_kills, orphans
 
-    complete(out, [])
-    new = snapshot(out)
-    assert staging_folders(out) == [], "a successful run must remove stale staging folders"
+
+def _verify(after_kills, orphans, previous: dict[str, str], new: dict[str, str]) -> list[str]:
+    """Every file after every kill is the previous or the new version; one line per kill."""
     assert set(new) == set(previous)
     assert any(new[name] != previous[name] for name in new), "old and new memo should differ"
-
     report = []
     for label, killed, files, staged in after_kills:
         assert set(files) == set(previous), f"{label}: files missing {set(previous) - set(files)}"
@@ -292,6 +286,22 @@ def _scenario(
         )
     assert not orphans, "; ".join(orphans)
     return report
+
+
+def _scenario(
+    tmp_path: Path, complete, kill, triggers: list[Callable[[Path], Trigger]]
+) -> list[str]:
+    """Previous memo (another mass), the kills, then a complete run; one line per kill."""
+    out = tmp_path / "memo"
+    complete(out, PREVIOUS)
+    previous = snapshot(out)
+    assert any(name.endswith(".md") for name in previous)
+    assert any(name.startswith("figures/") for name in previous)
+    after_kills, orphans = _kill_all(out, kill, triggers, previous)
+    complete(out, [])
+    new = snapshot(out)
+    assert staging_folders(out) == [], "a successful run must remove stale staging folders"
+    return _verify(after_kills, orphans, previous, new)
 
 
 def _print(request, lines: list[str]) -> None:
@@ -311,13 +321,32 @@ def _after(seconds: float) -> Callable[[Path], Trigger]:
 
 
 def test_kill_during_memo_forked(tmp_path, request):
+    """The short variant: two memo runs instead of four.
+
+    The new version is written first; the "previous" version is then made by
+    overwriting each file with other bytes of our own (the check is about whole
+    files, not about what is in them).  After the kills, the cleanup of stale
+    staging folders is checked through ``publish`` itself, which every successful
+    run calls first.
+    """
     # import what the memo needs before forking, so each child starts at once
     import symbolic._memo  # noqa: F401
-    import symbolic._publish  # noqa: F401
     import symbolic._simreport  # noqa: F401
+    from symbolic._publish import publish
+
+    out = tmp_path / "memo"
+    complete_forked(out, [])
+    new = snapshot(out)
+    assert any(name.endswith(".md") for name in new)
+    for name in new:
+        (out / name).write_bytes(f"previous version of {name}\n".encode())
+    previous = snapshot(out)
 
     triggers = [_after(0.3), _after(1.5), when_first_file_replaced]
-    _print(request, _scenario(tmp_path, complete_forked, kill_forked, triggers))
+    after_kills, orphans = _kill_all(out, kill_forked, triggers, previous)
+    publish({}, out)  # what the next successful run does first
+    assert staging_folders(out) == [], "stale staging folders must go with the next run"
+    _print(request, _verify(after_kills, orphans, previous, new))
 
 
 @pytest.mark.slow

@@ -309,6 +309,25 @@ CASES: tuple[HostileCase, ...] = (
         _B,
     ),
     HostileCase(
+        "blank-lines-100000",
+        "resource",
+        _lazy(lambda: BASE + "\n" * 100_000 + "# the end\n[plnat]\nA = 1\n"),
+        "plnat",
+        note="100 kB of blank lines, a comment, then an unknown table",
+    ),
+    HostileCase(
+        "table-name-900-kB",
+        "resource",
+        _lazy(lambda: BASE + "\n[" + "k" * 900_000 + "]\nA = 1\n"),
+        "kkkk",
+    ),
+    HostileCase(
+        "parameter-name-900-kB",
+        "resource",
+        _lazy(lambda: BASE + "\n[parameters." + "p" * 900_000 + "]\nvalue = 1\n"),
+        "parameters.pppp",
+    ),
+    HostileCase(
         "parameters-10000",
         "resource",
         _lazy(lambda: _many_parameters(10_000)),
