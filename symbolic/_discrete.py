@@ -42,6 +42,7 @@ References
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import re
 import time
@@ -77,8 +78,14 @@ __all__ = [
     "DigitalController",
     "SampledDataStudy",
     "ackermann_in_z",
+    "DIGITAL_FORMS",
+    "DiscreteIntegral",
+    "DiscreteReduced",
     "c_controller_files",
     "closed_loop_bandwidth",
+    "continuous_equations",
+    "matched_state",
+    "python_controller_source",
     "digital_controller",
     "discrete_feedback_gain",
     "discrete_coefficients",
@@ -99,8 +106,12 @@ NEAR_UNIT_CIRCLE = 0.99
 #: of a symbolic matrix needs its eigenvalues and can run for minutes, so it is always bounded.
 CLOSED_FORM_SECONDS = 5.0
 
-#: The two observer forms of the digital controller.
+#: The two full-order observer forms of the digital controller.
 OBSERVER_FORMS = ("current", "predictor")
+
+#: Every implementation form: the full-order ones and Luenberger's reduced-order observer
+#: (present only when the design asks for ``[observer] kind = "reduced"``).
+DIGITAL_FORMS = ("current", "predictor", "reduced")
 
 GAIN_TOLERANCE = 1e-8
 DISCRETISATION_TOLERANCE = 1e-9
@@ -135,6 +146,73 @@ class DifferenceEquations:
     output_reference: np.ndarray  # D_cr
     sample_time: float
     description: str
+    #: B_or of ``ξ[k+1] = … + B_or r[k]`` (the integrator's ``−T r``); None: no such term
+    reference_input: np.ndarray | None = None
+    #: B_aw of ``ξ[k+1] = … + B_aw (u_demanded[k] − u[k])`` (back-calculation anti-windup of
+    #: the integrator, active only while the input is limited); None: no integrator
+    anti_windup: np.ndarray | None = None
+    #: Index of the integrator in ξ (None without integral action)
+    integrator_index: int | None = None
+    #: Names of the entries of ξ, for the generated code's comments
+    state_names: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class DiscreteIntegral:
+    """Integral action in the digital controller.
+
+    The integrator is the running sum ``x_I[k+1] = x_I[k] + T (y_t[k] − r[k])`` (the
+    tracked output as measured), so ``k_i`` is comparable with the continuous design's.  The
+    sampled plant augmented with it, ``Φ_a = [[Φ, 0], [T C_t, 1]]``, ``Γ_a = [[Γ], [T D_t]]``,
+    gets the gain ``[K, k_i]`` that places ``e^{sT}`` of the n controller poles and of the
+    integral pole; ``u[k] = −K x̂[k] − k_i x_I[k]``.  With an input limit the integrator is
+    corrected by back-calculation, ``x_I[k+1] += T (u_d[k] − u[k]) / (k_i T_t)``, the
+    sampled form of the continuous scheme of :mod:`symbolic._integral` (same ``T_t``).
+    """
+
+    Phi_augmented: np.ndarray
+    Gamma_augmented: np.ndarray
+    K: np.ndarray  # (m, n)
+    integral_gain: np.ndarray  # (m, 1)
+    K_augmented: np.ndarray  # (m, n + 1)
+    integral_pole: complex  # continuous, s-plane
+    integral_pole_z: complex
+    pole_rule: str
+    tracking_time: float  # T_t of the back-calculation
+    back_calculation: np.ndarray  # (1, m): x_I[k+1] += T · this @ (u_d − u)
+    method: str
+
+
+@dataclass(frozen=True)
+class DiscreteReduced:
+    """Luenberger's minimum-order observer in discrete time (same coordinates as in s).
+
+    With ``x̄ = T x``, ``T Φ T⁻¹`` and ``T Γ`` partitioned after the p measured states, the
+    unmeasured part is estimated by ``x̂_b[k] = η[k] + L_r ȳ[k]`` with
+    ``η[k+1] = Â η[k] + B̂ ȳ[k] + F̂ u[k]``, ``Â = Φ_bb − L_r Φ_ab``,
+    ``B̂ = Â L_r + Φ_ba − L_r Φ_aa``, ``F̂ = Γ_b − L_r Γ_a`` and ``ȳ = y − D u``; the error
+    obeys ``e_b[k+1] = (Φ_bb − L_r Φ_ab) e_b[k]`` (Franklin, Powell and Workman [1] Sec. 8.2,
+    reduced-order estimators -- from memory).  Like the current estimator it uses ``y[k]``
+    for ``u[k]``: the computation must be short compared with T.
+    """
+
+    T: np.ndarray
+    T_inverse: np.ndarray
+    Phi_aa: np.ndarray
+    Phi_ab: np.ndarray
+    Phi_ba: np.ndarray
+    Phi_bb: np.ndarray
+    Gamma_a: np.ndarray
+    Gamma_b: np.ndarray
+    L: np.ndarray  # (n − p, p)
+    poles: tuple[complex, ...]  # s-plane
+    poles_z: np.ndarray
+    pole_rule: str
+    observer_matrix: np.ndarray  # Â
+    output_input: np.ndarray  # B̂
+    control_input: np.ndarray  # F̂
+    estimate_from_state: np.ndarray  # T⁻¹ Ĉ
+    estimate_from_output: np.ndarray  # T⁻¹ D̂
 
 
 @dataclass(frozen=True)
@@ -191,11 +269,26 @@ class DigitalController:
     method: str
     checks: tuple[Check, ...]
     notes: tuple[str, ...]
+    #: Integral action in z (``[tracking] method = "integral"``), else None
+    integral: DiscreteIntegral | None = None
+    #: The reduced-order observer in z (``[observer] kind = "reduced"``), else None
+    reduced: DiscreteReduced | None = None
 
     @property
     def poles_z(self) -> np.ndarray:
         """Closed-loop z-plane poles: controller then observer."""
         return np.concatenate([self.controller_poles_z, self.observer_poles_z])
+
+    @property
+    def forms(self) -> tuple[str, ...]:
+        """The implementation forms available (keys of :attr:`equations`)."""
+        return tuple(self.equations)
+
+    @property
+    def default_form(self) -> str:
+        """The form the design asks for: "reduced" with a reduced-order observer, else
+        "current"."""
+        return "reduced" if "reduced" in self.equations else "current"
 
 
 @dataclass(frozen=True)
@@ -501,42 +594,105 @@ def _seconds(design, budget: float | None) -> float:
     return CLOSED_FORM_SECONDS if seconds <= 0 else min(seconds, CLOSED_FORM_SECONDS)
 
 
-def _equations(form: str, Phi, Gamma, C, D, K, Lp, Lc, N, T: float) -> DifferenceEquations:
+def _equations(
+    form: str,
+    Phi,
+    Gamma,
+    C,
+    D,
+    K,
+    Lp,
+    Lc,
+    N,
+    T: float,
+    *,
+    reduced: DiscreteReduced | None = None,
+    integral: DiscreteIntegral | None = None,
+    tracked: int = 0,
+) -> DifferenceEquations:
+    """The controller of one form as difference equations (see :class:`DifferenceEquations`).
+
+    Every form is written as an estimate map and an observer update,
+    ``x̂ = E_ξ ξ_o + E_y y + E_u u`` and ``ξ_o[k+1] = O_ξ ξ_o + O_y y + O_u u``; the control
+    ``u = −K x̂ + N r`` (or ``u = −K x̂ − k_i x_I`` with integral action) is solved for u, which
+    enters the estimate only through D: ``(I + K E_u) u = …``.
+    """
     n, m = Gamma.shape
+    p = C.shape[0]
     if form == "predictor":
-        # u = -K x̂ + N r;  x̂⁺ = (Φ − L_p C) x̂ + (Γ − L_p D) u + L_p y
-        return DifferenceEquations(
-            form=form,
-            state_matrix=Phi - Lp @ C,
-            measurement_matrix=Lp.copy(),
-            control_matrix=Gamma - Lp @ D,
-            output_state=-K,
-            output_measurement=np.zeros((m, C.shape[0])),
-            output_reference=N.copy(),
-            sample_time=T,
-            description=(
-                "predictor observer: u[k] = −K x̂[k] + N r[k];"
-                " x̂[k+1] = (Φ − L_p C) x̂[k] + (Γ − L_p D) u[k] + L_p y[k]"
-            ),
+        # x̂ = ξ;  x̂⁺ = (Φ − L_p C) x̂ + (Γ − L_p D) u + L_p y
+        E_xi, E_y, E_u = np.eye(n), np.zeros((n, p)), np.zeros((n, m))
+        O_xi, O_y, O_u = Phi - Lp @ C, Lp.copy(), Gamma - Lp @ D
+        names = tuple(f"x_hat[{i}]" for i in range(n))
+        text = (
+            "predictor observer: u[k] = −K x̂[k] + N r[k];"
+            " x̂[k+1] = (Φ − L_p C) x̂[k] + (Γ − L_p D) u[k] + L_p y[k]"
         )
-    # current estimator: x̂ = (I − L_c C) x̄ + L_c y − L_c D u;  u = −K x̂ + N r
-    #   ⇒ (I − K L_c D) u = −K (I − L_c C) x̄ − K L_c y + N r
-    #   x̄⁺ = Φ x̂ + Γ u = Φ (I − L_c C) x̄ + Φ L_c y + (Γ − Φ L_c D) u
-    Mi = np.linalg.inv(np.eye(m) - K @ Lc @ D)
-    I_LC = np.eye(n) - Lc @ C
-    return DifferenceEquations(
-        form=form,
-        state_matrix=Phi @ I_LC,
-        measurement_matrix=Phi @ Lc,
-        control_matrix=Gamma - Phi @ Lc @ D,
-        output_state=-Mi @ K @ I_LC,
-        output_measurement=-Mi @ K @ Lc,
-        output_reference=Mi @ N,
-        sample_time=T,
-        description=(
+    elif form == "current":
+        # x̂ = (I − L_c C) x̄ + L_c y − L_c D u;  x̄⁺ = Φ x̂ + Γ u
+        E_xi, E_y, E_u = np.eye(n) - Lc @ C, Lc, -Lc @ D
+        O_xi, O_y, O_u = Phi @ E_xi, Phi @ Lc, Gamma - Phi @ Lc @ D
+        names = tuple(f"x_bar[{i}]" for i in range(n))
+        text = (
             "current estimator: x̂[k] = x̄[k] + L_c (y[k] − C x̄[k] − D u[k]);"
             " u[k] = −K x̂[k] + N r[k]; x̄[k+1] = Φ x̂[k] + Γ u[k]"
-        ),
+        )
+    elif form == "reduced" and reduced is not None:
+        # x̂ = T⁻¹Ĉ η + T⁻¹D̂ ȳ, ȳ = y − D u;  η⁺ = Â η + B̂ ȳ + F̂ u
+        E_xi, E_y = reduced.estimate_from_state, reduced.estimate_from_output
+        E_u = -E_y @ D
+        O_xi, O_y = reduced.observer_matrix, reduced.output_input
+        O_u = reduced.control_input - reduced.output_input @ D
+        names = tuple(f"eta[{i}]" for i in range(O_xi.shape[0]))
+        text = (
+            "reduced-order observer: x̂[k] = T⁻¹ [ȳ[k]; η[k] + L_r ȳ[k]] with ȳ = y − D u;"
+            " u[k] = −K x̂[k] + N r[k]; η[k+1] = Â η[k] + B̂ ȳ[k] + F̂ u[k]"
+        )
+    else:
+        raise ValueError(f"unknown or unavailable form {form!r}")
+    Kx = K if integral is None else integral.K
+    Mi = np.linalg.inv(np.eye(m) + Kx @ E_u)
+    if integral is None:
+        return DifferenceEquations(
+            form=form,
+            state_matrix=O_xi,
+            measurement_matrix=O_y,
+            control_matrix=O_u,
+            output_state=-Mi @ Kx @ E_xi,
+            output_measurement=-Mi @ Kx @ E_y,
+            output_reference=Mi @ N,
+            sample_time=T,
+            description=text,
+            state_names=names,
+        )
+    # integral action: ξ = [ξ_o; x_I], x_I⁺ = x_I + T (y_t − r), u = −K x̂ − k_i x_I
+    no = O_xi.shape[0]
+    e_t = np.zeros((1, p))
+    e_t[0, tracked] = 1.0
+    Ao = np.block([[O_xi, np.zeros((no, 1))], [np.zeros((1, no)), np.ones((1, 1))]])
+    Boy = np.vstack([O_y, T * e_t])
+    Bou = np.vstack([O_u, np.zeros((1, m))])
+    Bor = np.vstack([np.zeros((no, 1)), [[-T]]])
+    Baw = np.vstack([np.zeros((no, m)), T * integral.back_calculation])
+    text = (
+        text.replace("u[k] = −K x̂[k] + N r[k]", "u[k] = −K x̂[k] − k_i x_I[k]")
+        + "; x_I[k+1] = x_I[k] + T (y_t[k] − r[k])"
+        + " + T (u_d[k] − u[k])/(k_i T_t) while the input is limited"
+    )
+    return DifferenceEquations(
+        form=form,
+        state_matrix=Ao,
+        measurement_matrix=Boy,
+        control_matrix=Bou,
+        output_state=Mi @ np.hstack([-Kx @ E_xi, -integral.integral_gain]),
+        output_measurement=-Mi @ Kx @ E_y,
+        output_reference=np.zeros((m, 1)),
+        sample_time=T,
+        description=text,
+        reference_input=Bor,
+        anti_windup=Baw,
+        integrator_index=no,
+        state_names=names + ("x_I",),
     )
 
 
@@ -554,7 +710,10 @@ def _sampled_loop(eq: DifferenceEquations, Phi, Gamma, C, D) -> tuple[np.ndarray
             [eq.measurement_matrix @ C + Bxi @ Ux, eq.state_matrix + Bxi @ Uxi],
         ]
     )
-    G = np.vstack([Gamma @ Ur, Bxi @ Ur])
+    Gxi = Bxi @ Ur
+    if eq.reference_input is not None:
+        Gxi = Gxi + eq.reference_input
+    G = np.vstack([Gamma @ Ur, Gxi])
     return F, G
 
 
@@ -793,19 +952,49 @@ def digital_controller(
         notes.append("discrete: no reference gain exists (zero DC gain); N = 0 is used")
     Nv = N if N is not None else np.zeros((m, 1))
 
-    # ---- both observer forms, in the sampled loop -----------------------------------------
+    # ---- integral action and the reduced-order observer in z ----------------------------
+    integral = reduced = None
+    if design.tracking.method == "integral":
+        integral = _integral_in_z(d, Phi, Gamma, C, D, T, idx, zc, checks)
+    if design.observer.kind == "reduced":
+        reduced = _reduced_in_z(d, Phi, Gamma, C, T, checks, notes)
+
+    # ---- every implementation form, in the sampled loop -----------------------------------
     equations = {}
-    for form in OBSERVER_FORMS:
-        eq = _equations(form, Phi, Gamma, C, D, K, Lp, Lc, Nv, T)
+    forms = OBSERVER_FORMS + (("reduced",) if reduced is not None else ())
+    loop_controller = zc if integral is None else np.append(zc, integral.integral_pole_z)
+    for form in forms:
+        eq = _equations(
+            form,
+            Phi,
+            Gamma,
+            C,
+            D,
+            K,
+            Lp,
+            Lc,
+            Nv,
+            T,
+            reduced=reduced,
+            integral=integral,
+            tracked=idx,
+        )
         equations[form] = eq
         F, _G = _sampled_loop(eq, Phi, Gamma, C, D)
-        union = np.concatenate([zc, zo])
+        observer_z = reduced.poles_z if form == "reduced" else zo
+        union = np.concatenate([loop_controller, observer_z])
         res = pole_residual(np.linalg.eigvals(F), union)
         tol = eigenvalue_tolerance(union)
+        what = {
+            "current": "current estimator",
+            "predictor": "predictor observer",
+            "reduced": "reduced-order observer",
+        }[form]
+        extra = " and the integrator" if integral is not None else ""
         checks.append(
             Check(
-                f"discrete: sampled loop with the {form} {'estimator' if form == 'current' else 'observer'}"
-                " has poles e^(sT) of controller ∪ observer",
+                f"discrete: sampled loop with the {what}{extra} has poles e^(sT) of controller"
+                f"{' (with the integral pole)' if integral is not None else ''} ∪ observer",
                 res,
                 tol,
                 res <= tol,
@@ -844,13 +1033,6 @@ def digital_controller(
             )
     else:
         notes.append("discrete: no closed-loop bandwidth found; no sample-rate guidance")
-    if design.tracking.method == "integral":
-        notes.append(
-            "discrete: the digital controller implements the reference-gain loop"
-            " (u = −K x̂ + N r); integral action is not discretised here"
-        )
-    if design.observer.kind == "reduced":
-        notes.append("discrete: the digital controller uses the full-order observer")
     for text in soft:
         warnings.warn(text, GainsmithWarning, stacklevel=2)
     notes.extend(f"discrete: {t}" for t in soft)
@@ -897,6 +1079,175 @@ def digital_controller(
         method=method,
         checks=tuple(checks),
         notes=tuple(notes),
+        integral=integral,
+        reduced=reduced,
+    )
+
+
+def _integral_in_z(d, Phi, Gamma, C, D, T, idx, zc, checks) -> DiscreteIntegral:
+    """``[K, k_i]`` placing e^{sT} of the controller poles and the integral pole."""
+    from ._integral import default_integral_pole
+
+    design = d.design
+    n, m = Gamma.shape
+    if design.tracking.integral_pole is not None:
+        pole = complex(design.tracking.integral_pole)
+        rule = "integral pole as given in the design file (tracking.integral_pole)"
+    else:
+        expr, rule = default_integral_pole(d.controller_poles.poles)
+        pole = complex(expr)
+    zi = complex(np.exp(pole * T))
+    Ct, Dt = C[idx : idx + 1, :], D[idx : idx + 1, :]
+    Pa = np.block([[Phi, np.zeros((n, 1))], [T * Ct, np.ones((1, 1))]])
+    Ga = np.vstack([Gamma, T * Dt])
+    poles = np.append(zc, zi)
+    try:
+        Ka = discrete_feedback_gain(Pa, Ga, poles)
+    except (StructureError, np.linalg.LinAlgError) as exc:
+        raise StructureError(
+            "the discrete integral loop cannot be placed: the sampled plant with the running"
+            f" sum of the tracking error is uncontrollable at T = {T:g} s ({exc})",
+            design.path,
+            "tracking.method",
+        ) from exc
+    how = "by Ackermann's formula in z on the augmented pair"
+    if m == 1:
+        reference, why = scipy_placement(Pa, Ga, poles)
+        if reference is not None:
+            diff = relative_difference(Ka, reference)
+            checks.append(
+                Check(
+                    "discrete: [K, k_i] by Ackermann in z vs scipy.signal.place_poles on"
+                    " (Φ_a, Γ_a) (relative)",
+                    diff,
+                    GAIN_TOLERANCE,
+                    diff <= GAIN_TOLERANCE,
+                )
+            )
+        else:
+            checks.append(
+                Check("discrete: [K, k_i] vs scipy.signal.place_poles", None, None, None, why)
+            )
+    else:
+        how = "by scipy.signal.place_poles on the augmented pair (several inputs: not unique)"
+    res = pole_residual(np.linalg.eigvals(Pa - Ga @ Ka), poles)
+    tol = eigenvalue_tolerance(poles)
+    checks.append(
+        Check(
+            "discrete: eigenvalues of Φ_a − Γ_a[K, k_i] vs e^(sT) of the poles",
+            res,
+            tol,
+            res <= tol,
+        )
+    )
+    ki = Ka[:, n:]
+    tracking = 1.0 / abs(pole)
+    back = np.linalg.pinv(ki) / tracking  # (1, m)
+    return DiscreteIntegral(
+        Phi_augmented=Pa,
+        Gamma_augmented=Ga,
+        K=Ka[:, :n],
+        integral_gain=ki,
+        K_augmented=Ka,
+        integral_pole=pole,
+        integral_pole_z=zi,
+        pole_rule=rule,
+        tracking_time=tracking,
+        back_calculation=back,
+        method=how,
+    )
+
+
+def _reduced_in_z(d, Phi, Gamma, C, T, checks, notes) -> DiscreteReduced | None:
+    """The minimum-order observer of the sampled plant (poles e^{sT} of the reduced ones)."""
+    from ._reduced import coordinate_change, reduced_observer_poles
+
+    design = d.design
+    n, p = Phi.shape[0], C.shape[0]
+    rest = n - p
+    if rest == 0:
+        notes.append("discrete: every state is measured; no reduced-order observer form")
+        return None
+    try:
+        rows = coordinate_change(C)
+    except StructureError as exc:
+        raise StructureError(exc.problem, design.path, "plant.C") from exc
+    if design.observer.reduced_poles is not None:
+        poles = tuple(complex(z) for z in design.observer.reduced_poles)
+        rule = "reduced observer poles as given in the design file (observer.poles)"
+    else:
+        chosen, rule = reduced_observer_poles(tuple(d.observer_poles.poles), rest)
+        poles = tuple(complex(z) for z in chosen)
+    for s_ in poles:
+        if abs(s_.imag) * T >= math.pi:
+            raise StructureError(
+                f"the sample time {T:g} s is too long for the reduced observer pole"
+                f" {s_.real:.6g}{s_.imag:+.6g}j: |Im s|·T ≥ π, so the pole aliases",
+                design.path,
+                "discrete.sample_time",
+            )
+    zr = np.exp(np.array(poles) * T)
+    Tm = np.vstack([C] + [np.eye(n)[j : j + 1] for j in rows])
+    Ti = np.linalg.inv(Tm)
+    Pb, Gb = Tm @ Phi @ Ti, Tm @ Gamma
+    Paa, Pab, Pba, Pbb = Pb[:p, :p], Pb[:p, p:], Pb[p:, :p], Pb[p:, p:]
+    Ga_, Gb_ = Gb[:p, :], Gb[p:, :]
+    try:
+        Lr = discrete_feedback_gain(Pbb.T, Pab.T, zr).T
+    except (StructureError, np.linalg.LinAlgError) as exc:
+        raise StructureError(
+            f"the discrete reduced-order observer cannot be placed at T = {T:g} s ({exc})",
+            design.path,
+            "discrete.sample_time",
+        ) from exc
+    if p == 1:
+        reference, why = scipy_placement(Pbb.T, Pab.T, zr)
+        if reference is not None:
+            diff = relative_difference(Lr, reference.T)
+            checks.append(
+                Check(
+                    "discrete: L_r by Ackermann in z vs scipy.signal.place_poles on"
+                    " (Φ_bbᵀ, Φ_abᵀ) (relative)",
+                    diff,
+                    GAIN_TOLERANCE,
+                    diff <= GAIN_TOLERANCE,
+                )
+            )
+        else:
+            checks.append(Check("discrete: L_r vs scipy.signal.place_poles", None, None, None, why))
+    res = pole_residual(np.linalg.eigvals(Pbb - Lr @ Pab), zr)
+    tol = eigenvalue_tolerance(zr)
+    checks.append(
+        Check(
+            "discrete: eigenvalues of Φ_bb − L_r Φ_ab vs e^(sT) of the reduced observer poles",
+            res,
+            tol,
+            res <= tol,
+        )
+    )
+    Ahat = Pbb - Lr @ Pab
+    Bhat = Ahat @ Lr + Pba - Lr @ Paa
+    Fhat = Gb_ - Lr @ Ga_
+    Chat = np.vstack([np.zeros((p, rest)), np.eye(rest)])
+    Dhat = np.vstack([np.eye(p), Lr])
+    return DiscreteReduced(
+        T=Tm,
+        T_inverse=Ti,
+        Phi_aa=Paa,
+        Phi_ab=Pab,
+        Phi_ba=Pba,
+        Phi_bb=Pbb,
+        Gamma_a=Ga_,
+        Gamma_b=Gb_,
+        L=Lr,
+        poles=poles,
+        poles_z=zr,
+        pole_rule=rule,
+        observer_matrix=Ahat,
+        output_input=Bhat,
+        control_input=Fhat,
+        estimate_from_state=Ti @ Chat,
+        estimate_from_output=Ti @ Dhat,
     )
 
 
@@ -928,6 +1279,14 @@ class ControllerRunner:
         self._C = equations.output_state.tolist()
         self._Dy = equations.output_measurement.tolist()
         self._Dr = equations.output_reference[:, 0].tolist()
+        self._Br = (
+            None if equations.reference_input is None else equations.reference_input[:, 0].tolist()
+        )
+        self._Baw = (
+            None
+            if equations.anti_windup is None or u_max is None
+            else equations.anti_windup.tolist()
+        )
         self.state = [0.0] * equations.state_matrix.shape[0]
 
     def reset(self, state=None) -> None:
@@ -940,18 +1299,21 @@ class ControllerRunner:
         y = [float(v) for v in np.atleast_1d(y)]
         r = float(r)
         u = []
+        excess = []  # demanded minus applied input, for the anti-windup
         for i in range(len(self._C)):
             acc = self._Dr[i] * r
             for j, c in enumerate(self._C[i]):
                 acc += c * x[j]
             for j, c in enumerate(self._Dy[i]):
                 acc += c * y[j]
+            demanded = acc
             if self.u_max is not None:
                 if acc > self.u_max:
                     acc = self.u_max
                 elif acc < -self.u_max:
                     acc = -self.u_max
             u.append(acc)
+            excess.append(demanded - acc)
         nxt = []
         for i in range(len(x)):
             acc = 0.0
@@ -961,6 +1323,11 @@ class ControllerRunner:
                 acc += c * y[j]
             for j, c in enumerate(self._Bu[i]):
                 acc += c * u[j]
+            if self._Br is not None:
+                acc += self._Br[i] * r
+            if self._Baw is not None:
+                for j, c in enumerate(self._Baw[i]):
+                    acc += c * excess[j]
             nxt.append(acc)
         self.state = nxt
         return np.array(u)
@@ -999,8 +1366,8 @@ def sampled_data_study(
 
     if digital is None:
         digital = getattr(d, "discrete", None) or digital_controller(d)
-    if form not in OBSERVER_FORMS:
-        raise ValueError(f"form must be one of {OBSERVER_FORMS}, got {form!r}")
+    if form not in digital.equations:
+        raise ValueError(f"form must be one of {tuple(digital.equations)}, got {form!r}")
     design = d.design
     A, B, C, D = d.plant.A, d.plant.B, d.plant.C, d.plant.D
     n, m, p = A.shape[0], B.shape[1], C.shape[0]
@@ -1017,7 +1384,7 @@ def sampled_data_study(
     Ph, Gh = numeric_zero_order_hold(A, B, h)
 
     runner = ControllerRunner(eq, u_max=u_max)
-    runner.reset(x0)
+    runner.reset(matched_state(digital, form, x0))
     Mi = np.linalg.inv(np.eye(m) - eq.output_measurement @ D)
     x = x0.copy()
     fine_t, fine_y, fine_u, fine_x = [], [], [], []
@@ -1080,15 +1447,18 @@ def sampled_data_study(
         horizon=float(grid[-1]),
         method=f"exact plant stepping, {substeps} steps per sample, ZOH input",
     )
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", GainsmithWarning)
-        cont = simulate_step(
-            model,
-            reference=r,
-            x0=x0,
-            horizon=float(grid[-1]),
-            samples=min(20001, max(2001, grid.size)),
-        )
+    if digital.integral is None and form != "reduced":
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", GainsmithWarning)
+            cont = simulate_step(
+                model,
+                reference=r,
+                x0=x0,
+                horizon=float(grid[-1]),
+                samples=min(20001, max(2001, grid.size)),
+            )
+    else:
+        cont = _continuous_design_response(d, digital, form, x0, r, grid)
     return SampledDataStudy(
         form=form,
         time=grid,
@@ -1105,6 +1475,126 @@ def sampled_data_study(
         final_value=final,
         substeps=substeps,
         notes=tuple(notes),
+    )
+
+
+def matched_state(digital: DigitalController, form: str, x0) -> np.ndarray:
+    """The controller state ξ whose estimate equals the plant state ``x0`` (integrator at 0).
+
+    Predictor and current forms: ``x̂ = x̄ = x0``; reduced form: ``η = (T x0)_b − L_r C x0``.
+    """
+    x0 = np.asarray(x0, dtype=float)
+    eq = digital.equations[form]
+    if form == "reduced" and digital.reduced is not None:
+        red = digital.reduced
+        p = red.L.shape[1]
+        xb = red.T @ x0
+        xi = xb[p:] - red.L @ xb[:p]
+    else:
+        xi = x0.copy()
+    if eq.integrator_index is not None:
+        xi = np.append(xi, 0.0)
+    return xi
+
+
+def continuous_equations(d: Derivation, form: str) -> DifferenceEquations:
+    """The continuous design as asked, in the same layout: ``ξ' = A_o ξ + B_oy y + …``.
+
+    Full-order observer (``form`` "current" or "predictor") or the reduced-order observer
+    (``form`` "reduced", from ``d.reduced_observer``); integral action from ``d.integral``
+    (``x_I' = y_t − r``), else the reference gain.  Used to draw the continuous design next to
+    the sampled-data loop.
+    """
+    A, B, C, D = d.plant.A, d.plant.B, d.plant.C, d.plant.D
+    n, m = B.shape
+    N = d.reference.value if d.reference is not None else np.zeros((m, 1))
+    idx = d.reference.tracked_index if d.reference is not None else d.design.tracking.output
+    ia = getattr(d, "integral", None)
+    integral = None
+    if ia is not None:
+        integral = DiscreteIntegral(
+            Phi_augmented=ia.A_augmented,
+            Gamma_augmented=ia.B_augmented,
+            K=ia.K,
+            integral_gain=ia.integral_gain,
+            K_augmented=ia.K_augmented,
+            integral_pole=complex(ia.integral_pole),
+            integral_pole_z=complex(ia.integral_pole),
+            pole_rule=ia.pole_rule,
+            tracking_time=1.0 / abs(complex(ia.integral_pole)),
+            back_calculation=np.zeros((1, m)),
+            method=ia.method,
+        )
+    eq = _equations(
+        "predictor" if form != "reduced" else "reduced",
+        A,
+        B,
+        C,
+        D,
+        d.K.value,
+        d.L.value,
+        None,
+        N,
+        1.0,
+        reduced=getattr(d, "reduced_observer", None) if form == "reduced" else None,
+        integral=integral,
+        tracked=idx,
+    )
+    if eq.integrator_index is not None:  # x_I' = y_t − r: no "x_I +" of the running sum
+        Ao = eq.state_matrix.copy()
+        Ao[eq.integrator_index, eq.integrator_index] = 0.0
+        eq = dataclasses.replace(eq, state_matrix=Ao, anti_windup=None, sample_time=0.0)
+    return eq
+
+
+def _continuous_design_response(d, digital, form, x0, r, grid):
+    """The continuous design (integral action and/or reduced observer) on the same grid."""
+    from ._simulate import Response
+
+    A, B, C, D = d.plant.A, d.plant.B, d.plant.C, d.plant.D
+    m = B.shape[1]
+    eq = continuous_equations(d, form)
+    F, G = _sampled_loop(eq, A, B, C, D)
+    Mi = np.linalg.inv(np.eye(m) - eq.output_measurement @ D)
+    n = A.shape[0]
+    h = float(grid[1] - grid[0])
+    nz = F.shape[0]
+    M = np.zeros((nz + 1, nz + 1))
+    M[:nz, :nz] = F * h
+    M[:nz, nz:] = G * h
+    E = scipy.linalg.expm(M)
+    Ph, Gh = E[:nz, :nz], E[:nz, nz:]
+    w = np.concatenate([x0, matched_state(digital, form, x0)])
+    W = np.empty((grid.size, nz))
+    for k in range(grid.size):
+        W[k] = w
+        w = Ph @ w + Gh[:, 0] * r
+        if not np.all(np.abs(w) < 1e12):
+            W = W[: k + 1]
+            break
+    X, XI = W[:, :n], W[:, n:]
+    U = (
+        X @ (eq.output_measurement @ C).T + XI @ eq.output_state.T + r * eq.output_reference[:, 0]
+    ) @ Mi.T
+    Y = X @ C.T + U @ D.T
+    idx = digital.tracked_index
+    poles = np.linalg.eigvals(F)
+    return Response(
+        name="continuous design",
+        slug="continuous",
+        time=grid[: W.shape[0]],
+        output=Y,
+        tracked_output=Y[:, idx],
+        control=U,
+        state=X,
+        estimate=None,
+        estimation_error_norm=None,
+        saturated=False,
+        reference=r,
+        stable=bool(np.max(poles.real) < 0),
+        final_value=r if digital.integral is not None else None,
+        horizon=float(grid[W.shape[0] - 1]),
+        method="exact stepping of the continuous loop (matrix exponential)",
     )
 
 
@@ -1138,11 +1628,72 @@ def _c_matrix(name: str, M: np.ndarray) -> str:
     return f"static const double {name}[{r}][{c}] = {{\n" + ",\n".join(rows) + "\n};\n"
 
 
+_FORM_WORDS = {
+    "current": "current estimator",
+    "predictor": "predictor observer",
+    "reduced": "reduced-order observer",
+}
+
+
+def _ascii_equations(digital: DigitalController, form: str, anti_windup: bool) -> list[str]:
+    """The controller's equations in plain ASCII, one per line, for comments and docstrings."""
+    law = "u[k] = -K x_hat[k] + N r[k]"
+    if digital.integral is not None:
+        law = "u[k] = -K x_hat[k] - k_i x_I[k]"
+    if form == "predictor":
+        lines = [
+            law,
+            "x_hat[k+1] = (Phi - Lp C) x_hat[k] + (Gamma - Lp D) u[k] + Lp y[k]",
+        ]
+    elif form == "current":
+        lines = [
+            "x_hat[k] = x_bar[k] + Lc (y[k] - C x_bar[k] - D u[k])",
+            law,
+            "x_bar[k+1] = Phi x_hat[k] + Gamma u[k]",
+        ]
+    else:
+        lines = [
+            "y_bar[k] = y[k] - D u[k]; x_hat[k] = inv(T) [y_bar[k]; eta[k] + Lr y_bar[k]]",
+            law,
+            "eta[k+1] = A_hat eta[k] + B_hat y_bar[k] + F_hat u[k]  (reduced-order observer)",
+        ]
+    if digital.integral is not None:
+        line = "x_I[k+1] = x_I[k] + T (y_t[k] - r[k])"
+        if anti_windup:
+            line += " + T (u_d[k] - u[k]) / (k_i T_t)"
+        lines.append(line)
+        if anti_windup:
+            lines.append(
+                "  (back-calculation anti-windup: u_d is the demanded input before the limit,"
+                f" T_t = {digital.integral.tracking_time!r} s)"
+            )
+    return lines
+
+
+def _checked_form(digital: DigitalController, form: str | None) -> str:
+    form = digital.default_form if form is None else form
+    if form not in digital.equations:
+        why = ' (the reduced form needs [observer] kind = "reduced")' if form == "reduced" else ""
+        raise RenderError(
+            f"unknown observer form {form!r}; expected one of {tuple(digital.equations)}{why}"
+        )
+    return form
+
+
+def _state_lines(eq: DifferenceEquations) -> list[str]:
+    names = eq.state_names or tuple(f"xi[{i}]" for i in range(eq.state_matrix.shape[0]))
+    out = []
+    for i, nm in enumerate(names):
+        what = " (integral of y_t - r)" if i == eq.integrator_index else ""
+        out.append(f"xi[{i}] = {nm}{what}")
+    return out
+
+
 def c_controller_files(
     digital: DigitalController,
     *,
     name: str = "controller",
-    form: str = "current",
+    form: str | None = None,
     u_max: float | None = None,
     title: str = "",
 ) -> dict[str, bytes]:
@@ -1151,15 +1702,21 @@ def c_controller_files(
     The code has a fixed sample time, no allocation and no library calls: a state struct,
     ``<prefix>_reset(state)`` and ``double <prefix>_step(state, y, r)`` returning ``u[k]``
     (``y`` is a ``double`` for one output, ``const double y[P]`` otherwise).  With ``u_max``
-    the output is limited inside ``step`` and the observer is fed the limited value.
+    the output is limited inside ``step`` and the observer is fed the limited value; with
+    integral action the integrator is then corrected by back-calculation (anti-windup, see
+    :class:`DiscreteIntegral`).
+
+    Parameters
+    ----------
+    form : {"current", "predictor", "reduced"}, optional
+        Default :attr:`DigitalController.default_form`.
 
     Raises
     ------
     RenderError
-        Several inputs (the C interface returns one u), or an unknown form.
+        Several inputs (the C interface returns one u), or an unknown or unavailable form.
     """
-    if form not in OBSERVER_FORMS:
-        raise RenderError(f"unknown observer form {form!r}; expected one of {OBSERVER_FORMS}")
+    form = _checked_form(digital, form)
     eq = digital.equations[form]
     n = eq.state_matrix.shape[0]
     m = eq.output_state.shape[0]
@@ -1170,20 +1727,24 @@ def c_controller_files(
     PRE = pre.upper()
     guard = f"{PRE}_H"
     y_param = "double y" if p == 1 else f"const double y[{PRE}_OUTPUTS]"
-    equations = (
-        "x_hat[k+1] = (Phi - Lp C) x_hat[k] + (Gamma - Lp D) u[k] + Lp y[k];"
-        "  u[k] = -K x_hat[k] + N r[k]"
-        if form == "predictor"
-        else "x_hat[k] = x_bar[k] + Lc (y[k] - C x_bar[k] - D u[k]);"
-        "  u[k] = -K x_hat[k] + N r[k];  x_bar[k+1] = Phi x_hat[k] + Gamma u[k]"
-    )
+    anti_windup = u_max is not None and eq.anti_windup is not None
+    equations = "\n".join(f" *   {line}" for line in _ascii_equations(digital, form, anti_windup))
+    states = "\n".join(f" *   {line}" for line in _state_lines(eq))
+    extra_terms = ""
+    if eq.reference_input is not None:
+        extra_terms += " + Bor r[k]"
+    if anti_windup:
+        extra_terms += " + Baw (u_d[k] - u[k])"
+    limit_macro = "" if u_max is None else f"#define {PRE}_U_MAX {_c_number(u_max)}\n"
     header = f"""/* {_comment_text(title or "gainsmith digital controller")}
  *
- * Generated by gainsmith.  Digital observer-based state feedback, {form} form:
- *   {equations}
+ * Generated by gainsmith.  Digital observer-based state feedback, {_FORM_WORDS[form]}:
+{equations}
  * implemented as the difference equations
  *   u[k]     = Cc xi[k] + Dcy y[k] + Dcr r[k]          (limited to +/-U_MAX if defined)
- *   xi[k+1]  = Ao xi[k] + Boy y[k] + Bou u[k]           (with the applied u)
+ *   xi[k+1]  = Ao xi[k] + Boy y[k] + Bou u[k]{extra_terms}   (with the applied u)
+ * with the controller state
+{states}
  * Call {pre}_step exactly once every {PRE}_SAMPLE_TIME seconds, right after sampling y,
  * and apply the returned u through a zero-order hold until the next call.
  *
@@ -1196,12 +1757,12 @@ def c_controller_files(
 #define {PRE}_SAMPLE_TIME {_c_number(digital.sample_time)}
 #define {PRE}_STATES {n}
 #define {PRE}_OUTPUTS {p}
-
+{limit_macro}
 typedef struct {{
     double xi[{PRE}_STATES];
 }} {pre}_state;
 
-/* Set the controller state to zero (estimate of a plant at rest). */
+/* Set the controller state to zero (estimate of a plant at rest, integrator empty). */
 void {pre}_reset({pre}_state *state);
 
 /* One sample: measurement y[k] and reference r[k] in, u[k] out. */
@@ -1211,10 +1772,15 @@ double {pre}_step({pre}_state *state, {y_param}, double r);
 """
     y_at = "y" if p == 1 else "y[j]"
     limit = ""
+    demanded_decl = ""
+    demanded_set = ""
+    if anti_windup:
+        demanded_decl = "    double u_demanded;\n"
+        demanded_set = "    u_demanded = u;\n"
     if u_max is not None:
         limit = (
-            f"    if (u > {_c_number(u_max)}) {{\n        u = {_c_number(u_max)};\n"
-            f"    }} else if (u < {_c_number(-u_max)}) {{\n        u = {_c_number(-u_max)};\n    }}\n"
+            f"    if (u > {PRE}_U_MAX) {{\n        u = {PRE}_U_MAX;\n"
+            f"    }} else if (u < -{PRE}_U_MAX) {{\n        u = -{PRE}_U_MAX;\n    }}\n"
         )
     loop_y_out = (
         f"    for (j = 0; j < {PRE}_OUTPUTS; ++j) {{\n        u += Dcy[0][j] * {y_at};\n    }}\n"
@@ -1223,15 +1789,23 @@ double {pre}_step({pre}_state *state, {y_param}, double r);
         f"        for (j = 0; j < {PRE}_OUTPUTS; ++j) {{\n"
         f"            acc += Boy[i][j] * {y_at};\n        }}\n"
     )
+    extra_state = ""
+    tables = ""
+    if eq.reference_input is not None:
+        tables += _c_matrix("Bor", eq.reference_input) + "\n"
+        extra_state += "        acc += Bor[i][0] * r;\n"
+    if anti_windup:
+        tables += _c_matrix("Baw", eq.anti_windup) + "\n"
+        extra_state += "        acc += Baw[i][0] * (u_demanded - u);\n"
     source = f"""/* {_comment_text(title or "gainsmith digital controller")}: generated by gainsmith
- * ({form} form, sample time {digital.sample_time!r} s).  See {pre}.h.
+ * ({_FORM_WORDS[form]}, sample time {digital.sample_time!r} s).  See {pre}.h.
  */
 #include "{pre}.h"
 
 {_c_matrix("Ao", eq.state_matrix)}
 {_c_matrix("Boy", eq.measurement_matrix)}
 {_c_matrix("Bou", eq.control_matrix)}
-{_c_matrix("Cc", eq.output_state)}
+{tables}{_c_matrix("Cc", eq.output_state)}
 {_c_matrix("Dcy", eq.output_measurement)}
 static const double Dcr = {_c_number(eq.output_reference[0, 0])};
 
@@ -1247,18 +1821,18 @@ double {pre}_step({pre}_state *state, {y_param}, double r)
 {{
     double next[{PRE}_STATES];
     double u = Dcr * r;
-    double acc;
+{demanded_decl}    double acc;
     int i, j;
     for (j = 0; j < {PRE}_STATES; ++j) {{
         u += Cc[0][j] * state->xi[j];
     }}
-{loop_y_out}{limit}    for (i = 0; i < {PRE}_STATES; ++i) {{
+{loop_y_out}{demanded_set}{limit}    for (i = 0; i < {PRE}_STATES; ++i) {{
         acc = 0.0;
         for (j = 0; j < {PRE}_STATES; ++j) {{
             acc += Ao[i][j] * state->xi[j];
         }}
 {loop_y_state}        acc += Bou[i][0] * u;
-        next[i] = acc;
+{extra_state}        next[i] = acc;
     }}
     for (i = 0; i < {PRE}_STATES; ++i) {{
         state->xi[i] = next[i];
@@ -1267,3 +1841,122 @@ double {pre}_step({pre}_state *state, {y_param}, double r)
 }}
 """
     return {f"{pre}.h": header.encode("ascii"), f"{pre}.c": source.encode("ascii")}
+
+
+def _py_tuple(M: np.ndarray) -> str:
+    rows = ["(" + ", ".join(repr(float(v)) for v in row) + ",)" for row in np.atleast_2d(M)]
+    return "(\n    " + ",\n    ".join(rows) + ",\n)"
+
+
+def python_controller_source(
+    digital: DigitalController,
+    *,
+    name: str = "controller",
+    form: str | None = None,
+    u_max: float | None = None,
+    title: str = "",
+) -> dict[str, bytes]:
+    """The digital controller as a standalone Python module ``<prefix>.py`` (no imports).
+
+    The Python counterpart of :func:`c_controller_files`: ``reset()`` returns a zero state
+    (a list), ``step(state, y, r)`` returns ``u[k]`` and advances ``state`` in place, with the
+    same arithmetic in the same order as the C code (and as :class:`ControllerRunner`).
+    ``y`` is a number for one output, a sequence otherwise.
+
+    Raises
+    ------
+    RenderError
+        Several inputs, or an unknown or unavailable form.
+    """
+    form = _checked_form(digital, form)
+    eq = digital.equations[form]
+    m = eq.output_state.shape[0]
+    p = eq.measurement_matrix.shape[1]
+    if m != 1:
+        raise RenderError("the Python controller export handles one input; this plant has several")
+    pre = _c_prefix(name)
+    anti_windup = u_max is not None and eq.anti_windup is not None
+    doc = [
+        f"{_comment_text(title or 'gainsmith digital controller')}: generated by gainsmith;"
+        " do not edit.",
+        "",
+        f"Digital observer-based state feedback, {_FORM_WORDS[form]}:",
+        *("    " + line for line in _ascii_equations(digital, form, anti_windup)),
+        "implemented as the difference equations",
+        "    u[k]    = Cc xi[k] + Dcy y[k] + Dcr r[k]   (limited to +/-U_MAX unless None)",
+        "    xi[k+1] = Ao xi[k] + Boy y[k] + Bou u[k]"
+        + (" + Bor r[k]" if eq.reference_input is not None else "")
+        + (" + Baw (u_d[k] - u[k])" if anti_windup else ""),
+        "with the controller state",
+        *("    " + line for line in _state_lines(eq)),
+        "",
+        "Usage: state = reset(); then every SAMPLE_TIME seconds u = step(state, y, r).",
+        "",
+        "Caution: before this code drives a machine that moves, heats or flies, run it against",
+        "the simulation, then on the machine with reduced limits and an independent emergency",
+        "stop.",
+    ]
+    text = "\n".join(doc).replace("\\", "/").replace('"', "'")
+    out = ['"""' + text + '\n"""', ""]
+    out.append(f"SAMPLE_TIME = {digital.sample_time!r}")
+    out.append(f"STATES = {eq.state_matrix.shape[0]}")
+    out.append(f"OUTPUTS = {p}")
+    out.append(f"U_MAX = {None if u_max is None else float(u_max)!r}")
+    out.append(f"AO = {_py_tuple(eq.state_matrix)}")
+    out.append(f"BOY = {_py_tuple(eq.measurement_matrix)}")
+    out.append(f"BOU = {_py_tuple(eq.control_matrix)}")
+    if eq.reference_input is not None:
+        out.append(f"BOR = {_py_tuple(eq.reference_input)}")
+    if anti_windup:
+        out.append(f"BAW = {_py_tuple(eq.anti_windup)}")
+    out.append(f"CC = {_py_tuple(eq.output_state)}")
+    out.append(f"DCY = {_py_tuple(eq.output_measurement)}")
+    out.append(f"DCR = {float(eq.output_reference[0, 0])!r}")
+    out += [
+        "",
+        "",
+        "def reset():",
+        '    """A zero controller state (estimate of a plant at rest, integrator empty)."""',
+        "    return [0.0] * STATES",
+        "",
+        "",
+        "def step(state, y, r):",
+        '    """One sample: returns u[k] and advances ``state`` (a list) in place."""',
+        "    ys = [float(y)] if OUTPUTS == 1 else [float(v) for v in y]",
+        "    r = float(r)",
+        "    u = DCR * r",
+        "    for j in range(STATES):",
+        "        u += CC[0][j] * state[j]",
+        "    for j in range(OUTPUTS):",
+        "        u += DCY[0][j] * ys[j]",
+    ]
+    if anti_windup:
+        out.append("    u_demanded = u")
+    if u_max is not None:
+        out += [
+            "    if u > U_MAX:",
+            "        u = U_MAX",
+            "    elif u < -U_MAX:",
+            "        u = -U_MAX",
+        ]
+    out += [
+        "    nxt = []",
+        "    for i in range(STATES):",
+        "        acc = 0.0",
+        "        for j in range(STATES):",
+        "            acc += AO[i][j] * state[j]",
+        "        for j in range(OUTPUTS):",
+        "            acc += BOY[i][j] * ys[j]",
+        "        acc += BOU[i][0] * u",
+    ]
+    if eq.reference_input is not None:
+        out.append("        acc += BOR[i][0] * r")
+    if anti_windup:
+        out.append("        acc += BAW[i][0] * (u_demanded - u)")
+    out += [
+        "        nxt.append(acc)",
+        "    state[:] = nxt",
+        "    return u",
+        "",
+    ]
+    return {f"{pre}.py": "\n".join(out).encode("ascii")}

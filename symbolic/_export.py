@@ -171,6 +171,14 @@ class GainFormulas:
     controller_poles: tuple[complex, ...]
     observer_poles: tuple[complex, ...]
     tracked_output: str
+    #: Further closed forms the design asks for, ``(name, matrix, description)``: integral
+    #: action (``K_integral`` = [K, k_i]) and the reduced-order observer (``Ke``, ``A_hat``,
+    #: ``B_hat``, ``F_hat``, ``estimate_from_state``, ``estimate_from_output``).
+    extra: tuple[tuple[str, sp.Matrix, str], ...] = ()
+    #: Why a part the design asks for is not exported (no closed form), one line each.
+    omitted: tuple[str, ...] = ()
+    integral_pole: complex | None = None
+    reduced_poles: tuple[complex, ...] = ()
 
     @property
     def parameters(self) -> tuple[Parameter, ...]:
@@ -181,18 +189,39 @@ class GainFormulas:
         """(states n, inputs m, outputs p)."""
         return self.K.shape[1], self.K.shape[0], self.L.shape[1]
 
-    def entries(self, parts: Sequence[str] = ("K", "L", "reference_gain")) -> list[sp.Expr]:
-        """The formulas of ``parts``, row-major, in the order given."""
+    @property
+    def parts(self) -> tuple[str, ...]:
+        """Every part exported: K, L, reference_gain, then the extra matrices."""
+        return ("K", "L", "reference_gain") + tuple(name for name, _m, _t in self.extra)
+
+    def part_shape(self, part: str) -> tuple[int, int] | None:
+        """(rows, columns) of a matrix part; None for the scalar reference gain."""
+        if part == "K":
+            return self.K.shape
+        if part == "L":
+            return self.L.shape
+        if part == "reference_gain":
+            return None
+        for name, M, _t in self.extra:
+            if name == part:
+                return M.shape
+        raise ValueError(f"unknown part {part!r}: expected one of {self.parts}")
+
+    def entries(self, parts: Sequence[str] | None = None) -> list[sp.Expr]:
+        """The formulas of ``parts`` (default: :attr:`parts`), row-major, in the order given."""
+        extra = {name: M for name, M, _t in self.extra}
         out: list[sp.Expr] = []
-        for part in parts:
+        for part in self.parts if parts is None else parts:
             if part == "K":
                 out.extend(self.K)
             elif part == "L":
                 out.extend(self.L)
             elif part == "reference_gain":
                 out.append(self.reference_gain)
+            elif part in extra:
+                out.extend(extra[part])
             else:
-                raise ValueError(f"unknown part {part!r}: expected 'K', 'L' or 'reference_gain'")
+                raise ValueError(f"unknown part {part!r}: expected one of {self.parts}")
         return out
 
 
@@ -212,6 +241,8 @@ class GainValues:
     factor_index: np.ndarray | None = None  # (...) int16
     #: value of every validity factor, (factors, ...)
     factor_values: np.ndarray | None = None
+    #: the extra parts requested (``K_integral``, ``Ke``, ...), name -> (..., rows, cols)
+    extra: Mapping[str, np.ndarray] | None = None
 
     @property
     def valid(self) -> np.ndarray:
@@ -386,13 +417,16 @@ def gain_formulas(d: Derivation) -> GainFormulas:
     add(CODE_NOT_FINITE, den_c, "a denominator of det of the controllability matrix")
     add(CODE_NOT_FINITE, den_o, "a denominator of det of the observability matrix")
     add(CODE_NOT_FINITE, den_z, "a denominator of z(0)")
-    for name, entries in (("K", K), ("L", L), ("N", [N])):
+    extra, omitted = _extended_parts(d)
+    for name, entries in (("K", K), ("L", L), ("N", [N])) + tuple((nm, M) for nm, M, _t in extra):
         dens: list[sp.Expr] = []
         for e in entries:
             dens.extend(_denominator_factors(e))
         add(CODE_NOT_FINITE, dens, f"a denominator of {name}")
 
     tracked = design.plant.outputs[design.tracking.output].name
+    ia = getattr(d, "integral", None)
+    ro = getattr(d, "reduced_observer", None)
     return GainFormulas(
         design=design,
         K=K,
@@ -402,7 +436,63 @@ def gain_formulas(d: Derivation) -> GainFormulas:
         controller_poles=tuple(complex(z) for z in d.controller_poles.values),
         observer_poles=tuple(complex(z) for z in d.observer_poles.values),
         tracked_output=tracked,
+        extra=extra,
+        omitted=omitted,
+        integral_pole=None if ia is None else complex(ia.integral_pole),
+        reduced_poles=() if ro is None else tuple(complex(z) for z in ro.poles),
     )
+
+
+def _extended_parts(
+    d: Derivation,
+) -> tuple[tuple[tuple[str, sp.Matrix, str], ...], tuple[str, ...]]:
+    """Closed forms of integral action and of the reduced-order observer, when asked for."""
+    extra: list[tuple[str, sp.Matrix, str]] = []
+    omitted: list[str] = []
+    ia = getattr(d, "integral", None)
+    if ia is not None:
+        if ia.closed_form is not None:
+            extra.append(
+                (
+                    "K_integral",
+                    ia.closed_form.applyfunc(_numbers_as_floats),
+                    "[K, k_i] of integral action: u = -K x_hat - k_i x_I, x_I' = y_t - r",
+                )
+            )
+        else:
+            omitted.append(f"integral action [K, k_i]: no closed form ({ia.method})")
+    ro = getattr(d, "reduced_observer", None)
+    if ro is not None:
+        forms = ro.observer_closed_form
+        if ro.Ke_closed_form is not None and forms is not None and ro.order > 0:
+            p, rest = ro.measured, ro.order
+            Ti = _inverse_matrix(ro.T_closed_form)
+            Chat = sp.zeros(p, rest).col_join(sp.eye(rest))
+            Dhat = sp.eye(p).col_join(ro.Ke_closed_form)
+            tidy = lambda M: M.applyfunc(  # noqa: E731
+                lambda e: _numbers_as_floats(sp.cancel(e) if e.free_symbols else e)
+            )
+            extra += [
+                ("Ke", tidy(ro.Ke_closed_form), "reduced-order observer gain K_e"),
+                ("A_hat", tidy(forms["A_hat"]), "eta' = A_hat eta + B_hat y_bar + F_hat u"),
+                ("B_hat", tidy(forms["B_hat"]), "(y_bar = y - D u, the measured states)"),
+                ("F_hat", tidy(forms["F_hat"]), ""),
+                (
+                    "estimate_from_state",
+                    tidy(Ti * Chat),
+                    "x_hat = estimate_from_state eta + estimate_from_output y_bar",
+                ),
+                ("estimate_from_output", tidy(Ti * Dhat), ""),
+            ]
+        elif ro.order > 0:
+            omitted.append(f"reduced-order observer: no closed form ({ro.method})")
+    return tuple(extra), tuple(omitted)
+
+
+def _inverse_matrix(M: sp.Matrix) -> sp.Matrix:
+    from sympy.polys.matrices import DomainMatrix
+
+    return DomainMatrix.from_Matrix(sp.Matrix(M)).to_field().inv().to_Matrix()
 
 
 def common_subexpressions(
@@ -727,6 +817,7 @@ def _header_lines(formulas: GainFormulas, language: str, file_name: str) -> list
         "Requested observer poles (eigenvalues of A - L C):",
         f"    {_poles_text(formulas.observer_poles)}",
         "",
+        *_extra_header_lines(formulas),
         "Sign convention: u = -K x_hat + N r, with the observer",
         "    x_hat' = A x_hat + B u + L (y - C x_hat - D u),",
         "r the reference for the tracked output and N the reference gain (unit steady-state",
@@ -737,6 +828,35 @@ def _header_lines(formulas: GainFormulas, language: str, file_name: str) -> list
         "",
     ]
     return lines
+
+
+def _extra_header_lines(formulas: GainFormulas) -> list[str]:
+    """What the extra parts are (integral action, reduced-order observer), and what is not
+    exported for lack of a closed form."""
+    lines: list[str] = []
+    names = [name for name, _m, _t in formulas.extra]
+    if "K_integral" in names:
+        lines += [
+            "Integral action: K_integral = [K, k_i] places the controller poles and the",
+            f"integral pole {_pole_text(formulas.integral_pole or 0j)} (eigenvalues of A_a - B_a [K, k_i],",
+            "A_a = [[A, 0], [C_t, 0]], B_a = [B; D_t]); u = -K x_hat - k_i x_I with",
+            "x_I' = y_t - r. Codes 1 and 3 also mean that integral action is impossible",
+            "(det of the augmented controllability matrix = z(0) det of the plant's).",
+            "With an input limit u_max, correct the integrator by back-calculation:",
+            "x_I' = (y_t - r) + (u_demanded - u_applied) / (k_i T_t), T_t = 1/|integral pole|.",
+            "",
+        ]
+    if "Ke" in names:
+        lines += [
+            "Reduced-order observer (Luenberger): eigenvalues of A_bb - Ke A_ab at",
+            f"    {_poles_text(formulas.reduced_poles)};",
+            "eta' = A_hat eta + B_hat y_bar + F_hat u, y_bar = y - D u,",
+            "x_hat = estimate_from_state eta + estimate_from_output y_bar.",
+            "",
+        ]
+    for text in formulas.omitted:
+        lines += _wrap("Not exported: " + text, 92) + [""]
+    return [_comment_text(line) if line else "" for line in lines]
 
 
 def _wrap(text: str, width: int, indent: str = "", hanging: str = "") -> list[str]:
@@ -855,6 +975,9 @@ def c_sources(formulas: GainFormulas) -> dict[str, bytes]:
     h.append(f"    double K[{up}_INPUTS][{up}_STATES];  /* state-feedback gain */")
     h.append(f"    double L[{up}_STATES][{up}_OUTPUTS]; /* observer gain */")
     h.append("    double reference_gain;            /* N */")
+    for name, M, what in formulas.extra:
+        note = f" /* {_comment_text(what)} */" if what else ""
+        h.append(f"    double {name}[{M.shape[0]}][{M.shape[1]}];{note}")
     h.append(f"}} {out_type};")
     h.append("")
     h.append(f"/* Computes K, L and N at the parameter values *p into *out; returns {up}_OK (0) or")
@@ -908,6 +1031,8 @@ def c_sources(formulas: GainFormulas) -> dict[str, bytes]:
     targets = [f"r.K[{i}][{j}]" for i in range(m) for j in range(n)]
     targets += [f"r.L[{i}][{j}]" for i in range(n) for j in range(pp)]
     targets.append("r.reference_gain")
+    for name, M, _what in formulas.extra:
+        targets += [f"r.{name}[{i}][{j}]" for i in range(M.shape[0]) for j in range(M.shape[1])]
     for target, e in zip(targets, reduced, strict=True):
         c.append(f"    {target} = {printer.doprint(e)};")
     c.append("")
@@ -921,6 +1046,13 @@ def c_sources(formulas: GainFormulas) -> dict[str, bytes]:
     c.append(f"        for (j = 0; j < {up}_OUTPUTS; ++j) {{")
     c.append(f"            if (!isfinite(r.L[i][j])) {{\n                return {up}_NOT_FINITE;")
     c.append("            }\n        }\n    }")
+    for name, M, _what in formulas.extra:
+        c.append(f"    for (i = 0; i < {M.shape[0]}; ++i) {{")
+        c.append(f"        for (j = 0; j < {M.shape[1]}; ++j) {{")
+        c.append(
+            f"            if (!isfinite(r.{name}[i][j])) {{\n                return {up}_NOT_FINITE;"
+        )
+        c.append("            }\n        }\n    }")
     c.append("    *out = r;")
     c.append(f"    return {up}_OK;")
     c.append("}")
@@ -1056,6 +1188,8 @@ def python_source(formulas: GainFormulas) -> dict[str, bytes]:
     out.append(f"    _K = numpy.empty(_shape + ({m}, {n}))")
     out.append(f"    _L = numpy.empty(_shape + ({n}, {pp}))")
     out.append("    _N = numpy.empty(_shape)")
+    for name, M, _what in formulas.extra:
+        out.append(f"    _{name} = numpy.empty(_shape + ({M.shape[0]}, {M.shape[1]}))")
     out.append("    _code = numpy.zeros(_shape, dtype=numpy.int8)")
     out.append('    with numpy.errstate(divide="ignore", invalid="ignore", over="ignore"):')
     if formulas.factors:
@@ -1075,12 +1209,16 @@ def python_source(formulas: GainFormulas) -> dict[str, bytes]:
     targets = [f"_K[..., {i}, {j}]" for i in range(m) for j in range(n)]
     targets += [f"_L[..., {i}, {j}]" for i in range(n) for j in range(pp)]
     targets.append("_N[...]")
+    for name, M, _what in formulas.extra:
+        targets += [f"_{name}[..., {i}, {j}]" for i in range(M.shape[0]) for j in range(M.shape[1])]
     for target, e in zip(targets, reduced, strict=True):
         out.append(f"        {target} = {printer.doprint(e)}")
     out.append("    _finite = (")
     out.append("        numpy.isfinite(_K).all(axis=(-2, -1))")
     out.append("        & numpy.isfinite(_L).all(axis=(-2, -1))")
     out.append("        & numpy.isfinite(_N)")
+    for name, _M, _what in formulas.extra:
+        out.append(f"        & numpy.isfinite(_{name}).all(axis=(-2, -1))")
     out.append("    )")
     out.append(f"    _code[(_code == 0) & ~_finite] = {CODE_NOT_FINITE}")
     out.append("    _bad = _code != 0")
@@ -1088,6 +1226,8 @@ def python_source(formulas: GainFormulas) -> dict[str, bytes]:
     out.append("        _K[_bad] = numpy.nan")
     out.append("        _L[_bad] = numpy.nan")
     out.append("        _N[_bad] = numpy.nan")
+    for name, _M, _what in formulas.extra:
+        out.append(f"        _{name}[_bad] = numpy.nan")
     out.append("        _why = {")
     for code in (CODE_UNCONTROLLABLE, CODE_UNOBSERVABLE, CODE_NO_REFERENCE_GAIN, CODE_NOT_FINITE):
         out.append(f"            {code}: {CODE_MEANINGS[code]!a},")
@@ -1104,7 +1244,10 @@ def python_source(formulas: GainFormulas) -> dict[str, bytes]:
     out.append("            RuntimeWarning,")
     out.append("            stacklevel=2,")
     out.append("        )")
-    out.append('    return {"K": _K, "L": _L, "reference_gain": _N if _shape else _N[()]}')
+    extra_items = "".join(f', "{name}": _{name}' for name, _M, _w in formulas.extra)
+    out.append(
+        f'    return {{"K": _K, "L": _L, "reference_gain": _N if _shape else _N[()]{extra_items}}}'
+    )
     out.append("")
     return {file_name: "\n".join(out).encode("ascii")}
 
@@ -1149,7 +1292,8 @@ def gain_evaluator(
     sizes = []
     n, m, pp = formulas.shape
     for part in parts:
-        sizes.append({"K": m * n, "L": n * pp, "reference_gain": 1}[part])
+        shape_ = formulas.part_shape(part)
+        sizes.append(1 if shape_ is None else shape_[0] * shape_[1])
     factor_exprs: list[sp.Expr] = []
     if validity:
         for f in formulas.factors:
@@ -1195,10 +1339,9 @@ def gain_evaluator(
         for part, size in zip(parts, sizes, strict=True):
             block = results[offset : offset + size]
             offset += size
-            if part == "K":
-                gains[part] = np.stack(block, axis=-1).reshape(shape + (m, n))
-            elif part == "L":
-                gains[part] = np.stack(block, axis=-1).reshape(shape + (n, pp))
+            shape_ = formulas.part_shape(part)
+            if shape_ is not None:
+                gains[part] = np.stack(block, axis=-1).reshape(shape + tuple(shape_))
             else:
                 gains[part] = block[0].reshape(shape)
         code = index = factor_values = None
@@ -1230,6 +1373,7 @@ def gain_evaluator(
             code=code,
             factor_index=index,
             factor_values=factor_values,
+            extra={k: v for k, v in gains.items() if k not in ("K", "L", "reference_gain")},
         )
 
     return evaluate
@@ -1242,22 +1386,119 @@ def gain_evaluator(
 SELF_CHECK_TOLERANCE = 1e-9
 
 
+def _extra_reference(d: Derivation) -> dict[str, np.ndarray]:
+    """derive's checked values of the extra parts."""
+    out: dict[str, np.ndarray] = {}
+    if getattr(d, "integral", None) is not None:
+        out["K_integral"] = d.integral.K_augmented
+    ro = getattr(d, "reduced_observer", None)
+    if ro is not None:
+        out.update(
+            Ke=ro.Ke,
+            A_hat=ro.observer_matrix,
+            B_hat=ro.output_input,
+            F_hat=ro.control_input,
+            estimate_from_state=ro.estimate_from_state,
+            estimate_from_output=ro.estimate_from_output,
+        )
+    return out
+
+
 def _self_check(d: Derivation, formulas: GainFormulas) -> float:
     """Largest relative difference between the cse'd formulas and derive's checked values."""
-    evaluate = gain_evaluator(formulas)
+    evaluate = gain_evaluator(formulas, formulas.parts)
     got = evaluate({p.name: float(p.value) for p in d.design.parameters})
     assert d.reference is not None
     if got.code is not None and int(got.code) != CODE_OK:
         return float("inf")
-    return max(
+    diffs = [
         relative_difference(got.K, d.K.value),
         relative_difference(got.L, d.L.value),
         relative_difference(np.atleast_1d(got.reference_gain), d.reference.value.ravel()),
-    )
+    ]
+    reference = _extra_reference(d)
+    for name, value in (got.extra or {}).items():
+        diffs.append(relative_difference(value, reference[name]))
+    return max(diffs)
 
 
-def run_export(design: Design, *, lang: str, out_dir: str | Path) -> int:
-    """Derive, then write the gain formulas as C99 or Python (``gainsmith export``).
+#: The generated digital controller must reproduce the Python simulation of the sampled loop
+#: to this relative difference (same arithmetic, same order: in practice 0).
+DIGITAL_SELF_CHECK_TOLERANCE = 1e-12
+
+
+def digital_controller_files(
+    d: Derivation, *, lang: str, form: str | None = None
+) -> tuple[dict[str, bytes], float, str]:
+    """The digital controller of a derivation as C99 or Python, and its self-check.
+
+    Returns ``(files, difference, form)``: the generated Python counterpart is run on the
+    measurements of :func:`symbolic._discrete.sampled_data_study` (with the design's input
+    limit) and ``difference`` is its largest relative difference from the study's inputs.
+
+    Raises
+    ------
+    DesignFileError
+        The design has no ``[discrete] sample_time``, or the form is not available.
+    """
+    from ._discrete import c_controller_files, python_controller_source, sampled_data_study
+    from ._errors import RenderError
+
+    design = d.design
+    dc = getattr(d, "discrete", None)
+    if dc is None:
+        raise DesignFileError(
+            "missing: the digital controller needs a [discrete] table with sample_time (seconds)",
+            design.path,
+            "discrete.sample_time",
+        )
+    u_max = design.simulation.u_max
+    name = f"{c_identifier_prefix(design)}_controller"
+    title = design.title or design.slug
+    try:
+        py = python_controller_source(dc, name=name, form=form, u_max=u_max, title=title)
+        form = form or dc.default_form
+        files = (
+            c_controller_files(dc, name=name, form=form, u_max=u_max, title=title)
+            if lang == "c"
+            else py
+        )
+    except RenderError as exc:
+        raise DesignFileError(str(exc), design.path, "--form") from exc
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        study = sampled_data_study(d, dc, form=form, u_max=u_max)
+    namespace: dict = {}
+    exec(compile(next(iter(py.values())), "<generated controller>", "exec"), namespace)  # noqa: S102 (our own generated code, numbers only)
+    state = namespace["reset"]()
+    start = np.asarray(_matched(dc, form, design), dtype=float)
+    state[:] = start.tolist()
+    r = float(design.simulation.reference)
+    ys = study.sampled_output
+    got = np.array([namespace["step"](state, y[0] if y.size == 1 else list(y), r) for y in ys])
+    diff = relative_difference(got, study.controls[:, 0])
+    return files, diff, form
+
+
+def _matched(dc, form, design) -> np.ndarray:
+    from ._discrete import matched_state
+
+    n = dc.Phi.shape[0]
+    x0 = design.simulation.initial_state or [0.0] * n
+    return matched_state(dc, form, x0)
+
+
+def run_export(
+    design: Design,
+    *,
+    lang: str,
+    out_dir: str | Path,
+    digital: bool = False,
+    form: str | None = None,
+) -> int:
+    """Derive, then write the gain formulas, or the digital controller, as C99 or Python.
 
     Parameters
     ----------
@@ -1265,21 +1506,29 @@ def run_export(design: Design, *, lang: str, out_dir: str | Path) -> int:
     lang : {"c", "python"}
     out_dir : str or Path
         Created if missing; files are published atomically.
+    digital : bool
+        Write the digital controller (``[discrete] sample_time``): difference equations with
+        fixed coefficients, ``<slug>_controller.{h,c}`` or ``<slug>_controller.py``.
+        Otherwise the closed-form gains in the parameters (``<slug>_gains.*``).
+    form : {"current", "predictor", "reduced"}, optional
+        The digital controller's observer (default: "reduced" with ``[observer] kind =
+        "reduced"``, else "current").  Only with ``digital``.
 
     Returns
     -------
     int
-        0 when the exported formulas reproduce ``derive``'s values at the
-        nominal parameters (relative difference <= 1e-9) and every check of
-        the derivation passed; else 1, and nothing is written (code that
-        closes a loop around a machine is exported only when every check
-        passes).
+        0 when the exported code reproduces ``derive``'s values (gains: relative difference
+        <= 1e-9 at the nominal parameters; digital controller: the generated step function
+        against the sampled-data simulation, <= 1e-12) and every check of the derivation
+        passed; else 1, and nothing is written (code that closes a loop around a machine is
+        exported only when every check passes).
 
     Raises
     ------
     DesignFileError
-        No closed form to export (several inputs or outputs, symbolic budget
-        exhausted, no reference gain), or an unknown language.
+        No closed form to export (several inputs or outputs, symbolic budget exhausted, no
+        reference gain), no ``[discrete] sample_time`` with ``digital``, an unknown language
+        or form.
     RenderError
         The files cannot be written.
     """
@@ -1287,15 +1536,35 @@ def run_export(design: Design, *, lang: str, out_dir: str | Path) -> int:
         raise DesignFileError(
             f"unknown language {lang!r}: expected 'c' or 'python'", design.path, "--lang"
         )
+    if form is not None and not digital:
+        raise DesignFileError(
+            "--form chooses the digital controller's observer: use it with --digital",
+            design.path,
+            "--form",
+        )
+    if digital and design.discrete is None:
+        raise DesignFileError(
+            "missing: --digital needs a [discrete] table with sample_time (seconds)",
+            design.path,
+            "discrete.sample_time",
+        )
     d = derive(design)
-    formulas = gain_formulas(d)
-    files = c_sources(formulas) if lang == "c" else python_source(formulas)
-    diff = _self_check(d, formulas)
-    ok = diff <= SELF_CHECK_TOLERANCE
-    print(
-        f"{'pass' if ok else 'FAIL'}  exported formulas at the nominal values vs derive"
-        f" (relative): {diff:.2e} <= {SELF_CHECK_TOLERANCE:g}"
-    )
+    if digital:
+        files, diff, form = digital_controller_files(d, lang=lang, form=form)
+        tolerance = DIGITAL_SELF_CHECK_TOLERANCE
+        what = f"generated {form} controller vs the sampled-data simulation (relative)"
+        omitted: tuple[str, ...] = ()
+        factors: tuple[ValidityFactor, ...] = ()
+    else:
+        formulas = gain_formulas(d)
+        files = c_sources(formulas) if lang == "c" else python_source(formulas)
+        diff = _self_check(d, formulas)
+        tolerance = SELF_CHECK_TOLERANCE
+        what = "exported formulas at the nominal values vs derive (relative)"
+        omitted = formulas.omitted
+        factors = formulas.factors
+    ok = diff <= tolerance
+    print(f"{'pass' if ok else 'FAIL'}  {what}: {diff:.2e} <= {tolerance:g}")
     if not d.passed:
         print("FAIL  some checks of the derivation failed: run `gainsmith derive` for details")
     if not (ok and d.passed):
@@ -1307,8 +1576,10 @@ def run_export(design: Design, *, lang: str, out_dir: str | Path) -> int:
 
     for path in publish(files, Path(out_dir)):
         print(f"wrote {path}")
-    for f in formulas.factors:
+    for f in factors:
         print(
             f"  the gains do not exist where {f.condition}: returns {f.code} ({CODE_WORDS[f.code]})"
         )
-    return 0 if ok and d.passed else 1
+    for text in omitted:
+        print(f"  not exported: {text}")
+    return 0

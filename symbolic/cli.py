@@ -71,7 +71,9 @@ def _cmd_check(args) -> int:
 def _cmd_export(args) -> int:
     from ._export import run_export
 
-    return run_export(_load(args), lang=args.lang, out_dir=args.output)
+    return run_export(
+        _load(args), lang=args.lang, out_dir=args.output, digital=args.digital, form=args.form
+    )
 
 
 def _cmd_schedule(args) -> int:
@@ -139,10 +141,25 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print machine-readable results")
     p.set_defaults(func=_cmd_check)
 
-    p = sub.add_parser("export", help="write the gain formulas as C99 or Python code")
+    p = sub.add_parser(
+        "export", help="write the gain formulas, or the digital controller, as C99 or Python code"
+    )
     common(p)
     p.add_argument("--lang", choices=("c", "python"), required=True, help="target language")
     p.add_argument("-o", "--output", default="export", help="output folder (default: ./export)")
+    p.add_argument(
+        "--digital",
+        action="store_true",
+        help="write the digital controller (difference equations at the [discrete] sample"
+        " time) instead of the gain formulas",
+    )
+    p.add_argument(
+        "--form",
+        choices=("current", "predictor", "reduced"),
+        default=None,
+        help="observer of the digital controller (default: reduced with [observer] kind ="
+        ' "reduced", else current)',
+    )
     p.set_defaults(func=_cmd_export)
 
     p = sub.add_parser("schedule", help="evaluate the gains over the parameter ranges (CSV + plot)")
