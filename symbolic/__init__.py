@@ -25,18 +25,9 @@ True
 
 from __future__ import annotations
 
-from ._derive import (
-    Check,
-    CompensatorResult,
-    Derivation,
-    GainResult,
-    PoleChoice,
-    ReferenceGainResult,
-    SeparatedLoop,
-    StructureReport,
-    derive,
-)
-from ._design import Design, Parameter, Plant, Signal, load_design, parse_design
+import importlib
+from typing import TYPE_CHECKING
+
 from ._errors import (
     BudgetExceeded,
     DesignFileError,
@@ -47,6 +38,55 @@ from ._errors import (
     SpecificationError,
     StructureError,
 )
+
+#: Public names loaded on first use (PEP 562), so that ``import symbolic`` and the
+#: command line start at once: SymPy and SciPy load when a name needs them, and the
+#: command line can start its SciPy sidecar first (:mod:`symbolic._sidecar`).
+_LAZY = {
+    "Check": "_derive",
+    "CompensatorResult": "_derive",
+    "Derivation": "_derive",
+    "GainResult": "_derive",
+    "PoleChoice": "_derive",
+    "ReferenceGainResult": "_derive",
+    "SeparatedLoop": "_derive",
+    "StructureReport": "_derive",
+    "derive": "_derive",
+    "Design": "_design",
+    "Parameter": "_design",
+    "Plant": "_design",
+    "Signal": "_design",
+    "load_design": "_design",
+    "parse_design": "_design",
+}
+
+if TYPE_CHECKING:  # pragma: no cover
+    from ._derive import (
+        Check,
+        CompensatorResult,
+        Derivation,
+        GainResult,
+        PoleChoice,
+        ReferenceGainResult,
+        SeparatedLoop,
+        StructureReport,
+        derive,
+    )
+    from ._design import Design, Parameter, Plant, Signal, load_design, parse_design
+
+
+def __getattr__(name: str):
+    module = _LAZY.get(name)
+    if module is None:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+    value = getattr(importlib.import_module(f"{__name__}.{module}"), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(_LAZY))
+
 
 __version__ = "0.1.0"
 

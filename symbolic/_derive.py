@@ -18,10 +18,10 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
 import numpy as np
-import scipy.signal
 import sympy as sp
 
 from . import _closed_form as cf
+from . import _sidecar
 from ._budget import run_bounded
 from ._design import Design, Signal
 from ._errors import BudgetExceeded, DesignFileError, GainsmithWarning, StructureError
@@ -33,6 +33,7 @@ from ._numeric import (
     polynomial_residual,
     relative_difference,
     scipy_placement,
+    transfer_function,
 )
 from ._specs import DominantPair, dominant_pair, remaining_poles
 
@@ -258,7 +259,7 @@ def select_controller_poles(design: Design) -> PoleChoice:
             req.poles, "given", "controller poles as given in the design file", coeffs
         )
     assert req.specifications is not None
-    pair = dominant_pair(req.specifications)
+    pair = _sidecar.call(dominant_pair, req.specifications)  # root finding: SciPy
     dominant = tuple(_exact_complex(p) for p in pair.poles)
     if req.remaining_poles is not None:
         rest = req.remaining_poles
@@ -867,15 +868,7 @@ def _compensator(A, B, C, D, K, L, sep_forms, values, checks) -> CompensatorResu
     if B.shape[1] != 1 or C.shape[0] != 1:
         return CompensatorResult(None, None, None, None, F)
     # independent numeric transfer function of u/y = −K (sI − F)⁻¹ L
-    num, den = scipy.signal.ss2tf(F, L, K, np.zeros((1, 1)))
-    num = np.real(num[0])
-    den = np.real(den)
-    # drop the leading zero scipy keeps for a strictly proper system
-    num = (
-        num[1:]
-        if num.size == den.size and abs(num[0]) <= 1e-12 * max(1.0, np.abs(num).max())
-        else num
-    )
+    num, den = transfer_function(F, L, K, np.zeros((1, 1)))
     num_cf = den_cf = None
     if sep_forms is not None and sep_forms.compensator_numerator is not None:
         num_cf = sep_forms.compensator_numerator

@@ -10,11 +10,14 @@ from __future__ import annotations
 import warnings
 from collections import Counter
 from collections.abc import Mapping, Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
-import sympy as sp
-from scipy.optimize import linear_sum_assignment
-from scipy.signal import place_poles
+
+from . import _sidecar
+
+if TYPE_CHECKING:
+    import sympy as sp
 
 __all__ = [
     "evaluate_matrix",
@@ -24,6 +27,7 @@ __all__ = [
     "eigenvalue_tolerance",
     "polynomial_residual",
     "relative_difference",
+    "transfer_function",
 ]
 
 
@@ -34,6 +38,8 @@ def evaluate_matrix(M: sp.MatrixBase, values: Mapping[sp.Symbol, sp.Expr]) -> np
     final conversion; entries that are not finite (a division by zero at the
     given values) come back as NaN for the caller to report.
     """
+    import sympy as sp  # not at the top: the SciPy sidecar imports this module
+
     out = np.empty(M.shape, dtype=float)
     for i in range(M.shape[0]):
         for j in range(M.shape[1]):
@@ -82,7 +88,16 @@ def scipy_placement(
     ``place_poles`` refuses a pole repeated more often than rank(B), and can
     misplace nearly repeated poles without a warning (TECH-NOTES), so the
     eigenvalues it achieves are checked here before its gain is trusted.
+    Runs in the SciPy sidecar when there is one (:mod:`symbolic._sidecar`).
     """
+    return _sidecar.call(_scipy_placement, np.asarray(A), np.asarray(B), list(poles))
+
+
+def _scipy_placement(
+    A: np.ndarray, B: np.ndarray, poles: Sequence[complex]
+) -> tuple[np.ndarray | None, str]:
+    from scipy.signal import place_poles
+
     p = np.asarray(poles, dtype=complex)
     try:
         with warnings.catch_warnings():
@@ -106,8 +121,15 @@ def pole_residual(achieved: Sequence[complex], requested: Sequence[complex]) -> 
 
     Poles are paired by an optimal assignment (Hungarian method, as in
     ``scipy.optimize.linear_sum_assignment``) so ordering does not matter;
-    each distance is divided by max(1, |requested pole|).
+    each distance is divided by max(1, |requested pole|).  Runs in the SciPy
+    sidecar when there is one (:mod:`symbolic._sidecar`).
     """
+    return _sidecar.call(_pole_residual, np.asarray(achieved), np.asarray(requested))
+
+
+def _pole_residual(achieved: np.ndarray, requested: np.ndarray) -> float:
+    from scipy.optimize import linear_sum_assignment
+
     a = np.asarray(achieved, dtype=complex).ravel()
     r = np.asarray(requested, dtype=complex).ravel()
     if a.size != r.size:
@@ -144,3 +166,27 @@ def relative_difference(a: np.ndarray, b: np.ndarray) -> float:
     a = np.asarray(a, dtype=float)
     b = np.asarray(b, dtype=float)
     return float(np.linalg.norm(a - b) / max(np.linalg.norm(b), 1e-300))
+
+
+def transfer_function(
+    A: np.ndarray, B: np.ndarray, C: np.ndarray, D: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Numerator and denominator coefficients of a one-input, one-output state-space model.
+
+    ``scipy.signal.ss2tf`` (in the SciPy sidecar when there is one), real parts,
+    with the leading zero that SciPy keeps for a strictly proper model dropped.
+    """
+    return _sidecar.call(_transfer_function, *(np.asarray(M) for M in (A, B, C, D)))
+
+
+def _transfer_function(
+    A: np.ndarray, B: np.ndarray, C: np.ndarray, D: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    from scipy.signal import ss2tf
+
+    num, den = ss2tf(A, B, C, D)
+    num = np.real(num[0])
+    den = np.real(den)
+    if num.size == den.size and abs(num[0]) <= 1e-12 * max(1.0, np.abs(num).max()):
+        num = num[1:]
+    return num, den

@@ -43,7 +43,6 @@ from decimal import ROUND_CEILING, ROUND_FLOOR, Decimal
 from numbers import Real
 
 import numpy as np
-from scipy.optimize import brentq
 
 from symbolic._errors import GainsmithWarning, SpecificationError
 
@@ -1019,6 +1018,8 @@ def second_order_step_metrics(
     >>> round(metrics["overshoot_percent"], 3), round(metrics["peak_time"], 4)
     (16.303, 3.6276)
     """
+    from scipy.optimize import brentq  # here: SciPy loads in the sidecar (symbolic._sidecar)
+
     zeta = float(damping_ratio)
     omega_n = float(natural_frequency)
     band = float(band)

@@ -190,6 +190,10 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
+    if os.environ.get("GAINSMITH_SIDECAR", "1") != "0":
+        from . import _sidecar
+
+        _sidecar.start()  # SciPy loads there while SymPy loads here
     try:
         return int(args.func(args))
     except GainsmithError as exc:

@@ -22,7 +22,7 @@ import time
 import pytest
 
 import symbolic
-from symbolic._simreport import SPEED_FACTORS, loop_model, _observer_gain
+from symbolic._simreport import SPEED_FACTORS, _observer_gain, loop_model
 from symbolic._simulate import observer_speed_study, simulate_cases
 
 from ..conftest import ROOT, WORKED
