@@ -486,6 +486,55 @@ def test_structure_error_is_the_only_refusal():
     assert info.value.key == "plant"
 
 
+def test_numerically_rank_deficient_is_not_called_uncontrollable():
+    """Exact determinant ±1e-36 (not zero), condition number 1e18: an honest refusal that
+    says the plant is controllable in exact arithmetic and quotes the condition number."""
+    with pytest.raises(StructureError) as info:
+        symbolic.derive(symbolic.parse_design(weak_chain(4, 1e-6).toml()), budget=5)
+    message = str(info.value)
+    assert info.value.key == "plant"
+    assert "controllable in exact arithmetic" in message
+    assert "uncontrollable" not in message
+    cond = float(re.search(r"condition number ([0-9.]+e[+-]?[0-9]+)", message).group(1))
+    assert cond >= 1e16
+    assert "1.000e-36" in message  # det 𝒞 = ±ε⁶ (anti-diagonal 1, ε, ε², ε³), ε = 1e-6
+
+
+def test_gain_tolerance_widens_only_with_the_spread_of_two_numeric_methods():
+    """Well conditioned: exactly GAIN_TOLERANCE.  Condition number 1e12: wider, yet a gain
+    1e-4 off still fails (the closed form is checked, not waved through)."""
+    from symbolic._derive import GAIN_TOLERANCE, gain_tolerance
+    from symbolic._numeric import numeric_ackermann, relative_difference
+
+    for plant, wide in ((weak_chain(3, 0.1), False), (weak_chain(4, 1e-4), True)):
+        A, B = plant.numeric("A"), plant.numeric("B")
+        poles = [complex(p) for p in plant.poles]
+        reference = scipy.signal.place_poles(A, B, np.array(poles)).gain_matrix
+        tol = gain_tolerance(reference, numeric_ackermann(A, B, poles))
+        assert (tol > GAIN_TOLERANCE) == wide, f"{plant.name}: tolerance {tol:.1e}"
+        assert tol < 1e-5
+        exact = np.array(bass_gura_gain(plant.exact("A"), plant.exact("B"), plant.poles), float)
+        assert relative_difference(exact, reference) <= tol  # the exact gain passes
+        assert relative_difference(exact * (1 + 1e-4), reference) > tol  # a wrong one fails
+
+
+def test_compensator_check_is_by_frequency_response():
+    """Stiff plant: coefficients of the compensator span many decades, its values on
+    s = jω do not; a numerator 1e-5 off fails the check."""
+    from symbolic._derive import COMPENSATOR_TOLERANCE, frequency_response_difference
+
+    stiff = next(p for p in OTHER_HARD if p.name.startswith("time constants"))
+    d = symbolic.derive(symbolic.parse_design(stiff.toml()), budget=10)
+    check = next(c for c in d.checks if c.name.startswith("compensator transfer function"))
+    assert check.passed, check
+    comp = d.compensator
+    num = np.array([float(c.xreplace(d.design.values)) for c in comp.numerator_closed_form])
+    den = np.array([float(c.xreplace(d.design.values)) for c in comp.denominator_closed_form])
+    F, L, K = comp.state_matrix, d.L.value, d.K.value
+    assert frequency_response_difference(num, den, F, L, K) <= COMPENSATOR_TOLERANCE
+    assert frequency_response_difference(num * (1 + 1e-5), den, F, L, K) > COMPENSATOR_TOLERANCE
+
+
 # --------------------------------------------------------------------------
 # Radicals in the plant: the exact checks must not fail a correct design
 # --------------------------------------------------------------------------
