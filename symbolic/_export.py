@@ -744,6 +744,10 @@ def _poles_text(poles: Sequence[complex]) -> str:
     return ", ".join(_pole_text(z) for z in poles)
 
 
+#: Stands for a space that must not break a line (never in generated text: see _wrap).
+_KEEP_TOGETHER = "\x00"
+
+
 def _validity_lines(formulas: GainFormulas, c: bool) -> list[str]:
     """The validity conditions in words, one line per code."""
     lines = []
@@ -752,7 +756,8 @@ def _validity_lines(formulas: GainFormulas, c: bool) -> list[str]:
         by_code.setdefault(f.code, []).append(f)
     for code in (CODE_UNCONTROLLABLE, CODE_UNOBSERVABLE, CODE_NO_REFERENCE_GAIN, CODE_NOT_FINITE):
         group = by_code.get(code, [])
-        where = " or ".join(f.condition for f in group)
+        # a condition is never broken across lines (_wrap turns the marker back into spaces)
+        where = " or ".join(f.condition.replace(" ", _KEEP_TOGETHER) for f in group)
         head = f"{code}  " if c else ""
         meaning = CODE_MEANINGS[code]
         if code == CODE_NOT_FINITE:
@@ -862,7 +867,7 @@ def _extra_header_lines(formulas: GainFormulas) -> list[str]:
 def _wrap(text: str, width: int, indent: str = "", hanging: str = "") -> list[str]:
     import textwrap
 
-    return textwrap.wrap(
+    lines = textwrap.wrap(
         text,
         width=width,
         initial_indent=indent,
@@ -870,6 +875,7 @@ def _wrap(text: str, width: int, indent: str = "", hanging: str = "") -> list[st
         break_long_words=False,
         break_on_hyphens=False,
     ) or [indent]
+    return [line.replace(_KEEP_TOGETHER, " ") for line in lines]
 
 
 def _c_comment(lines: Sequence[str]) -> str:

@@ -546,15 +546,72 @@ def extended_sections(d: Derivation) -> dict:
     """Memo context of integral action, the reduced-order observer and the digital controller.
 
     Each entry is None unless the design asks for it; the numbers and formulas come from the
-    result objects that :func:`symbolic.derive` attached (nothing is re-derived here).
+    result objects that :func:`symbolic.derive` attached (nothing is re-derived here).  The
+    figures are left out (see :func:`memo_extended_sections`).
+    """
+    return memo_extended_sections(d, figures=False)[0]
+
+
+def _metric(x) -> _Math:
+    return _math("\\text{--}" if x is None else _num(x, 4))
+
+
+def memo_extended_sections(d: Derivation, *, figures: bool = True) -> tuple[dict, dict[str, bytes]]:
+    """Context and figures of integral action, the reduced-order observer and the digital
+    controller.
+
+    The studies run here (reference gain against integral action, the sampled-data loop
+    against the continuous design); the figures are drawn by
+    :mod:`symbolic._extended_figures` through :func:`symbolic._figures.render_figures`.
     """
     out: dict = {"integral": None, "reduced": None, "digital": None}
+    makers: dict = {}
+    plant = d.design.plant
+    tracked = plant.outputs[
+        d.integral.tracked_index if d.integral is not None else d.design.tracking.output
+    ]
+    first_input = plant.inputs[0]
     if d.integral is not None:
+        from . import _extended_figures as xf
         from ._integral import integral_study
 
         ia = d.integral
         study = integral_study(d, ia)
+        captions = [
+            {
+                "stem": _math("integral-action"),
+                "caption": (
+                    f"Reference step of {study.reference:g}, then a step input disturbance of"
+                    f" {study.disturbance:.3g} at t = {study.disturbance_time:.3g} s: the reference-gain"
+                    " loop against integral action, on the nominal plant (top) and on the"
+                    " mismatched plants (bottom)."
+                ),
+            }
+        ]
+        makers["integral-action"] = lambda: xf.integral_action_figure(
+            study, tracked.name, tracked.unit
+        )
+        if study.windup:
+            captions.append(
+                {
+                    "stem": _math("anti-windup"),
+                    "caption": (
+                        f"Integral action with the input limited to ±{study.u_max:g}:"
+                        " without and with the back-calculation anti-windup."
+                    ),
+                }
+            )
+            makers["anti-windup"] = lambda: xf.anti_windup_figure(
+                study.windup,
+                tracked.name,
+                tracked.unit,
+                first_input.name,
+                first_input.unit,
+                study.reference,
+                study.u_max,
+            )
         out["integral"] = {
+            "figures": captions,
             "convention": _plain(ia.sign_convention),
             "pole_rule": _plain(ia.pole_rule),
             "Aa": _matrix_math("A_a", ia.A_augmented_closed_form, ia.A_augmented),
@@ -619,6 +676,21 @@ def extended_sections(d: Derivation) -> dict:
             ),
             "factors": ro.factors_as_expected,
             "comparison": _plain(ro.comparison),
+            "equations": _math(
+                r"\dot\eta = \hat A \eta + \hat B \bar y + \hat F u, \qquad"
+                r" \hat x = T^{-1} \begin{bmatrix} \bar y \\ \eta + K_e \bar y \end{bmatrix},"
+                r" \qquad \bar y = y - D u"
+            ),
+            "observer_matrices": _math(
+                ", \\quad ".join(
+                    _matrix_math(name, (ro.observer_closed_form or {}).get(key), value)
+                    for name, key, value in (
+                        (r"\hat A", "A_hat", ro.observer_matrix),
+                        (r"\hat B", "B_hat", ro.output_input),
+                        (r"\hat F", "F_hat", ro.control_input),
+                    )
+                )
+            ),
         }
     if d.discrete is not None:
         dc = d.discrete
@@ -641,8 +713,59 @@ def extended_sections(d: Derivation) -> dict:
             else _math(_num(float(np.degrees(dc.hold_phase_lag)), 3)),
             "equations": [_plain(eq.description) for eq in dc.equations.values()],
             "method": _plain(dc.method),
+            "integral": None
+            if dc.integral is None
+            else {
+                "gain": _math(r"[K_d,\; k_{i,d}] = " + _numeric_matrix(dc.integral.K_augmented, 6)),
+                "pole_z": _poles(np.array([dc.integral.integral_pole_z])),
+            },
+            "reduced": None
+            if dc.reduced is None
+            else {
+                "gain": _math("L_r = " + _numeric_matrix(dc.reduced.L, 6)),
+                "poles_z": _poles(dc.reduced.poles_z),
+            },
+            "form": dc.default_form,
+            "figures": [],
+            "comparison": [],
         }
-    return out
+        from . import _extended_figures as xf
+        from ._discrete import sampled_data_study
+
+        form = dc.default_form
+        sampled = sampled_data_study(d, dc, form=form)
+        out["digital"]["comparison"] = [
+            {"label": label, "continuous": _metric(a), "sampled": _metric(b)}
+            for label, a, b in sampled.comparison()
+        ]
+        out["digital"]["figures"] = [
+            {
+                "stem": _math("sampled-data"),
+                "caption": (
+                    f"The continuous plant driven by the digital controller ({form} form,"
+                    f" T = {dc.sample_time:g} s, zero-order hold) against the continuous design:"
+                    " the output between the samples, the samples the controller saw, and the"
+                    " held input."
+                ),
+            }
+        ]
+        out_signal = plant.outputs[dc.tracked_index]
+        makers["sampled-data"] = lambda: xf.sampled_data_figure(
+            sampled,
+            out_signal.name,
+            out_signal.unit,
+            first_input.name,
+            first_input.unit,
+            float(d.design.simulation.reference),
+            tracked=dc.tracked_index,
+        )
+    files: dict[str, bytes] = {}
+    if figures and makers:
+        from ._figures import render_figures
+
+        name = d.design.slug
+        files = render_figures({f"{name}-{stem}": make for stem, make in makers.items()})
+    return out, files
 
 
 def memo_robustness_section(d: Derivation) -> tuple[dict | None, dict[str, bytes]]:
@@ -678,11 +801,12 @@ def build_memo(
     figures: dict[str, bytes] | None = None,
     claims_context: dict | None = None,
     robustness_context: dict | None = None,
+    extended_context: dict | None = None,
 ) -> MemoDocument:
     """Render both memo sources from a finished derivation."""
     ctx = build_context(d, study_context, claims_context)
     ctx["robustness"] = robustness_context
-    ctx.update(extended_sections(d))
+    ctx.update(extended_sections(d) if extended_context is None else extended_context)
     name = d.design.slug
     # file names are our own slug (letters, digits, '-'), safe to trust in both formats
     ctx["figure_prefix"] = _math(f"figures/{name}-")
@@ -705,8 +829,9 @@ def assemble_memo(design: Design) -> tuple[Derivation, MemoDocument]:
 
         claims_ctx = memo_claims(d, design.claims)
     robustness_ctx, robustness_figures = memo_robustness_section(d)
-    figures = {**figures, **robustness_figures}
-    return d, build_memo(d, study_ctx, figures, claims_ctx, robustness_ctx)
+    extended_ctx, extended_figures = memo_extended_sections(d)
+    figures = {**figures, **robustness_figures, **extended_figures}
+    return d, build_memo(d, study_ctx, figures, claims_ctx, robustness_ctx, extended_ctx)
 
 
 def write_memo(design: Design, out_dir: str | Path, pdf: bool = True) -> int:

@@ -531,3 +531,23 @@ def test_continuous_design_is_drawn_next_to_the_sampled_loop(pan):
     cont = np.interp(grid, study.continuous_time, study.continuous_output)
     assert np.max(np.abs(cont - study.tracked_output)) <= 0.1 * r
     assert sp.Rational(pan.discrete.sample_time).q > 1  # a fractional sample time
+
+
+# --------------------------------------------------------------------------------------------
+# The memo sections
+# --------------------------------------------------------------------------------------------
+def test_memo_sections_carry_the_extended_figures_and_tables(pan_limited):
+    from symbolic._memo import memo_extended_sections
+
+    ctx, files = memo_extended_sections(pan_limited)
+    slug = pan_limited.design.slug
+    for stem in ("integral-action", "anti-windup", "sampled-data"):
+        assert files[f"{slug}-{stem}.png"].startswith(b"\x89PNG")
+        assert files[f"{slug}-{stem}.pdf"].startswith(b"%PDF")
+    assert [f["stem"] for f in ctx["integral"]["figures"]] == ["integral-action", "anti-windup"]
+    digital = ctx["digital"]
+    assert digital["form"] == "reduced" and digital["integral"] and digital["reduced"]
+    labels = [row["label"] for row in digital["comparison"]]
+    assert "overshoot [%]" in labels and "settling time 2 % [s]" in labels
+    assert "K_d" in digital["integral"]["gain"] and "L_r" in digital["reduced"]["gain"]
+    assert r"\hat A" in ctx["reduced"]["observer_matrices"]
