@@ -11,7 +11,8 @@ from __future__ import annotations
 import io
 import multiprocessing as mp
 import os
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
+from contextlib import contextmanager
 
 import numpy as np
 from matplotlib.axes import Axes
@@ -26,6 +27,9 @@ __all__ = [
     "pole_map_figure",
     "observer_study_figure",
     "render_figures",
+    "deferred_figures",
+    "figure_names",
+    "FigureBatch",
 ]
 
 #: (colour, line style) per case; readable in grey scale too.
@@ -282,32 +286,92 @@ def figure_files(fig: Figure, stem: str) -> dict[str, bytes]:
 
 
 _PENDING: list[tuple[str, Callable[[], Figure]]] = []
-_WARM = False
-
-
-def _warm_up() -> None:
-    """Draw one small figure, once per process, before forking the figure workers.
-
-    The first figure a process saves pays for loading fonts, building the
-    mathtext parser (log-axis tick labels are mathtext) and filling the
-    text-metrics caches: about three times the cost of the next one.  Paid
-    here, every forked worker inherits the warm caches.
-    """
-    global _WARM
-    if _WARM:
-        return
-    fig, ax = _new()
-    ax.semilogy([0.0, 1.0, 2.0], [1e-3, 1e-1, 1e1], label="warm")
-    ax.set_xlabel("time [s]")
-    ax.set_ylabel(r"$|e|$")
-    ax.legend()
-    figure_files(fig, "warm-up")
-    _WARM = True
 
 
 def _render_one(index: int) -> dict[str, bytes]:
     stem, make = _PENDING[index]
     return figure_files(make(), stem)
+
+
+def figure_names(stem: str) -> list[str]:
+    """The file names :func:`figure_files` gives a figure: ``stem.pdf`` and ``stem.png``."""
+    return [f"{stem}.pdf", f"{stem}.png"]
+
+
+class FigureBatch:
+    """Figures queued by several callers, then drawn together by one set of workers.
+
+    :func:`render_figures` called inside :func:`deferred_figures` queues its makers
+    here and returns the file names with empty contents; :meth:`start` forks the
+    workers, which draw while this process goes on (the memo renders its
+    templates meanwhile); :meth:`result` waits and returns the files.  One set of
+    workers instead of one per section, and the drawing overlaps the rest.
+    """
+
+    def __init__(self, workers: int | None = None):
+        self.items: list[tuple[str, Callable[[], Figure]]] = []
+        self.workers = workers
+        self._pool = None
+        self._pending = None
+
+    def add(self, makers: Mapping[str, Callable[[], Figure]]) -> dict[str, bytes]:
+        if self._pool is not None:
+            raise RuntimeError("figures were added after the batch started")
+        self.items.extend(makers.items())
+        return {name: b"" for stem in makers for name in figure_names(stem)}
+
+    def start(self) -> None:
+        """Fork the workers and hand them every queued figure (no wait)."""
+        global _PENDING
+        workers = self.workers
+        if workers is None:
+            workers = min(len(self.items), os.cpu_count() or 1, 4)
+        if self._pool is not None or workers <= 1 or "fork" not in mp.get_all_start_methods():
+            return
+        _PENDING = self.items
+        try:
+            self._pool = mp.get_context("fork").Pool(workers)  # workers copy _PENDING now
+        finally:
+            _PENDING = []
+        self._pending = self._pool.map_async(_render_one, range(len(self.items)), chunksize=1)
+
+    def result(self) -> dict[str, bytes]:
+        """Every queued figure's files (drawn here, one by one, if no workers were started)."""
+        if self._pending is None:
+            parts = [figure_files(make(), stem) for stem, make in self.items]
+        else:
+            try:
+                parts = self._pending.get()
+            finally:
+                self.close()
+        out: dict[str, bytes] = {}
+        for part in parts:
+            out.update(part)
+        return out
+
+    def close(self) -> None:
+        if self._pool is not None:
+            self._pool.terminate()
+            self._pool.join()
+            self._pool = None
+
+
+_BATCH: FigureBatch | None = None
+
+
+@contextmanager
+def deferred_figures(workers: int | None = None) -> Iterator[FigureBatch]:
+    """Within the block, :func:`render_figures` queues figures on the yielded batch."""
+    global _BATCH
+    if _BATCH is not None:
+        raise RuntimeError("deferred_figures blocks do not nest")
+    batch = FigureBatch(workers)
+    _BATCH = batch
+    try:
+        yield batch
+    finally:
+        _BATCH = None
+        batch.close()
 
 
 def render_figures(
@@ -319,22 +383,15 @@ def render_figures(
     is the slow part (text layout, PDF and PNG writers) and the figures are
     independent, so they are drawn in parallel on the machine's cores; the
     result (file name → bytes) is the same as drawing them one by one.
+    Inside :func:`deferred_figures` the figures are queued instead and the
+    returned files are empty until the batch's :meth:`FigureBatch.result`.
     """
-    global _PENDING
-    items = list(makers.items())
-    if workers is None:
-        workers = min(len(items), os.cpu_count() or 1, 4)
-    if workers > 1 and "fork" in mp.get_all_start_methods():
-        _warm_up()
-        _PENDING = items
-        try:
-            with mp.get_context("fork").Pool(workers) as pool:
-                parts = pool.map(_render_one, range(len(items)), chunksize=1)
-        finally:
-            _PENDING = []
-    else:
-        parts = [figure_files(make(), stem) for stem, make in items]
-    out: dict[str, bytes] = {}
-    for part in parts:
-        out.update(part)
-    return out
+    if _BATCH is not None:
+        return _BATCH.add(makers)
+    batch = FigureBatch(workers)
+    batch.add(makers)
+    try:
+        batch.start()
+        return batch.result()
+    finally:
+        batch.close()

@@ -11,6 +11,7 @@ and publishes every file atomically (:mod:`symbolic._publish`).
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as _dt
 import os
 import re
@@ -819,19 +820,26 @@ def build_memo(
 
 def assemble_memo(design: Design) -> tuple[Derivation, MemoDocument]:
     """Derive, simulate, study robustness and render: everything but the PDF and the files."""
+    from ._figures import deferred_figures
     from ._simreport import memo_simulation
 
     d = derive(design)
-    study_ctx, figures = memo_simulation(d)
-    claims_ctx = None
-    if design.claims is not None:
-        from ._claims import memo_claims
+    with deferred_figures() as batch:  # every figure is drawn by one set of workers
+        study_ctx, figures = memo_simulation(d)
+        claims_ctx = None
+        if design.claims is not None:
+            from ._claims import memo_claims
 
-        claims_ctx = memo_claims(d, design.claims)
-    robustness_ctx, robustness_figures = memo_robustness_section(d)
-    extended_ctx, extended_figures = memo_extended_sections(d)
-    figures = {**figures, **robustness_figures, **extended_figures}
-    return d, build_memo(d, study_ctx, figures, claims_ctx, robustness_ctx, extended_ctx)
+            claims_ctx = memo_claims(d, design.claims)
+        robustness_ctx, robustness_figures = memo_robustness_section(d)
+        extended_ctx, extended_figures = memo_extended_sections(d)
+        names = {**figures, **robustness_figures, **extended_figures}  # contents come later
+        batch.start()  # the figures are drawn while the templates render
+        doc = build_memo(d, study_ctx, names, claims_ctx, robustness_ctx, extended_ctx)
+        files = batch.result()
+    if set(files) != set(names):
+        raise RuntimeError(f"figure files {sorted(set(files) ^ set(names))} were not expected")
+    return d, dataclasses.replace(doc, figures=files)
 
 
 def write_memo(design: Design, out_dir: str | Path, pdf: bool = True) -> int:

@@ -18,6 +18,11 @@ __all__ = ["main"]
 
 EXIT_OK, EXIT_FAILED_CHECK, EXIT_BAD_INPUT, EXIT_BUG = 0, 1, 2, 3
 
+#: Commands that get the SciPy sidecar (symbolic._sidecar): those whose main process
+#: need not load SciPy at all.  The others (simulation, robustness, the memo) load it
+#: here anyway, and a second copy in the sidecar would only take CPU from them.
+SIDECAR_COMMANDS = frozenset({"derive", "export"})
+
 
 def _overrides(pairs: Sequence[str] | None, design: str) -> dict[str, str]:
     from ._errors import DesignFileError
@@ -190,7 +195,7 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
-    if os.environ.get("GAINSMITH_SIDECAR", "1") != "0":
+    if args.command in SIDECAR_COMMANDS and os.environ.get("GAINSMITH_SIDECAR", "1") != "0":
         from . import _sidecar
 
         _sidecar.start()  # SciPy loads there while SymPy loads here

@@ -126,3 +126,20 @@ def test_errors_and_warnings_from_the_sidecar_are_those_of_a_local_call():
     assert len(out["warned"]) == 1 and "rise-time fit" in out["warned"][0]
     assert not out["scipy_after_warning"]  # the warning came back from the sidecar
     assert "overshoot" in out["error"] or "speed" in out["error"]
+
+
+@pytest.mark.parametrize("command", sorted(__import__("symbolic.cli").cli.SIDECAR_COMMANDS))
+def test_commands_with_a_sidecar_never_load_scipy_themselves(command, tmp_path):
+    extra = ["--lang", "c", "-o", str(tmp_path / "out")] if command == "export" else []
+    out = _python(
+        f"""
+        import contextlib, io, json, sys
+        from symbolic import cli
+        with contextlib.redirect_stdout(io.StringIO()):
+            code = cli.main({[command, str(WORKED / "belt_drive.toml"), *extra]!r})
+        print(json.dumps({{"code": code,
+                          "scipy_here": sorted(m for m in sys.modules if m.startswith("scipy"))}}))
+        """
+    )
+    assert out["code"] == 0
+    assert out["scipy_here"] == []
