@@ -15,6 +15,7 @@ are switched off, so that limit leaves no ``core`` file behind.
 from __future__ import annotations
 
 import ctypes
+import inspect
 import math
 import multiprocessing as mp
 import os
@@ -22,13 +23,14 @@ import pickle
 import resource
 import signal
 import sys
+import time
 import traceback
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from typing import Any, TypeVar
 
 from ._errors import BudgetExceeded, GainsmithError
 
-__all__ = ["run_bounded", "die_with_parent", "DEFAULT_MEMORY_BYTES"]
+__all__ = ["run_bounded", "run_bounded_steps", "die_with_parent", "DEFAULT_MEMORY_BYTES"]
 
 T = TypeVar("T")
 
@@ -97,6 +99,10 @@ def _child(
         _limit_child(seconds, memory)
         sys.setrecursionlimit(max(sys.getrecursionlimit(), 20000))
         result = func(*args)
+        if inspect.isgenerator(result):  # run_bounded_steps: one message per finished step
+            for step in result:
+                conn.send_bytes(pickle.dumps(("step", step), protocol=pickle.HIGHEST_PROTOCOL))
+            result = None
         payload = pickle.dumps(("ok", result), protocol=pickle.HIGHEST_PROTOCOL)
     except MemoryError:
         payload = pickle.dumps(("memory", None))
@@ -109,6 +115,86 @@ def _child(
     finally:
         conn.close()
         os._exit(0)
+
+
+def run_bounded_steps(
+    func: Callable[..., Iterator[Any]],
+    args: tuple = (),
+    *,
+    seconds: float | None,
+    memory_bytes: int | None = DEFAULT_MEMORY_BYTES,
+    what: str = "symbolic step",
+) -> tuple[list[Any], list[float], BudgetExceeded | None]:
+    """Run a generator of successive steps in one child, keeping the steps that finish.
+
+    Like :func:`run_bounded` (one fork, one time and memory budget), but
+    ``func(*args)`` yields the result of each step as soon as it is done, so a
+    later step that runs over the budget does not take the earlier ones with it.
+
+    Returns
+    -------
+    results : list
+        The yielded values, in order, up to the step that did not finish.
+    seconds_at : list of float
+        Wall time (from the call) at which each result arrived.
+    stopped : BudgetExceeded or None
+        Why the remaining steps are missing (None when the generator ran out).
+
+    Raises
+    ------
+    GainsmithError
+        Re-raised from the child unchanged.
+    """
+    start = time.monotonic()
+    results: list[Any] = []
+    seconds_at: list[float] = []
+    if seconds is None or "fork" not in mp.get_all_start_methods():
+        for step in func(*args):
+            results.append(step)
+            seconds_at.append(time.monotonic() - start)
+        return results, seconds_at, None
+    ctx = mp.get_context("fork")
+    receiver, sender = ctx.Pipe(duplex=False)
+    proc = ctx.Process(
+        target=_child,
+        args=(sender, func, args, memory_bytes, seconds, os.getpid()),
+        daemon=True,
+    )
+    proc.start()
+    sender.close()
+    try:
+        while True:
+            left = seconds - (time.monotonic() - start)
+            if left <= 0 or not receiver.poll(left):
+                return (
+                    results,
+                    seconds_at,
+                    BudgetExceeded(f"{what} did not finish within {seconds:g} s"),
+                )
+            try:
+                status, value = pickle.loads(receiver.recv_bytes())
+            except (EOFError, OSError):
+                return (
+                    results,
+                    seconds_at,
+                    BudgetExceeded(f"{what} stopped without a result (out of memory?)"),
+                )
+            if status == "step":
+                results.append(value)
+                seconds_at.append(time.monotonic() - start)
+                continue
+            if status == "ok":
+                return results, seconds_at, None
+            if status == "memory":
+                return results, seconds_at, BudgetExceeded(f"{what} ran out of its memory budget")
+            if status == "error":
+                raise value
+            return results, seconds_at, BudgetExceeded(f"{what} failed: {value.splitlines()[0]}")
+    finally:
+        if proc.is_alive():
+            proc.kill()
+        proc.join(timeout=5)
+        receiver.close()
 
 
 def run_bounded(

@@ -22,9 +22,9 @@ import sympy as sp
 
 from . import _closed_form as cf
 from . import _sidecar
-from ._budget import run_bounded
+from ._budget import run_bounded_steps
 from ._design import Design, Signal
-from ._errors import BudgetExceeded, DesignFileError, GainsmithWarning, StructureError
+from ._errors import DesignFileError, GainsmithWarning, StructureError
 from ._numeric import (
     eigenvalue_tolerance,
     evaluate_matrix,
@@ -432,27 +432,38 @@ class _Budget:
         self.seconds = seconds
         self.deadline = time.monotonic() + seconds
 
-    def run(self, func, args, what: str, notes: list[str]):
-        if self.unbounded:
-            return run_bounded(func, args, seconds=None, what=what)
-        left = self.deadline - time.monotonic()
-        if left <= 0.05:
+    def run_steps(self, func, args, whats: tuple[str, ...], notes: list[str]):
+        """Successive stages in one child (one fork): results (None where missing), and
+        the seconds each took."""
+        left = None if self.unbounded else self.deadline - time.monotonic()
+        if left is not None and left <= 0.05:
             notes.append(
-                f"{what} was skipped: the symbolic budget of {self.seconds:g} s was used up;"
+                f"{whats[0]} was skipped: the symbolic budget of {self.seconds:g} s was used up;"
                 " numeric results are given instead of closed forms"
             )
-            return None
-        try:
-            return run_bounded(func, args, seconds=left, what=what)
-        except BudgetExceeded as exc:
-            reason = str(exc)
+            return [None] * len(whats), [0.0] * len(whats)
+        results, at, stopped = run_bounded_steps(func, args, seconds=left, what=whats[0])
+        took = [b - a for a, b in zip([0.0, *at], at, strict=False)]
+        if stopped is not None and len(results) < len(whats):
+            what = whats[len(results)]
+            reason = str(stopped).replace(whats[0], what)
             if "did not finish" in reason:
                 reason = f"{what} did not finish within {self.seconds:g} s"
             notes.append(
                 f"{reason} (the symbolic budget, options.symbolic_budget_seconds);"
                 " numeric results are given instead of closed forms"
             )
-            return None
+        pad = len(whats) - len(results)
+        return list(results) + [None] * pad, took + [0.0] * pad
+
+
+def _symbolic_stages(design: Design, ctrl: PoleChoice, obs: PoleChoice):
+    """The closed forms, then the separated loop built from them (a generator: each stage
+    is kept as soon as it is done, see :func:`symbolic._budget.run_bounded_steps`)."""
+    forms = _closed_form_stage(design, ctrl, obs)
+    yield forms
+    if forms.controller is not None and forms.observer is not None:
+        yield _separated_stage(design, forms.controller.gain, forms.observer.gain.T, ctrl, obs)
 
 
 def derive(design: Design, *, budget: float | None = None) -> Derivation:
@@ -491,17 +502,21 @@ def derive(design: Design, *, budget: float | None = None) -> Derivation:
     num = _numeric_plant(design)
     A, B, C, D = num.A, num.B, num.C, num.D
 
-    # ---- closed forms (bounded) -------------------------------------------
-    t = time.perf_counter()
+    # ---- closed forms and the separated loop (bounded, one child) ----------------
     forms: cf.ClosedForms | None = None
+    sep_forms: cf.SeparatedForms | None = None
+    timings["closed_form"] = timings["separated"] = 0.0
     if m == 1 or p == 1:
         try:
-            forms = symbolic_budget.run(
-                _closed_form_stage, (design, ctrl, obs), "the closed-form derivation", notes
+            (forms, sep_forms), took = symbolic_budget.run_steps(
+                _symbolic_stages,
+                (design, ctrl, obs),
+                ("the closed-form derivation", "the separated-loop derivation"),
+                notes,
             )
         except StructureError as exc:
             raise StructureError(exc.problem, design.path, exc.key) from exc
-    timings["closed_form"] = time.perf_counter() - t
+        timings["closed_form"], timings["separated"] = took
 
     # ---- structure ----------------------------------------------------------
     ctrb_value = _numeric_structure(A, B)
@@ -530,7 +545,9 @@ def derive(design: Design, *, budget: float | None = None) -> Derivation:
             # the exact determinant is not zero: the plant is controllable (observable),
             # but not in double precision; refuse without calling it uncontrollable
             with np.errstate(all="ignore"):
-                cond = float(np.linalg.cond(rep.value)) if np.all(np.isfinite(rep.value)) else math.inf
+                cond = (
+                    float(np.linalg.cond(rep.value)) if np.all(np.isfinite(rep.value)) else math.inf
+                )
             raise StructureError(
                 f"the plant is {rep.adjective.removeprefix('un')} in exact arithmetic (det of the"
                 f" {rep.kind} matrix = {complex(sp.N(at_values, 6)).real:.3e} at the evaluated"
@@ -647,16 +664,6 @@ def derive(design: Design, *, budget: float | None = None) -> Derivation:
             res <= tol,
         )
     )
-    sep_forms = None
-    t = time.perf_counter()
-    if K.closed_form is not None and L.closed_form is not None:
-        sep_forms = symbolic_budget.run(
-            _separated_stage,
-            (design, K.closed_form, L.closed_form, ctrl, obs),
-            "the separated-loop derivation",
-            notes,
-        )
-    timings["separated"] = time.perf_counter() - t
     if sep_forms is not None:
         checks.append(
             Check(

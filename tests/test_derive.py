@@ -426,3 +426,45 @@ def test_functions_of_parameters_in_the_plant():
     assert d.K.closed_form[0, 0].has(sp.exp(b)) and d.K.closed_form[0, 0].has(sp.sqrt(a))
     Kp = place_poles(d.plant.A, d.plant.B, [-2 + 2j, -2 - 2j]).gain_matrix
     np.testing.assert_allclose(d.K.value, Kp, rtol=1e-10)
+
+
+def test_slow_separated_loop_keeps_the_closed_gains(monkeypatch):
+    """The two symbolic stages share one child; the first one's result survives when the
+    second runs past the budget (run_bounded_steps keeps each finished step)."""
+    import time
+
+    from symbolic import _closed_form
+
+    original = _closed_form.separated_forms
+
+    def slow(*a, **k):
+        time.sleep(5)
+        return original(*a, **k)
+
+    monkeypatch.setattr(_closed_form, "separated_forms", slow)
+    design = parse_design(MASS_SPRING.encode(), "t.toml")
+    t = time.perf_counter()
+    d = derive(design, budget=1.5)
+    assert time.perf_counter() - t < 4.5
+    assert d.K.closed_form is not None and d.L.closed_form is not None
+    assert d.separated.closed_form is None
+    assert any("separated-loop derivation did not finish within 1.5 s" in n for n in d.notes)
+    assert not any("closed-form derivation did not finish" in n for n in d.notes)
+    assert d.passed
+
+
+def test_run_bounded_steps_reraises_our_errors_and_reports_a_crash():
+    from symbolic._budget import run_bounded_steps
+    from symbolic._errors import StructureError
+
+    def steps(fail: str):
+        yield 1
+        if fail == "ours":
+            raise StructureError("no such gain", key="plant")
+        raise ZeroDivisionError("a bug")
+
+    with pytest.raises(StructureError, match="no such gain"):
+        run_bounded_steps(steps, ("ours",), seconds=20)
+    results, at, stopped = run_bounded_steps(steps, ("bug",), seconds=20)
+    assert results == [1] and len(at) == 1
+    assert "ZeroDivisionError: a bug" in str(stopped)
