@@ -198,7 +198,31 @@ def _extensions_json(d: Derivation) -> dict[str, Any]:
                 "K": _formula_matrix(dc.K_closed_form),
                 "L": _formula_matrix(dc.L_closed_form),
             },
+            "forms": list(dc.forms),
+            "integral": None,
+            "reduced_observer": None,
         }
+        if dc.integral is not None:
+            di = dc.integral
+            out["discrete"]["integral"] = {
+                "K_augmented": _matrix(di.K_augmented),
+                "K": _matrix(di.K),
+                "integral_gain": _matrix(di.integral_gain),
+                "integral_pole": complex_pairs([complex(di.integral_pole)])[0],
+                "integral_pole_z": complex_pairs([complex(di.integral_pole_z)])[0],
+                "tracking_time": _finite(di.tracking_time),
+                "method": di.method,
+            }
+        if dc.reduced is not None:
+            dr = dc.reduced
+            out["discrete"]["reduced_observer"] = {
+                "L": _matrix(dr.L),
+                "transformation": _matrix(dr.T),
+                "poles": complex_pairs(dr.poles),
+                "poles_z": complex_pairs(dr.poles_z),
+                "observer_matrix": _matrix(dr.observer_matrix),
+                "output_input": _matrix(dr.output_input),
+            }
     return out
 
 

@@ -551,3 +551,39 @@ def test_memo_sections_carry_the_extended_figures_and_tables(pan_limited):
     assert "overshoot [%]" in labels and "settling time 2 % [s]" in labels
     assert "K_d" in digital["integral"]["gain"] and "L_r" in digital["reduced"]["gain"]
     assert r"\hat A" in ctx["reduced"]["observer_matrices"]
+
+
+def test_json_of_the_digital_controller_places_the_mapped_poles(capsys):
+    """`derive --json` of the winch: [K, k_i] in z places e^{sT} of the controller poles and
+    of the integral pole on Φ_a = [[Φ, 0], [T C_t, 1]], Γ_a = [[Γ], [T D_t]]; the reduced
+    observer's matrix has the mapped observer pole."""
+    import json
+
+    path = Path(__file__).resolve().parents[1] / "worked_designs" / "hoist_winch.toml"
+    assert main(["derive", str(path), "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    dc = data["discrete"]
+    T = dc["sample_time"]
+    Phi, Gamma = np.array(dc["Phi"]), np.array(dc["Gamma"])
+    from symbolic import load_design
+    from symbolic._numeric import evaluate_matrix
+
+    design = load_design(path)
+    C, D = (evaluate_matrix(M, design.values) for M in (design.plant.C, design.plant.D))
+    n = Phi.shape[0]
+    Phi_a = np.block([[Phi, np.zeros((n, 1))], [T * C[:1], np.ones((1, 1))]])
+    Gamma_a = np.vstack([Gamma, T * D[:1]])
+    integral = dc["integral"]
+    K_a = np.array(integral["K_augmented"])
+    assert np.allclose(K_a, np.hstack([integral["K"], integral["integral_gain"]]))
+    s_poles = [complex(*p) for p in data["controller_poles"]] + [
+        complex(*integral["integral_pole"])
+    ]
+    want = np.exp(np.array(s_poles) * T)
+    got = np.linalg.eigvals(Phi_a - Gamma_a @ K_a)
+    assert pole_residual(got, want) <= eigenvalue_tolerance(want)
+    reduced = dc["reduced_observer"]
+    got_o = np.linalg.eigvals(np.array(reduced["observer_matrix"]))
+    want_o = np.exp(np.array([complex(*p) for p in reduced["poles"]]) * T)
+    assert pole_residual(got_o, want_o) <= eigenvalue_tolerance(want_o)
+    assert "reduced" in dc["forms"]
