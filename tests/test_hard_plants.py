@@ -589,3 +589,14 @@ def test_radicals_do_not_fail_a_correct_design(text):
     assert residual <= 1e-12  # the design is right ...
     failed = [c.name for c in d.checks if c.passed is False]
     assert not failed, failed  # ... so no check may say otherwise
+
+
+def test_frequency_response_check_of_a_zero_compensator():
+    """K = 0 (the plant already has the requested poles): the compensator is zero; the
+    check compares absolutely instead of dividing by zero (found by a random plant)."""
+    from symbolic._derive import frequency_response_difference
+
+    F, L, K = np.array([[-3.0]]), np.array([[2.0]]), np.zeros((1, 1))
+    assert frequency_response_difference(np.array([0.0]), np.array([1.0, 3.0]), F, L, K) == 0.0
+    wrong = frequency_response_difference(np.array([1e-3]), np.array([1.0, 3.0]), F, L, K)
+    assert 0.0 < wrong < 1e-3
