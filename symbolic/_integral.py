@@ -510,7 +510,7 @@ def integral_action(d: Derivation, *, budget: float | None = None) -> IntegralAc
         raise StructureError(
             f"integral action needs the tracked output '{tracked}' to have no zero at s = 0,"
             f" but at the evaluated parameter values z(0) = 0: the augmented controllability"
-            f" matrix has rank {rank} of {n + 1} (det 𝒞_a = z(0)·det 𝒞){where}. A zero at the"
+            f" matrix has rank {rank} of {n + 1} (det of the augmented controllability matrix = z(0) × det of the plant's){where}. A zero at the"
             " origin blocks constant signals, so no controller can hold this output at a"
             ' non-zero constant; track another output, or use method = "reference_gain" for'
             " a regulator only",
@@ -590,7 +590,7 @@ def integral_action(d: Derivation, *, budget: float | None = None) -> IntegralAc
         if forms.ratio is not None:
             checks.append(
                 Check(
-                    "integral action: det 𝒞_a = z(0)·det 𝒞 identically (exact, symbolic)",
+                    "integral action: det (augmented controllability matrix) = z(0)·det (controllability matrix) identically (exact, symbolic)",
                     None,
                     None,
                     bool(forms.ratio == 1),

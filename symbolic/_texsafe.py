@@ -267,11 +267,14 @@ _LATEX_MATH_NAMES = {
     "Σ": "Sigma", "Υ": "Upsilon", "Φ": "Phi", "Ψ": "Psi", "Ω": "Omega",
     "≤": "leq", "≥": "geq", "≠": "neq", "≈": "approx", "∞": "infty", "∂": "partial",
     "∓": "mp", "≪": "ll", "≫": "gg", "≡": "equiv", "∝": "propto", "∇": "nabla",
-    "∈": "in", "⇒": "Rightarrow", "′": "prime",
+    "∈": "in", "⇒": "Rightarrow", "′": "prime", "∪": "cup", "∩": "cap",
 }  # fmt: skip
 _LATEX_COMMANDS = {ch: rf"\ensuremath{{\{name}}}" for ch, name in _LATEX_MATH_NAMES.items()}
 _LATEX_COMMANDS["\N{MINUS SIGN}"] = r"\textminus{}"
 _LATEX_COMMANDS["″"] = r"\ensuremath{\prime\prime}"
+# Superscripts of our own labels (Lᵀ, (sI − F)⁻¹): set as superscripts, not as code points.
+_LATEX_COMMANDS["ᵀ"] = r"\ensuremath{^{\mathsf{T}}}"
+_LATEX_COMMANDS["⁻"] = r"\ensuremath{^{-}}"
 
 # A run of more than _RUN_LIMIT characters without a space gets a break point every
 # _RUN_CHUNK characters, so that a long token (a path, a hash) wraps instead of running off

@@ -81,8 +81,11 @@ _PDFTOTEXT_QUIRKS = {"\u2206": "\u0394"}
 
 
 def _comparable(text: str) -> str:
-    """NFKC, quirks folded, and every whitespace character removed."""
-    text = text.replace("\u0338=", "\u2260").translate(str.maketrans(_PDFTOTEXT_QUIRKS))
+    """Every whitespace character removed, quirks folded (≠ comes back as "=" and a combining
+    long solidus, in either order, possibly across a line break), and NFKC."""
+    text = "".join(text.split())
+    text = text.replace("\u0338=", "\u2260").replace("=\u0338", "\u2260")
+    text = text.translate(str.maketrans(_PDFTOTEXT_QUIRKS))
     return "".join(unicodedata.normalize("NFKC", text).split())
 
 
