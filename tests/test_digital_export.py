@@ -587,3 +587,38 @@ def test_json_of_the_digital_controller_places_the_mapped_poles(capsys):
     want_o = np.exp(np.array([complex(*p) for p in reduced["poles"]]) * T)
     assert pole_residual(got_o, want_o) <= eigenvalue_tolerance(want_o)
     assert "reduced" in dc["forms"]
+
+
+def test_hostile_title_stays_text_in_the_generated_python(tmp_path, capsys):
+    """The design's title reaches the generated module's docstring only: quotes, backslashes
+    and line breaks cannot end it, nothing at module level runs a call, and the export's own
+    self-check never executes text from the design file."""
+    import ast
+
+    canary = tmp_path / "RAN"
+    hostile = f'"""\\n__import__("os").system("touch {canary}")\\n"""\\\\ \' #'
+    text = _pan_text().replace(
+        'title = "Camera pan axis (demo)"', "title = " + json_string(hostile)
+    )
+    assert json_string(hostile) in text
+    path = _write(tmp_path, text)
+    out = tmp_path / "out"
+    code = main(["export", str(path), "--lang", "python", "--digital", "-o", str(out)])
+    assert code == 0, capsys.readouterr()
+    source = (out / "pan_axis_controller.py").read_text()
+    tree = ast.parse(source)
+    body = tree.body
+    assert isinstance(body[0], ast.Expr) and isinstance(body[0].value, ast.Constant)  # docstring
+    assert "touch" in body[0].value.value  # the title is there, as text
+    for node in body[1:]:
+        assert isinstance(node, ast.FunctionDef | ast.Assign | ast.AnnAssign), ast.dump(node)[:200]
+    module = _import(out / "pan_axis_controller.py")
+    assert module.SAMPLE_TIME == 0.02
+    assert not canary.exists()
+
+
+def json_string(text: str) -> str:
+    """A TOML basic string (JSON escaping is valid TOML for these characters)."""
+    import json
+
+    return json.dumps(text)
