@@ -11,6 +11,7 @@ from __future__ import annotations
 import io
 import multiprocessing as mp
 import os
+import re
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 
@@ -18,6 +19,7 @@ import numpy as np
 from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
+from matplotlib.ticker import Formatter, LogFormatterSciNotation
 
 __all__ = [
     "figure_files",
@@ -267,12 +269,63 @@ def observer_study_figure(
     return fig
 
 
+_SUPERSCRIPT = str.maketrans(
+    "-0123456789", "\u207b\u2070\u00b9\u00b2\u00b3\u2074\u2075\u2076\u2077\u2078\u2079"
+)
+#: The labels matplotlib's log-axis formatter writes: $\mathdefault{10^{-2}}$ and
+#: $\mathdefault{2\times10^{-1}}$ (minor ticks of a short range).
+_LOG_LABEL = re.compile(r"^\$\\mathdefault\{(?:([0-9.]+)\\times\s*)?10\^\{(-?[0-9]+)\}\}\$$")
+
+
+def _unicode_label(label: str) -> str:
+    """10⁻² for $\\mathdefault{10^{-2}}$: plain text, set without the mathtext parser."""
+    match = _LOG_LABEL.match(label)
+    if match is None:
+        return label  # anything else stays as matplotlib wrote it
+    factor, exponent = match.groups()
+    power = "10" + exponent.translate(_SUPERSCRIPT)
+    return f"{factor}\u00d7{power}" if factor else power
+
+
+class _PlainLogLabels(Formatter):
+    """The labels of a log-axis formatter, as plain Unicode text instead of mathtext.
+
+    Parsing mathtext took about a fifth of the time of saving the memo's figures
+    (measured: the log axes of the estimation-error, observer-study and Bode figures);
+    which ticks get a label is still decided by matplotlib's formatter.
+    """
+
+    def __init__(self, inner: Formatter):
+        self.inner = inner
+
+    def set_axis(self, axis) -> None:
+        super().set_axis(axis)
+        self.inner.set_axis(axis)
+
+    def set_locs(self, locs) -> None:
+        self.inner.set_locs(locs)
+
+    def __call__(self, x, pos=None) -> str:
+        return _unicode_label(self.inner(x, pos))
+
+
+def _plain_log_labels(fig: Figure) -> None:
+    for ax in fig.axes:
+        for axis in (ax.xaxis, ax.yaxis):
+            if isinstance(axis.get_major_formatter(), LogFormatterSciNotation):
+                axis.set_major_formatter(_PlainLogLabels(axis.get_major_formatter()))
+            if isinstance(axis.get_minor_formatter(), LogFormatterSciNotation):
+                axis.set_minor_formatter(_PlainLogLabels(axis.get_minor_formatter()))
+
+
 def figure_files(fig: Figure, stem: str) -> dict[str, bytes]:
     """Render a figure as ``stem.pdf`` (vector, for TeX) and ``stem.png`` (for Markdown).
 
     Metadata that changes between runs (creation date, software version) is
-    left out so the same design gives the same files.
+    left out so the same design gives the same files.  Log-axis tick labels are
+    set as plain text (``10⁻²``) rather than mathtext, which is slow to lay out.
     """
+    _plain_log_labels(fig)
     out = {}
     buf = io.BytesIO()
     fig.savefig(

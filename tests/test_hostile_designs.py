@@ -181,7 +181,7 @@ def _run_case_guarded(case: HostileCase, path: Path, seconds: float) -> Outcome:
         receiver.close()
 
 
-@pytest.mark.parametrize("case", _params())
+@pytest.mark.parametrize("case", list(_params()))
 def test_hostile_file_ends_in_a_clean_located_error(case: HostileCase, tmp_path):
     path, canary = _write(case, tmp_path)
     if case.known_issue:
