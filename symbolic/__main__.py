@@ -1,7 +1,5 @@
 """``python -m symbolic`` runs the gainsmith command line."""
 
-import sys
+from .cli import run
 
-from .cli import main
-
-sys.exit(main())
+run()

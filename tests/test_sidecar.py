@@ -143,3 +143,28 @@ def test_commands_with_a_sidecar_never_load_scipy_themselves(command, tmp_path):
     )
     assert out["code"] == 0
     assert out["scipy_here"] == []
+
+
+def test_the_command_exits_fast_with_every_output_flushed(tmp_path):
+    """``run`` ends the process with os._exit after flushing: the JSON on stdout is whole,
+    and the exit codes and the one-line error are those of main."""
+    done = subprocess.run(
+        [sys.executable, "-m", "symbolic", "derive", str(WORKED / "belt_drive.toml"), "--json"],
+        cwd=ROOT,
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+    assert done.returncode == 0, done.stderr
+    assert json.loads(done.stdout)["passed"] is True
+    bad = tmp_path / "bad.toml"
+    bad.write_text("[plant]\nA = [[0]]\nB = [[1]]\nC = [[1]]\n[controler]\n")
+    done = subprocess.run(
+        [sys.executable, "-m", "symbolic", "derive", str(bad)],
+        cwd=ROOT,
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+    assert done.returncode == 2
+    assert done.stderr.count("\n") == 1 and "controler" in done.stderr
