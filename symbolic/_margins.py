@@ -79,15 +79,13 @@ References
 from __future__ import annotations
 
 import math
-import warnings
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.signal
 from scipy.optimize import brentq
 
 from ._derive import Check, Derivation
-from ._numeric import eigenvalue_tolerance, pole_residual
+from ._numeric import eigenvalue_tolerance, frequency_response, pole_residual
 
 __all__ = [
     "BrokenLoop",
@@ -686,11 +684,7 @@ def broken_loop_margins(loop: BrokenLoop) -> MarginReport:
     mag = np.abs(loop_response(loop, 1j * sub))
     sub = sub[(mag >= 1e-2) & (mag <= 1e2)]
     if sub.size:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            _w, ref = scipy.signal.freqresp(
-                scipy.signal.StateSpace(loop.A, loop.B, loop.C, loop.D), w=sub
-            )
+        ref = frequency_response(loop.A, loop.B, loop.C, loop.D, sub)  # scipy.signal.freqresp
         mine = loop_response(loop, 1j * sub)
         ok = np.isfinite(ref) & np.isfinite(mine)
         diff = (

@@ -28,6 +28,7 @@ __all__ = [
     "polynomial_residual",
     "relative_difference",
     "transfer_function",
+    "frequency_response",
 ]
 
 
@@ -190,3 +191,31 @@ def _transfer_function(
     if num.size == den.size and abs(num[0]) <= 1e-12 * max(1.0, np.abs(num).max()):
         num = num[1:]
     return num, den
+
+
+def frequency_response(
+    A: np.ndarray, B: np.ndarray, C: np.ndarray, D: np.ndarray, omega: np.ndarray
+) -> np.ndarray:
+    """``scipy.signal.freqresp`` of a one-input, one-output state-space model at ``omega``.
+
+    An independent evaluation for cross-checks (in the SciPy sidecar when there is
+    one); warnings of SciPy's polynomial route are silenced, its values are compared.
+    """
+    return _sidecar.call(
+        _frequency_response, *(np.asarray(M) for M in (A, B, C, D)), np.asarray(omega)
+    )
+
+
+def _frequency_response(A, B, C, D, omega) -> np.ndarray:
+    from scipy.signal import StateSpace, freqresp
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        _w, response = freqresp(StateSpace(A, B, C, D), w=omega)
+    return np.asarray(response)
+
+
+# the SciPy module each sidecar function loads (symbolic._sidecar.call)
+for _func in (_scipy_placement, _transfer_function, _frequency_response):
+    _func.sidecar_needs = "scipy.signal"  # type: ignore[attr-defined]
+_pole_residual.sidecar_needs = "scipy.optimize"  # type: ignore[attr-defined]

@@ -15,8 +15,8 @@ process instead, with the same result, whenever
 
 * no sidecar was started (library use, tests), or this is a forked child of
   the process that started it;
-* this process has imported SciPy itself by now (a local call is then
-  cheaper than a round trip);
+* this process has imported the SciPy module the function needs by now (a
+  local call is then cheaper than a round trip);
 * the sidecar fails for any reason (it died, the result does not pickle, the
   function raised): the local call then raises the same error, in the usual
   way, with the usual message.
@@ -152,9 +152,13 @@ def call(func: Callable[..., T], *args: Any, **kwargs: Any) -> T:
 
     ``func`` must be a module-level function (it is pickled by name).  The
     result is the same wherever it runs; see the module notes for when the
-    call stays in this process.
+    call stays in this process.  A function may name the module it loads in an
+    attribute ``sidecar_needs`` (default ``"scipy"``): the call goes to the
+    sidecar while that module is not loaded here, so a process that loaded
+    ``scipy.integrate`` for itself still leaves ``scipy.signal`` to the sidecar.
     """
-    if running() and "scipy" not in sys.modules:
+    needs = getattr(func, "sidecar_needs", "scipy")
+    if running() and needs not in sys.modules:
         with _lock:
             if running():
                 done, value = _remote(func, args, kwargs)

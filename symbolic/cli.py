@@ -19,9 +19,12 @@ __all__ = ["main", "run"]
 EXIT_OK, EXIT_FAILED_CHECK, EXIT_BAD_INPUT, EXIT_BUG = 0, 1, 2, 3
 
 #: Commands that get the SciPy sidecar (symbolic._sidecar): those whose main process
-#: need not load SciPy at all.  The others (simulation, robustness, the memo) load it
-#: here anyway, and a second copy in the sidecar would only take CPU from them.
-SIDECAR_COMMANDS = frozenset({"derive", "export"})
+#: need not load ``scipy.signal`` (the slowest part of SciPy to import).  The memo loads
+#: the rest of SciPy for its simulation, but leaves ``place_poles``, ``ss2tf`` and
+#: ``freqresp`` to the sidecar, which loads them while the memo loads SymPy and
+#: matplotlib.  The other commands load ``scipy.signal`` here anyway (a second copy in
+#: the sidecar would only take CPU from them).
+SIDECAR_COMMANDS = frozenset({"derive", "export", "memo"})
 
 
 def _overrides(pairs: Sequence[str] | None, design: str) -> dict[str, str]:
