@@ -26,6 +26,7 @@ import sys
 import time
 import traceback
 from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from typing import Any, TypeVar
 
 from ._errors import BudgetExceeded, GainsmithError
@@ -117,6 +118,40 @@ def _child(
         os._exit(0)
 
 
+@contextmanager
+def _forked_child(
+    func: Callable[..., Any], args: tuple, seconds: float, memory_bytes: int | None
+) -> Iterator[Any]:
+    """Fork the bounded child (:func:`_child`); yield the end of the pipe it writes to.
+
+    On leaving, the child is killed if it still runs, and reaped."""
+    ctx = mp.get_context("fork")
+    receiver, sender = ctx.Pipe(duplex=False)
+    proc = ctx.Process(
+        target=_child,
+        args=(sender, func, args, memory_bytes, seconds, os.getpid()),
+        daemon=True,
+    )
+    proc.start()
+    sender.close()
+    try:
+        yield receiver
+    finally:
+        if proc.is_alive():
+            proc.kill()
+        proc.join(timeout=5)
+        receiver.close()
+
+
+def _failure(status: str, value: Any, what: str) -> BudgetExceeded:
+    """The error for a child's final message other than "ok"; our own errors are re-raised."""
+    if status == "error":
+        raise value
+    if status == "memory":
+        return BudgetExceeded(f"{what} ran out of its memory budget")
+    return BudgetExceeded(f"{what} failed: {value.splitlines()[0]}")
+
+
 def run_bounded_steps(
     func: Callable[..., Iterator[Any]],
     args: tuple = (),
@@ -153,48 +188,25 @@ def run_bounded_steps(
             results.append(step)
             seconds_at.append(time.monotonic() - start)
         return results, seconds_at, None
-    ctx = mp.get_context("fork")
-    receiver, sender = ctx.Pipe(duplex=False)
-    proc = ctx.Process(
-        target=_child,
-        args=(sender, func, args, memory_bytes, seconds, os.getpid()),
-        daemon=True,
-    )
-    proc.start()
-    sender.close()
-    try:
+    with _forked_child(func, args, seconds, memory_bytes) as receiver:
         while True:
             left = seconds - (time.monotonic() - start)
             if left <= 0 or not receiver.poll(left):
-                return (
-                    results,
-                    seconds_at,
-                    BudgetExceeded(f"{what} did not finish within {seconds:g} s"),
-                )
+                stopped = BudgetExceeded(f"{what} did not finish within {seconds:g} s")
+                return results, seconds_at, stopped
             try:
                 status, value = pickle.loads(receiver.recv_bytes())
             except (EOFError, OSError):
+                stopped = BudgetExceeded(f"{what} stopped without a result (out of memory?)")
+                return results, seconds_at, stopped
+            if status != "step":
                 return (
                     results,
                     seconds_at,
-                    BudgetExceeded(f"{what} stopped without a result (out of memory?)"),
+                    None if status == "ok" else _failure(status, value, what),
                 )
-            if status == "step":
-                results.append(value)
-                seconds_at.append(time.monotonic() - start)
-                continue
-            if status == "ok":
-                return results, seconds_at, None
-            if status == "memory":
-                return results, seconds_at, BudgetExceeded(f"{what} ran out of its memory budget")
-            if status == "error":
-                raise value
-            return results, seconds_at, BudgetExceeded(f"{what} failed: {value.splitlines()[0]}")
-    finally:
-        if proc.is_alive():
-            proc.kill()
-        proc.join(timeout=5)
-        receiver.close()
+            results.append(value)
+            seconds_at.append(time.monotonic() - start)
 
 
 def run_bounded(
@@ -229,31 +241,13 @@ def run_bounded(
     """
     if seconds is None or "fork" not in mp.get_all_start_methods():
         return func(*args)
-    ctx = mp.get_context("fork")
-    receiver, sender = ctx.Pipe(duplex=False)
-    proc = ctx.Process(
-        target=_child,
-        args=(sender, func, args, memory_bytes, seconds, os.getpid()),
-        daemon=True,
-    )
-    proc.start()
-    sender.close()
-    try:
+    with _forked_child(func, args, seconds, memory_bytes) as receiver:
         if not receiver.poll(seconds):
             raise BudgetExceeded(f"{what} did not finish within {seconds:g} s")
         try:
             status, value = pickle.loads(receiver.recv_bytes())
         except (EOFError, OSError) as exc:
             raise BudgetExceeded(f"{what} stopped without a result (out of memory?)") from exc
-    finally:
-        if proc.is_alive():
-            proc.kill()
-        proc.join(timeout=5)
-        receiver.close()
     if status == "ok":
         return value
-    if status == "memory":
-        raise BudgetExceeded(f"{what} ran out of its memory budget")
-    if status == "error":
-        raise value
-    raise BudgetExceeded(f"{what} failed: {value.splitlines()[0]}")
+    raise _failure(status, value, what)

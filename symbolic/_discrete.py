@@ -57,7 +57,7 @@ import sympy as sp
 
 from . import _closed_form as cf
 from ._budget import run_bounded
-from ._derive import Check, Derivation
+from ._derive import GAIN_TOLERANCE, Check, Derivation
 from ._errors import BudgetExceeded, GainsmithWarning, RenderError, StructureError
 from ._numeric import (
     eigenvalue_tolerance,
@@ -113,7 +113,6 @@ OBSERVER_FORMS = ("current", "predictor")
 #: (present only when the design asks for ``[observer] kind = "reduced"``).
 DIGITAL_FORMS = ("current", "predictor", "reduced")
 
-GAIN_TOLERANCE = 1e-8
 DISCRETISATION_TOLERANCE = 1e-9
 #: Entries of the closed-form Φ, Γ with more operations than this are left unsimplified.
 SIMPLIFY_LIMIT = 60

@@ -72,7 +72,7 @@ from sympy.polys.matrices import DomainMatrix
 
 from . import _closed_form as cf
 from ._budget import run_bounded
-from ._derive import Check, Derivation, conditions_of
+from ._derive import GAIN_TOLERANCE, Check, Derivation, conditions_of
 from ._errors import BudgetExceeded, GainsmithWarning, StructureError
 from ._numeric import (
     eigenvalue_tolerance,
@@ -111,9 +111,6 @@ DISTURBANCE_FRACTION = 0.2
 #: Without parameter ranges, the mismatched plants scale every parameter by 1 -/+ this
 #: fraction (common practice, no source).
 MISMATCH_FRACTION = sp.Rational(1, 5)
-
-#: Relative tolerance of gain comparisons against SciPy (as in :mod:`symbolic._derive`).
-GAIN_TOLERANCE = 1e-8
 
 #: A run stops when the state grows past this size (as in :mod:`symbolic._simulate`).
 STATE_LIMIT = 1e12

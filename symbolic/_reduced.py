@@ -48,7 +48,7 @@ from sympy.polys.matrices import DomainMatrix
 
 from . import _closed_form as cf
 from ._budget import run_bounded
-from ._derive import Check, Derivation
+from ._derive import GAIN_TOLERANCE, Check, Derivation
 from ._errors import BudgetExceeded, StructureError
 from ._numeric import (
     eigenvalue_tolerance,
@@ -65,9 +65,6 @@ __all__ = [
     "reduced_observer",
     "reduced_observer_poles",
 ]
-
-#: Relative tolerance of gain comparisons against SciPy (as in :mod:`symbolic._derive`).
-GAIN_TOLERANCE = 1e-8
 
 
 # --------------------------------------------------------------------------------------------
