@@ -26,12 +26,18 @@ import sys
 import time
 import traceback
 from collections.abc import Callable, Iterator
-from contextlib import contextmanager
 from typing import Any, TypeVar
 
 from ._errors import BudgetExceeded, GainsmithError
 
-__all__ = ["run_bounded", "run_bounded_steps", "die_with_parent", "DEFAULT_MEMORY_BYTES"]
+__all__ = [
+    "BoundedChild",
+    "Outcome",
+    "run_bounded",
+    "run_bounded_steps",
+    "die_with_parent",
+    "DEFAULT_MEMORY_BYTES",
+]
 
 T = TypeVar("T")
 
@@ -118,31 +124,6 @@ def _child(
         os._exit(0)
 
 
-@contextmanager
-def _forked_child(
-    func: Callable[..., Any], args: tuple, seconds: float, memory_bytes: int | None
-) -> Iterator[Any]:
-    """Fork the bounded child (:func:`_child`); yield the end of the pipe it writes to.
-
-    On leaving, the child is killed if it still runs, and reaped."""
-    ctx = mp.get_context("fork")
-    receiver, sender = ctx.Pipe(duplex=False)
-    proc = ctx.Process(
-        target=_child,
-        args=(sender, func, args, memory_bytes, seconds, os.getpid()),
-        daemon=True,
-    )
-    proc.start()
-    sender.close()
-    try:
-        yield receiver
-    finally:
-        if proc.is_alive():
-            proc.kill()
-        proc.join(timeout=5)
-        receiver.close()
-
-
 def _failure(status: str, value: Any, what: str) -> BudgetExceeded:
     """The error for a child's final message other than "ok"; our own errors are re-raised."""
     if status == "error":
@@ -150,6 +131,127 @@ def _failure(status: str, value: Any, what: str) -> BudgetExceeded:
     if status == "memory":
         return BudgetExceeded(f"{what} ran out of its memory budget")
     return BudgetExceeded(f"{what} failed: {value.splitlines()[0]}")
+
+
+class Outcome:
+    """A step already run (its value, or the error it raised), collected like a
+    :class:`BoundedChild`: :meth:`result` returns the value or raises the error."""
+
+    def __init__(self, value: Any = None, error: BaseException | None = None):
+        self.value, self.error = value, error
+
+    def result(self) -> Any:
+        if self.error is not None:
+            raise self.error
+        return self.value
+
+    def cancel(self) -> None:
+        """Nothing runs: nothing to stop."""
+
+
+class BoundedChild:
+    """A bounded symbolic step started now and collected later.
+
+    :func:`run_bounded` and :func:`run_bounded_steps` in two halves: the constructor
+    forks the child (its time budget runs from here), :meth:`result` or :meth:`steps`
+    waits for it.  Several can run side by side while this process does other work;
+    the derivation starts the closed forms of its extensions this way, together with
+    its main symbolic stage.  ``seconds=None`` (or no ``fork``) runs ``func`` in this
+    process, unbounded, when it is collected.  Collect each exactly once, or
+    :meth:`cancel` it (also safe after collecting).
+    """
+
+    def __init__(
+        self,
+        func: Callable[..., Any],
+        args: tuple = (),
+        *,
+        seconds: float | None,
+        memory_bytes: int | None = DEFAULT_MEMORY_BYTES,
+        what: str = "symbolic step",
+    ):
+        self.func, self.args, self.seconds, self.what = func, args, seconds, what
+        self.started = time.monotonic()
+        self._proc: Any = None
+        self._receiver: Any = None
+        if seconds is not None and "fork" in mp.get_all_start_methods():
+            ctx = mp.get_context("fork")
+            self._receiver, sender = ctx.Pipe(duplex=False)
+            self._proc = ctx.Process(
+                target=_child,
+                args=(sender, func, args, memory_bytes, seconds, os.getpid()),
+                daemon=True,
+            )
+            self._proc.start()
+            sender.close()
+
+    def cancel(self) -> None:
+        """Kill the child if it still runs, and reap it."""
+        proc, receiver = self._proc, self._receiver
+        self._proc = self._receiver = None
+        if proc is None:
+            return
+        try:
+            if proc.is_alive():
+                proc.kill()
+            proc.join(timeout=5)
+        finally:
+            receiver.close()
+
+    def _left(self) -> float:
+        return self.seconds - (time.monotonic() - self.started)
+
+    def steps(self) -> tuple[list[Any], list[float], BudgetExceeded | None]:
+        """Collect a generator's steps (see :func:`run_bounded_steps`)."""
+        results: list[Any] = []
+        seconds_at: list[float] = []
+        if self._proc is None:
+            for step in self.func(*self.args):
+                results.append(step)
+                seconds_at.append(time.monotonic() - self.started)
+            return results, seconds_at, None
+        try:
+            while True:
+                left = self._left()
+                if left <= 0 or not self._receiver.poll(left):
+                    stopped = BudgetExceeded(
+                        f"{self.what} did not finish within {self.seconds:g} s"
+                    )
+                    return results, seconds_at, stopped
+                try:
+                    status, value = pickle.loads(self._receiver.recv_bytes())
+                except (EOFError, OSError):
+                    stopped = BudgetExceeded(
+                        f"{self.what} stopped without a result (out of memory?)"
+                    )
+                    return results, seconds_at, stopped
+                if status != "step":
+                    failed = None if status == "ok" else _failure(status, value, self.what)
+                    return results, seconds_at, failed
+                results.append(value)
+                seconds_at.append(time.monotonic() - self.started)
+        finally:
+            self.cancel()
+
+    def result(self) -> Any:
+        """Collect a function's value (see :func:`run_bounded`)."""
+        if self._proc is None:
+            return self.func(*self.args)
+        try:
+            left = self._left()
+            if left <= 0 or not self._receiver.poll(left):
+                raise BudgetExceeded(f"{self.what} did not finish within {self.seconds:g} s")
+            try:
+                status, value = pickle.loads(self._receiver.recv_bytes())
+            except (EOFError, OSError) as exc:
+                raise BudgetExceeded(
+                    f"{self.what} stopped without a result (out of memory?)"
+                ) from exc
+        finally:
+            self.cancel()
+        if status == "ok":
+            return value
+        raise _failure(status, value, self.what)
 
 
 def run_bounded_steps(
@@ -180,33 +282,7 @@ def run_bounded_steps(
     GainsmithError
         Re-raised from the child unchanged.
     """
-    start = time.monotonic()
-    results: list[Any] = []
-    seconds_at: list[float] = []
-    if seconds is None or "fork" not in mp.get_all_start_methods():
-        for step in func(*args):
-            results.append(step)
-            seconds_at.append(time.monotonic() - start)
-        return results, seconds_at, None
-    with _forked_child(func, args, seconds, memory_bytes) as receiver:
-        while True:
-            left = seconds - (time.monotonic() - start)
-            if left <= 0 or not receiver.poll(left):
-                stopped = BudgetExceeded(f"{what} did not finish within {seconds:g} s")
-                return results, seconds_at, stopped
-            try:
-                status, value = pickle.loads(receiver.recv_bytes())
-            except (EOFError, OSError):
-                stopped = BudgetExceeded(f"{what} stopped without a result (out of memory?)")
-                return results, seconds_at, stopped
-            if status != "step":
-                return (
-                    results,
-                    seconds_at,
-                    None if status == "ok" else _failure(status, value, what),
-                )
-            results.append(value)
-            seconds_at.append(time.monotonic() - start)
+    return BoundedChild(func, args, seconds=seconds, memory_bytes=memory_bytes, what=what).steps()
 
 
 def run_bounded(
@@ -239,15 +315,4 @@ def run_bounded(
     GainsmithError
         Re-raised from the child unchanged.
     """
-    if seconds is None or "fork" not in mp.get_all_start_methods():
-        return func(*args)
-    with _forked_child(func, args, seconds, memory_bytes) as receiver:
-        if not receiver.poll(seconds):
-            raise BudgetExceeded(f"{what} did not finish within {seconds:g} s")
-        try:
-            status, value = pickle.loads(receiver.recv_bytes())
-        except (EOFError, OSError) as exc:
-            raise BudgetExceeded(f"{what} stopped without a result (out of memory?)") from exc
-    if status == "ok":
-        return value
-    raise _failure(status, value, what)
+    return BoundedChild(func, args, seconds=seconds, memory_bytes=memory_bytes, what=what).result()

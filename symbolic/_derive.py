@@ -11,6 +11,7 @@ never re-derive anything.
 from __future__ import annotations
 
 import dataclasses
+import functools
 import math
 import time
 import warnings
@@ -22,9 +23,9 @@ import sympy as sp
 
 from . import _closed_form as cf
 from . import _sidecar
-from ._budget import run_bounded_steps
+from ._budget import Outcome, run_bounded_steps
 from ._design import Design, Signal
-from ._errors import DesignFileError, GainsmithWarning, StructureError
+from ._errors import BudgetExceeded, DesignFileError, GainsmithWarning, StructureError
 from ._numeric import (
     eigenvalue_tolerance,
     evaluate_matrix,
@@ -432,38 +433,52 @@ class _Budget:
         self.seconds = seconds
         self.deadline = time.monotonic() + seconds
 
-    def run_steps(self, func, args, whats: tuple[str, ...], notes: list[str]):
-        """Successive stages in one child (one fork): results (None where missing), and
-        the seconds each took."""
+    def run_steps(
+        self, func, args, whats: tuple[str, ...], notes: list[str], reported: int | None = None
+    ):
+        """Successive stages in one child (one fork): results (None where missing), the
+        seconds each took, and why the missing ones are missing (None when none is).
+
+        A note is added when one of the first ``reported`` stages (default: all) is
+        missing; the callers of the later ones report those themselves."""
+        reported = len(whats) if reported is None else reported
         left = None if self.unbounded else self.deadline - time.monotonic()
         if left is not None and left <= 0.05:
             notes.append(
                 f"{whats[0]} was skipped: the symbolic budget of {self.seconds:g} s was used up;"
                 " numeric results are given instead of closed forms"
             )
-            return [None] * len(whats), [0.0] * len(whats)
+            return [None] * len(whats), [0.0] * len(whats), f"{whats[0]} was skipped"
         results, at, stopped = run_bounded_steps(func, args, seconds=left, what=whats[0])
         took = [b - a for a, b in zip([0.0, *at], at, strict=False)]
+        reason = None
         if stopped is not None and len(results) < len(whats):
             what = whats[len(results)]
             reason = str(stopped).replace(whats[0], what)
             if "did not finish" in reason:
                 reason = f"{what} did not finish within {self.seconds:g} s"
-            notes.append(
-                f"{reason} (the symbolic budget, options.symbolic_budget_seconds);"
-                " numeric results are given instead of closed forms"
-            )
+            if len(results) < reported:
+                notes.append(
+                    f"{reason} (the symbolic budget, options.symbolic_budget_seconds);"
+                    " numeric results are given instead of closed forms"
+                )
         pad = len(whats) - len(results)
-        return list(results) + [None] * pad, took + [0.0] * pad
+        return list(results) + [None] * pad, took + [0.0] * pad, reason
 
 
-def _symbolic_stages(design: Design, ctrl: PoleChoice, obs: PoleChoice):
-    """The closed forms, then the separated loop built from them (a generator: each stage
-    is kept as soon as it is done, see :func:`symbolic._budget.run_bounded_steps`)."""
+def _symbolic_stages(design: Design, ctrl: PoleChoice, obs: PoleChoice, after=()):
+    """The closed forms, then the separated loop built from them (None when there are no
+    closed-form gains), then each of ``after`` called with the closed-form K or None (a
+    generator: each stage is kept as soon as it is done, see
+    :func:`symbolic._budget.run_bounded_steps`)."""
     forms = _closed_form_stage(design, ctrl, obs)
     yield forms
     if forms.controller is not None and forms.observer is not None:
         yield _separated_stage(design, forms.controller.gain, forms.observer.gain.T, ctrl, obs)
+    else:
+        yield None
+    for step in after:
+        yield step(forms.controller.gain if forms.controller is not None else None)
 
 
 def derive(design: Design, *, budget: float | None = None) -> Derivation:
@@ -488,8 +503,59 @@ def derive(design: Design, *, budget: float | None = None) -> Derivation:
         When the plant is uncontrollable or unobservable at the evaluated
         parameter values.
     """
-    timings: dict[str, float] = {}
     t0 = time.perf_counter()
+    ctrl = select_controller_poles(design)
+    obs = select_observer_poles(design, ctrl)
+    num = _numeric_plant(design)
+    pending = _start_extensions(design, ctrl, obs, num, budget)
+    try:
+        result = _derive(design, budget, ctrl, obs, num, pending, t0)
+        return _extensions(result, budget, pending)
+    except BaseException:
+        for job in pending.values():
+            if not isinstance(job, functools.partial):
+                job.cancel()
+        raise
+
+
+def _start_extensions(
+    design: Design, ctrl: PoleChoice, obs: PoleChoice, num: NumericPlant, budget: float | None
+) -> dict:
+    """The closed forms of the extensions the design asks for, started now so that they run
+    beside the main symbolic stage: the integral action's and the digital controller's in
+    children of their own, the reduced observer's (which needs the closed-form K) as a
+    callable for the main stage's child to run after K.  Keyed by the
+    :class:`Derivation` field each belongs to."""
+    from . import _discrete, _integral, _reduced
+
+    pending: dict = {}
+    if design.tracking.method == "integral":
+        job = _integral.start_closed_form(design, ctrl.poles, budget=budget)
+        if job is not None:
+            pending["integral"] = job
+    if design.discrete is not None:
+        job = _discrete.start_closed_forms(design, ctrl.poles, obs.poles, budget=budget)
+        if job is not None:
+            pending["discrete"] = job
+    if design.observer.kind == "reduced":
+        pending["reduced_observer"] = functools.partial(
+            _reduced.closed_form_outcome, design, num.C, obs.poles, ctrl.coefficients
+        )
+    return pending
+
+
+def _derive(
+    design: Design,
+    budget: float | None,
+    ctrl: PoleChoice,
+    obs: PoleChoice,
+    num: NumericPlant,
+    pending: dict,
+    t0: float,
+) -> Derivation:
+    """:func:`derive` without the extensions; the main symbolic child also runs the steps
+    in ``pending`` that are callables, and replaces each by its outcome."""
+    timings: dict[str, float] = {}
     notes: list[str] = []
     checks: list[Check] = []
     plant = design.plant
@@ -497,26 +563,40 @@ def derive(design: Design, *, budget: float | None = None) -> Derivation:
     values = design.values
 
     symbolic_budget = _Budget(design.symbolic_budget_seconds if budget is None else budget)
-    ctrl = select_controller_poles(design)
-    obs = select_observer_poles(design, ctrl)
-    num = _numeric_plant(design)
     A, B, C, D = num.A, num.B, num.C, num.D
 
     # ---- closed forms and the separated loop (bounded, one child) ----------------
     forms: cf.ClosedForms | None = None
     sep_forms: cf.SeparatedForms | None = None
     timings["closed_form"] = timings["separated"] = 0.0
+    after = {k: job for k, job in pending.items() if isinstance(job, functools.partial)}
     if m == 1 or p == 1:
+        whats = (
+            "the closed-form derivation",
+            "the separated-loop derivation",
+            *(f"the closed form of the {key.replace('_', ' ')}" for key in after),
+        )
         try:
-            (forms, sep_forms), took = symbolic_budget.run_steps(
+            results, took, reason = symbolic_budget.run_steps(
                 _symbolic_stages,
-                (design, ctrl, obs),
-                ("the closed-form derivation", "the separated-loop derivation"),
+                (design, ctrl, obs, tuple(after.values())),
+                whats,
                 notes,
+                reported=2,
             )
         except StructureError as exc:
             raise StructureError(exc.problem, design.path, exc.key) from exc
-        timings["closed_form"], timings["separated"] = took
+        forms, sep_forms = results[0], results[1]
+        timings["closed_form"], timings["separated"] = took[0], took[1]
+        for key, outcome, what in zip(after, results[2:], whats[2:], strict=True):
+            pending[key] = (
+                outcome
+                if outcome is not None
+                else Outcome(error=BudgetExceeded(reason or f"{what} did not finish"))
+            )
+    else:
+        for key in after:
+            del pending[key]
 
     # ---- structure ----------------------------------------------------------
     ctrb_value = _numeric_structure(A, B)
@@ -719,10 +799,10 @@ def derive(design: Design, *, budget: float | None = None) -> Derivation:
         plant_charpoly=forms.plant_charpoly if forms else None,
         timings=timings,
     )
-    return _extensions(result, budget)
+    return result
 
 
-def _extensions(d: Derivation, budget: float | None) -> Derivation:
+def _extensions(d: Derivation, budget: float | None, pending: dict) -> Derivation:
     """Integral action, reduced-order observer and digital controller, when the design asks.
 
     Their checks and notes join the derivation's (their warnings are carried as notes).
@@ -743,11 +823,15 @@ def _extensions(d: Derivation, budget: float | None) -> Derivation:
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", GainsmithWarning)
         if design.tracking.method == "integral":
-            extra["integral"] = integral_action(d, budget=budget)
+            extra["integral"] = integral_action(d, budget=budget, pending=pending.get("integral"))
         if design.observer.kind == "reduced":
-            extra["reduced_observer"] = reduced_observer(d, budget=budget)
+            extra["reduced_observer"] = reduced_observer(
+                d, budget=budget, pending=pending.get("reduced_observer")
+            )
         if design.discrete is not None:
-            extra["discrete"] = digital_controller(d, budget=budget)
+            extra["discrete"] = digital_controller(
+                d, budget=budget, pending=pending.get("discrete")
+            )
     d.timings["extensions"] = time.perf_counter() - t
     parts = list(extra.values())
     return dataclasses.replace(

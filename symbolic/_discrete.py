@@ -38,6 +38,9 @@ References
    Transactions on Automatic Control* 23(3):395-404, 1978. doi:10.1109/TAC.1978.1101743
 .. [4] J. Ackermann, "Der Entwurf linearer Regelungssysteme im Zustandsraum",
    *Regelungstechnik* 20(7):297-300, 1972.
+.. [5] E. J. Putzer, "Avoiding the Jordan canonical form in the discussion of linear systems
+   with constant coefficients", *The American Mathematical Monthly* 73(1):2-7, 1966.
+   doi:10.2307/2313914
 """
 
 from __future__ import annotations
@@ -50,21 +53,20 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.linalg
-import scipy.optimize
-import scipy.signal
 import sympy as sp
 
 from . import _closed_form as cf
-from ._budget import run_bounded
+from ._budget import BoundedChild
 from ._derive import GAIN_TOLERANCE, Check, Derivation
-from ._errors import BudgetExceeded, GainsmithWarning, RenderError, StructureError
+from ._errors import GainsmithWarning, RenderError, StructureError
 from ._numeric import (
+    closed_loop_bandwidth,
     eigenvalue_tolerance,
     evaluate_matrix,
     numeric_ackermann,
     pole_residual,
     relative_difference,
+    sampled_plant,
     scipy_placement,
 )
 
@@ -327,6 +329,73 @@ class SampledDataStudy:
 # --------------------------------------------------------------------------------------------
 # Formulas
 # --------------------------------------------------------------------------------------------
+def _split_roots(M: sp.Matrix) -> list[sp.Expr] | None:
+    """Eigenvalues of ``M`` with multiplicity, equal ones adjacent, when its characteristic
+    polynomial splits into linear factors over the field of its entries (None otherwise)."""
+    charpoly = M.charpoly()
+    x = charpoly.gens[0]
+    numerator, _ = sp.fraction(sp.together(charpoly.as_expr()))
+    roots: list[sp.Expr] = []
+    for factor, multiplicity in sp.factor_list(numerator)[1]:
+        if not factor.has(x):
+            continue
+        poly = sp.Poly(factor, x)
+        if poly.degree() != 1:
+            return None
+        lead, const = poly.all_coeffs()
+        roots.extend([sp.cancel(-const / lead)] * multiplicity)
+    return roots if len(roots) == M.shape[0] else None
+
+
+def _exponential_by_divided_differences(M: sp.Matrix, roots: list[sp.Expr]) -> sp.Matrix:
+    """``e^M = Σ_k f[λ_1, …, λ_{k+1}] Π_{j≤k} (M − λ_j I)`` with ``f(λ) = e^λ`` (Newton's
+    interpolation of the exponential at the eigenvalues, Putzer's algorithm [5]).
+
+    ``roots`` are the eigenvalues with equal ones adjacent; a divided difference over ``k + 1``
+    equal points is the derivative ``e^λ / k!``.  Distinct factors of the characteristic
+    polynomial have generically distinct roots: where they meet at particular parameter values
+    the closed form is 0/0 there, which the numeric comparison then reports.
+    """
+    n = M.shape[0]
+    memo: dict[tuple[int, int], sp.Expr] = {}
+
+    def divided(i: int, j: int) -> sp.Expr:
+        if (i, j) not in memo:
+            if roots[i] == roots[j]:  # the group of equal roots is contiguous
+                memo[i, j] = sp.exp(roots[i]) / sp.factorial(j - i)
+            else:
+                memo[i, j] = (divided(i + 1, j) - divided(i, j - 1)) / (roots[j] - roots[i])
+        return memo[i, j]
+
+    product = sp.eye(n)
+    E = sp.zeros(n, n)
+    for k in range(n):
+        E += divided(0, k) * product
+        product = product * (M - roots[k] * sp.eye(n))
+    return E
+
+
+def _tidy_exponential_entry(e: sp.Expr) -> sp.Expr:
+    """Gather the terms of each exponential over one factored coefficient:
+    ``(1 − e^{−aT})/a`` comes out as ``1/a − e^{−aT}/a`` rather than over a common
+    denominator with ``e^{aT}`` in it."""
+    atoms = sorted(e.atoms(sp.exp), key=sp.default_sort_key)
+    if not atoms:
+        return sp.factor(e)
+    marks = sp.symbols(f"_e0:{len(atoms)}", cls=sp.Dummy)
+    numerator, denominator = sp.fraction(sp.cancel(e.xreplace(dict(zip(atoms, marks)))))
+    if denominator.has(*marks):  # not a sum of exponentials over a polynomial
+        return e
+    terms = sp.Poly(numerator, *marks).terms()
+    return sp.Add(
+        *(
+            sp.factor(coeff / denominator)
+            * sp.powsimp(sp.Mul(*(a**k for a, k in zip(atoms, powers))))
+            for powers, coeff in terms
+        )
+    )
+
+
 def zero_order_hold(A, B, T) -> tuple[sp.Matrix, sp.Matrix]:
     """ZOH equivalent in closed form: ``Φ = e^{AT}``, ``Γ = ∫₀ᵀ e^{Aτ} dτ B``.
 
@@ -340,13 +409,16 @@ def zero_order_hold(A, B, T) -> tuple[sp.Matrix, sp.Matrix]:
     Returns
     -------
     (Phi, Gamma) : sympy.Matrix
-        From ``exp([[A, B], [0, 0]] T)`` (Van Loan [3]); entries simplified, complex
-        exponentials rewritten as sines and cosines.  Unbounded: run it under
-        :func:`symbolic._budget.run_bounded`.
+        From ``exp([[A, B], [0, 0]] T)`` (Van Loan [3]).  When the characteristic polynomial
+        of that matrix splits into linear factors over the parameters (real poles given by
+        rational expressions: integrators, lags), by Newton's interpolation of the exponential
+        at its eigenvalues (Putzer [5]), tens of milliseconds; otherwise by SymPy's matrix
+        exponential (Jordan form, seconds), complex exponentials rewritten as sines and
+        cosines.  Unbounded: run it under :func:`symbolic._budget.run_bounded`.
 
     References
     ----------
-    Franklin, Powell and Workman [1] Sec. 4.3.
+    Franklin, Powell and Workman [1] Sec. 4.3; Putzer [5].
 
     Examples
     --------
@@ -358,10 +430,25 @@ def zero_order_hold(A, B, T) -> tuple[sp.Matrix, sp.Matrix]:
     [T**2/2],
     [     T]]))
     """
+    Phi, Gamma, _ = _zero_order_hold_and_method(A, B, T)
+    return Phi, Gamma
+
+
+#: How :func:`zero_order_hold` found the exponential, as the digital controller reports it.
+ZOH_BY_INTERPOLATION = "Putzer's method (the exponential interpolated at the eigenvalues)"
+ZOH_BY_JORDAN_FORM = "SymPy's matrix exponential (Jordan form)"
+
+
+def _zero_order_hold_and_method(A, B, T) -> tuple[sp.Matrix, sp.Matrix, str]:
     A, B = sp.Matrix(A), sp.Matrix(B)
     n, m = A.shape[0], B.shape[1]
-    M = A.row_join(B).col_join(sp.zeros(m, n + m))
-    E = (M * T).exp()
+    M = A.row_join(B).col_join(sp.zeros(m, n + m)) * T
+    roots = _split_roots(M)
+    if roots is not None:
+        E = _exponential_by_divided_differences(M, roots)
+        tidy_entries = E.applyfunc(_tidy_exponential_entry)
+        return tidy_entries[:n, :n], tidy_entries[:n, n:], ZOH_BY_INTERPOLATION
+    E = M.exp()
 
     def tidy(e: sp.Expr) -> sp.Expr:
         if e.has(sp.I):
@@ -370,7 +457,7 @@ def zero_order_hold(A, B, T) -> tuple[sp.Matrix, sp.Matrix]:
         # long ones of a damped oscillator, where it hardly shortens them
         return sp.simplify(e) if sp.count_ops(e) <= SIMPLIFY_LIMIT else e
 
-    return E[:n, :n].applyfunc(tidy), E[:n, n:].applyfunc(tidy)
+    return E[:n, :n].applyfunc(tidy), E[:n, n:].applyfunc(tidy), ZOH_BY_JORDAN_FORM
 
 
 def discrete_coefficients(poles, T) -> tuple[sp.Expr, ...]:
@@ -447,6 +534,7 @@ class _Forms:
     Gamma: sp.Matrix
     K: sp.Matrix | None
     L: sp.Matrix | None
+    zoh_method: str
 
 
 def _gain_stage(Phi, Gamma, C, ctrl_coeffs, obs_coeffs) -> tuple[sp.Matrix | None, ...]:
@@ -458,56 +546,106 @@ def _gain_stage(Phi, Gamma, C, ctrl_coeffs, obs_coeffs) -> tuple[sp.Matrix | Non
     return K, L
 
 
-def _closed_forms(d: Derivation, T_exact, seconds: float, notes: list[str]) -> _Forms | None:
-    """Φ, Γ in closed form, then K and L_p in z, sharing one deadline."""
-    plant = d.design.plant
-    deadline = time.monotonic() + seconds
+def _closed_form_steps(A, B, C, T_exact, controller_poles, observer_poles, seconds: float):
+    """Φ, Γ (and how), then K and L_p in z or the reason they are skipped: successive steps
+    of one bounded child (:class:`symbolic._budget.BoundedChild`), sharing its deadline."""
+    start = time.monotonic()
+    Phi, Gamma, method = _zero_order_hold_and_method(A, B, T_exact)
+    yield Phi, Gamma, method
+    size = sum(sp.count_ops(e) for e in Phi) + sum(sp.count_ops(e) for e in Gamma)
+    if size > GAIN_CLOSED_FORM_LIMIT:
+        yield f"Φ and Γ have {size} operations (limit {GAIN_CLOSED_FORM_LIMIT})"
+        return
+    if seconds - (time.monotonic() - start) < 0.1:
+        yield "the time budget is used up"
+        return
+    yield _gain_stage(
+        Phi,
+        Gamma,
+        C,
+        discrete_coefficients(controller_poles, T_exact),
+        discrete_coefficients(observer_poles, T_exact),
+    )
+
+
+_ZOH_STEP = "the closed-form ZOH model (symbolic matrix exponential)"
+_GAIN_STEP = "the closed-form gains in z"
+
+
+def _exact_sample_time(sample_time) -> sp.Rational:
+    return (
+        sp.Rational(sample_time)
+        if not isinstance(sample_time, float)
+        else sp.Rational(repr(sample_time))
+    )
+
+
+def start_closed_forms(
+    design, controller_poles, observer_poles, *, sample_time=None, budget: float | None = None
+) -> BoundedChild | None:
+    """Start Φ, Γ and the gains in z in closed form, in a bounded child (None when there is
+    no valid sample time: :func:`digital_controller` then reports it).
+
+    :func:`symbolic.derive` starts it beside its own symbolic stage and hands it to
+    :func:`digital_controller` (``pending``), so that the two run at the same time.
+    """
+    if sample_time is None:
+        if design.discrete is None:
+            return None
+        sample_time = design.discrete.sample_time
     try:
-        Phi, Gamma = run_bounded(
-            zero_order_hold,
-            (sp.Matrix(plant.A), sp.Matrix(plant.B), T_exact),
-            seconds=seconds,
-            what="the closed-form ZOH model (SymPy matrix exponential)",
-        )
-    except BudgetExceeded as exc:
+        T_exact = _exact_sample_time(sample_time)
+    except (TypeError, ValueError):
+        return None
+    if not (T_exact > 0 and math.isfinite(float(T_exact))):
+        return None
+    plant = design.plant
+    return BoundedChild(
+        _closed_form_steps,
+        (
+            sp.Matrix(plant.A),
+            sp.Matrix(plant.B),
+            sp.Matrix(plant.C),
+            T_exact,
+            tuple(controller_poles),
+            tuple(observer_poles),
+            _seconds(design, budget),
+        ),
+        seconds=_seconds(design, budget),
+        what=_ZOH_STEP,
+    )
+
+
+def _collect_closed_forms(pending: BoundedChild, notes: list[str]) -> _Forms | None:
+    """The steps of :func:`_closed_form_steps` as a ``_Forms``, with a note for what is
+    missing."""
+    results, _, stopped = pending.steps()
+    if not results:
         notes.append(
-            f"discrete: {exc}; Φ and Γ are computed with scipy.linalg.expm of the augmented"
+            f"discrete: {stopped}; Φ and Γ are computed with scipy.linalg.expm of the augmented"
             " matrix [[A, B], [0, 0]]·T instead"
         )
         return None
-    size = sum(sp.count_ops(e) for e in Phi) + sum(sp.count_ops(e) for e in Gamma)
-    left = deadline - time.monotonic()
-    if size > GAIN_CLOSED_FORM_LIMIT or left < 0.1:
-        why = (
-            f"Φ and Γ have {size} operations (limit {GAIN_CLOSED_FORM_LIMIT})"
-            if size > GAIN_CLOSED_FORM_LIMIT
-            else "the time budget is used up"
+    Phi, Gamma, method = results[0]
+    if len(results) < 2:
+        reason = str(stopped).replace(_ZOH_STEP, _GAIN_STEP)
+        notes.append(f"discrete: {reason}; K and L_p are given as numbers only")
+        return _Forms(Phi, Gamma, None, None, method)
+    if isinstance(results[1], str):
+        notes.append(
+            f"discrete: K and L_p are not given in closed form ({results[1]}); numbers only"
         )
-        notes.append(f"discrete: K and L_p are not given in closed form ({why}); numbers only")
-        return _Forms(Phi, Gamma, None, None)
-    try:
-        K, L = run_bounded(
-            _gain_stage,
-            (
-                Phi,
-                Gamma,
-                sp.Matrix(plant.C),
-                discrete_coefficients(d.controller_poles.poles, T_exact),
-                discrete_coefficients(d.observer_poles.poles, T_exact),
-            ),
-            seconds=left,
-            what="the closed-form gains in z",
-        )
-    except BudgetExceeded as exc:
-        notes.append(f"discrete: {exc}; K and L_p are given as numbers only")
-        K = L = None
-    return _Forms(Phi, Gamma, K, L)
+        return _Forms(Phi, Gamma, None, None, method)
+    K, L = results[1]
+    return _Forms(Phi, Gamma, K, L, method)
 
 
 def numeric_zero_order_hold(
     A: np.ndarray, B: np.ndarray, T: float
 ) -> tuple[np.ndarray, np.ndarray]:
     """Φ and Γ from one ``scipy.linalg.expm`` of the augmented matrix (Van Loan [3])."""
+    import scipy.linalg  # not at the top: derive leaves SciPy to the sidecar
+
     n, m = B.shape
     M = np.zeros((n + m, n + m))
     M[:n, :n] = A * T
@@ -542,50 +680,6 @@ def discrete_feedback_gain(Phi: np.ndarray, Gamma: np.ndarray, poles_z) -> np.nd
     if K is None:
         raise StructureError(f"cannot place the discrete poles: {how}", key="discrete.sample_time")
     return K
-
-
-def closed_loop_bandwidth(A, B, C, D, K, N, tracked: int = 0) -> float | None:
-    """−3 dB bandwidth (rad/s) of the continuous loop from r to the tracked output.
-
-    ``G(jω) = (C_t − D_t K)(jωI − A + BK)⁻¹ B N + D_t N``; the first ω where
-    ``|G(jω)| = |G(0)|/√2``, found on a logarithmic grid and refined with Brent's method.
-    None when ``G(0) = 0`` or the magnitude never falls that far.
-
-    Examples
-    --------
-    >>> round(closed_loop_bandwidth(np.array([[-1.0]]), np.array([[1.0]]), np.array([[1.0]]),
-    ...                             np.zeros((1, 1)), np.array([[1.0]]), np.array([[2.0]])), 9)
-    2.0
-    """
-    Acl = A - B @ K
-    Ct, Dt = C[tracked : tracked + 1, :], D[tracked : tracked + 1, :]
-    Cc, Bc, Dc = Ct - Dt @ K, B @ N, Dt @ N
-    n = A.shape[0]
-
-    def mag(w: float) -> float:
-        G = Cc @ np.linalg.solve(1j * w * np.eye(n) - Acl, Bc) + Dc
-        return float(np.abs(G).item())
-
-    try:
-        g0 = float(np.abs(Cc @ np.linalg.solve(-Acl, Bc) + Dc).item())
-    except np.linalg.LinAlgError:
-        return None
-    if not math.isfinite(g0) or g0 == 0:
-        return None
-    level = g0 / math.sqrt(2.0)
-    eig = np.abs(np.linalg.eigvals(Acl))
-    eig = eig[eig > 0]
-    lo = float(np.min(eig)) if eig.size else 1.0
-    hi = float(np.max(eig)) if eig.size else 1.0
-    grid = np.logspace(math.log10(lo) - 3, math.log10(hi) + 3, 3000)
-    previous = 0.0
-    for w in grid:
-        if mag(w) < level:
-            return float(
-                scipy.optimize.brentq(lambda x: mag(x) - level, previous, w, xtol=1e-14 * w)
-            )
-        previous = w
-    return None
 
 
 def _seconds(design, budget: float | None) -> float:
@@ -725,6 +819,7 @@ def digital_controller(
     sample_time=None,
     budget: float | None = None,
     closed_form: bool = True,
+    pending: BoundedChild | None = None,
 ) -> DigitalController:
     """Discretise the plant (ZOH), place the mapped poles in z, and check everything.
 
@@ -740,6 +835,9 @@ def digital_controller(
         matrix may not finish).
     closed_form : bool, optional
         False skips the symbolic stages (numbers only, no child process).
+    pending : BoundedChild, optional
+        The closed forms already started by :func:`start_closed_forms` for the same design,
+        poles and sample time (default: started here).
 
     Returns
     -------
@@ -760,7 +858,7 @@ def digital_controller(
 
     Notes
     -----
-    ``Φ, Γ`` in closed form by SymPy's matrix exponential within the budget, otherwise by
+    ``Φ, Γ`` in closed form (:func:`zero_order_hold`) within the budget, otherwise by
     ``scipy.linalg.expm`` of the augmented matrix (note), and always compared with
     ``scipy.signal.cont2discrete(..., method="zoh")``.  K and ``L_p`` by Ackermann's formula in
     z (closed form when Φ, Γ have one; floating point otherwise), compared with
@@ -803,11 +901,7 @@ def digital_controller(
                 "discrete.sample_time",
             )
         sample_time = design.discrete.sample_time
-    T_exact = (
-        sp.Rational(sample_time)
-        if not isinstance(sample_time, float)
-        else sp.Rational(repr(sample_time))
-    )
+    T_exact = _exact_sample_time(sample_time)
     T = float(T_exact)
     if not (T > 0 and math.isfinite(T)):
         raise StructureError(
@@ -844,9 +938,20 @@ def digital_controller(
 
     # ---- ZOH --------------------------------------------------------------------------------
     zc, zo = np.exp(sc * T), np.exp(so * T)
-    forms = _closed_forms(d, T_exact, _seconds(design, budget), notes) if closed_form else None
-    Phi, Gamma = numeric_zero_order_hold(A, B, T)
-    ref = scipy.signal.cont2discrete((A, B, C, D), T, method="zoh")
+    forms = None
+    if closed_form:
+        if pending is None:
+            pending = start_closed_forms(
+                design,
+                d.controller_poles.poles,
+                d.observer_poles.poles,
+                sample_time=sample_time,
+                budget=budget,
+            )
+        forms = _collect_closed_forms(pending, notes) if pending is not None else None
+    elif pending is not None:
+        pending.cancel()
+    Phi, Gamma, *ref = sampled_plant(A, B, C, D, T)
     diff = max(relative_difference(Phi, ref[0]), relative_difference(Gamma, ref[1]))
     checks.append(
         Check(
@@ -857,6 +962,7 @@ def digital_controller(
         )
     )
     Phi_cf = Gamma_cf = K_cf = L_cf = None
+    zoh_method = "scipy.linalg.expm of [[A, B], [0, 0]]·T"
     if forms is not None:
         P_val = evaluate_matrix(forms.Phi, values)
         G_val = evaluate_matrix(forms.Gamma, values)
@@ -875,6 +981,7 @@ def digital_controller(
         if ok:
             Phi_cf, Gamma_cf = forms.Phi, forms.Gamma
             K_cf, L_cf = forms.K, forms.L
+            zoh_method = forms.zoh_method
         else:
             notes.append("discrete: the closed-form Φ, Γ disagree with SciPy; not used")
 
@@ -1036,11 +1143,7 @@ def digital_controller(
         warnings.warn(text, GainsmithWarning, stacklevel=2)
     notes.extend(f"discrete: {t}" for t in soft)
     method = (
-        (
-            "ZOH by SymPy's matrix exponential (closed form)"
-            if Phi_cf is not None
-            else "ZOH by scipy.linalg.expm of [[A, B], [0, 0]]·T"
-        )
+        (f"ZOH by {zoh_method}" + (" (closed form)" if Phi_cf is not None else ""))
         + "; K "
         + (
             "by Ackermann's formula in z" + (" (closed form)" if K_cf is not None else "")
@@ -1561,6 +1664,8 @@ def _continuous_design_response(d, digital, form, x0, r, grid):
     M = np.zeros((nz + 1, nz + 1))
     M[:nz, :nz] = F * h
     M[:nz, nz:] = G * h
+    import scipy.linalg  # the memo's simulation, not derive
+
     E = scipy.linalg.expm(M)
     Ph, Gh = E[:nz, :nz], E[:nz, nz:]
     w = np.concatenate([x0, matched_state(digital, form, x0)])

@@ -16,12 +16,14 @@ the figures stay legible in black and white.  They are drawn by
 from __future__ import annotations
 
 from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
-from matplotlib.backends.backend_agg import FigureCanvasAgg
-from matplotlib.figure import Figure
 
-from ._figures import _plain
+if TYPE_CHECKING:
+    from matplotlib.figure import Figure
+
+from ._figures import _plain, blank_figure
 
 __all__ = ["anti_windup_figure", "integral_action_figure", "sampled_data_figure"]
 
@@ -30,8 +32,7 @@ _DASHED, _DOTTED, _DASH_DOT = (0, (6, 3)), (0, (2, 2)), (0, (6, 2, 1, 2))
 
 
 def _figure(rows: int, height: float = 5.2) -> tuple[Figure, list]:
-    fig = Figure(figsize=(6.4, height), dpi=100)
-    FigureCanvasAgg(fig)
+    fig = blank_figure((6.4, height))
     axes = [fig.add_subplot(rows, 1, k + 1) for k in range(rows)]
     for ax in axes:
         ax.grid(True, color="#cccccc", linewidth=0.6)

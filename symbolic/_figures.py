@@ -1,25 +1,46 @@
-"""Figures for the memo (matplotlib, no screen needed).
+"""Figures for the memo (matplotlib, no screen needed), and the processes that draw them.
 
 Each function takes finished result objects and returns a matplotlib
 ``Figure``; :func:`figure_files` turns a figure into a vector PDF (for TeX)
 and a PNG (for Markdown).  Lines differ by style as well as colour so the
 figures stay legible when printed in black and white.
+
+Drawing is the memo's largest cost, and importing matplotlib and drawing a first
+figure (fonts, backends) costs as much again in each fresh process.  So the
+``memo`` command starts a *figure server* at once (:func:`start_server`): one
+process imports matplotlib and draws a throw-away figure while the main process
+derives and simulates, then forks the other workers, which start warm.  Figures
+are sent to it as soon as a section has them (:func:`render_figures` inside
+:func:`deferred_figures`) as pickled makers: ``functools.partial`` of this
+module's (or :mod:`symbolic._robust_figures`', :mod:`symbolic._extended_figures`')
+functions over plain data.  matplotlib is imported here only inside functions,
+so the main process of a memo never loads it.  Without a server (library use,
+tests) or for a maker that does not pickle, figures are drawn by forked workers
+or in this process, with the same bytes.
 """
 
 from __future__ import annotations
 
+import dataclasses
+import functools
 import io
 import multiprocessing as mp
 import os
+import pickle
+import queue
 import re
+import sys
+import threading
+import types
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-from matplotlib.axes import Axes
-from matplotlib.backends.backend_agg import FigureCanvasAgg
-from matplotlib.figure import Figure
-from matplotlib.ticker import Formatter, LogFormatterSciNotation
+
+if TYPE_CHECKING:
+    from matplotlib.axes import Axes
+    from matplotlib.figure import Figure
 
 __all__ = [
     "figure_files",
@@ -32,6 +53,9 @@ __all__ = [
     "deferred_figures",
     "figure_names",
     "FigureBatch",
+    "blank_figure",
+    "start_server",
+    "stop_server",
 ]
 
 #: (colour, line style) per case; readable in grey scale too.
@@ -55,9 +79,18 @@ def _name(r) -> str:
 _WIDTH = (6.4, 3.4)
 
 
-def _new(size=_WIDTH) -> tuple[Figure, Axes]:
+def blank_figure(size) -> Figure:
+    """A matplotlib ``Figure`` of ``size`` inches at 100 dpi on an Agg canvas (no pyplot)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
     fig = Figure(figsize=size, dpi=100)
     FigureCanvasAgg(fig)
+    return fig
+
+
+def _new(size=_WIDTH) -> tuple[Figure, Axes]:
+    fig = blank_figure(size)
     fig.subplots_adjust(left=0.13, right=0.97, bottom=0.15, top=0.96)
     ax = fig.add_subplot(1, 1, 1)
     ax.grid(True, color="#cccccc", linewidth=0.6)
@@ -247,8 +280,7 @@ def observer_study_figure(
     input_unit: str,
 ) -> Figure:
     """Overshoot, settling time and peak control against the observer speed factor."""
-    fig = Figure(figsize=(6.4, 5.2), dpi=100)
-    FigureCanvasAgg(fig)
+    fig = blank_figure((6.4, 5.2))
     fig.subplots_adjust(left=0.13, right=0.97, bottom=0.1, top=0.97, hspace=0.12)
     axes = fig.subplots(3, 1, sharex=True)
     for ax, values, label, marker in (
@@ -287,35 +319,44 @@ def _unicode_label(label: str) -> str:
     return f"{factor}\u00d7{power}" if factor else power
 
 
-class _PlainLogLabels(Formatter):
-    """The labels of a log-axis formatter, as plain Unicode text instead of mathtext.
+@functools.cache
+def _plain_log_labels_class() -> type:
+    from matplotlib.ticker import Formatter
 
-    Parsing mathtext took about a fifth of the time of saving the memo's figures
-    (measured: the log axes of the estimation-error, observer-study and Bode figures);
-    which ticks get a label is still decided by matplotlib's formatter.
-    """
+    class PlainLogLabels(Formatter):
+        """The labels of a log-axis formatter, as plain Unicode text instead of mathtext.
 
-    def __init__(self, inner: Formatter):
-        self.inner = inner
+        Parsing mathtext took about a fifth of the time of saving the memo's figures
+        (measured: the log axes of the estimation-error, observer-study and Bode figures);
+        which ticks get a label is still decided by matplotlib's formatter.
+        """
 
-    def set_axis(self, axis) -> None:
-        super().set_axis(axis)
-        self.inner.set_axis(axis)
+        def __init__(self, inner: Formatter):
+            self.inner = inner
 
-    def set_locs(self, locs) -> None:
-        self.inner.set_locs(locs)
+        def set_axis(self, axis) -> None:
+            super().set_axis(axis)
+            self.inner.set_axis(axis)
 
-    def __call__(self, x, pos=None) -> str:
-        return _unicode_label(self.inner(x, pos))
+        def set_locs(self, locs) -> None:
+            self.inner.set_locs(locs)
+
+        def __call__(self, x, pos=None) -> str:
+            return _unicode_label(self.inner(x, pos))
+
+    return PlainLogLabels
 
 
 def _plain_log_labels(fig: Figure) -> None:
+    from matplotlib.ticker import LogFormatterSciNotation
+
+    plain = _plain_log_labels_class()
     for ax in fig.axes:
         for axis in (ax.xaxis, ax.yaxis):
             if isinstance(axis.get_major_formatter(), LogFormatterSciNotation):
-                axis.set_major_formatter(_PlainLogLabels(axis.get_major_formatter()))
+                axis.set_major_formatter(plain(axis.get_major_formatter()))
             if isinstance(axis.get_minor_formatter(), LogFormatterSciNotation):
-                axis.set_minor_formatter(_PlainLogLabels(axis.get_minor_formatter()))
+                axis.set_minor_formatter(plain(axis.get_minor_formatter()))
 
 
 def figure_files(fig: Figure, stem: str) -> dict[str, bytes]:
@@ -338,6 +379,184 @@ def figure_files(fig: Figure, stem: str) -> dict[str, bytes]:
     return out
 
 
+# --------------------------------------------------------------------------------------------
+# The figure server: warm workers started with the memo command
+# --------------------------------------------------------------------------------------------
+#: Workers of the figure server (one per core, at most this many).
+SERVER_WORKERS = 2
+
+_server: dict[str, Any] = {"conns": None, "process": None, "owner": None}
+_server_lock = threading.Lock()
+
+
+def _warm_up() -> None:
+    """Draw and save a throw-away figure: imports the backends and loads the fonts."""
+    fig, ax = _new()
+    ax.semilogy([1.0, 2.0], [1e-3, 1.0], label="warm-up")
+    ax.set_xlabel("t [s]")
+    ax.legend()
+    figure_files(fig, "warm-up")
+
+
+def _serve_figures(conn: Any) -> None:
+    while True:
+        try:
+            stem, make = pickle.loads(conn.recv_bytes())
+        except (EOFError, OSError):
+            os._exit(0)
+        except Exception as exc:  # a maker that does not unpickle here: drawn by the caller
+            reply = ("failed", f"{type(exc).__name__}: {exc}")
+        else:
+            try:
+                reply = ("ok", figure_files(make(), stem))
+            except Exception as exc:  # the caller draws it again, and sees the error itself
+                reply = ("failed", f"{type(exc).__name__}: {exc}")
+        try:
+            conn.send_bytes(pickle.dumps(reply, protocol=pickle.HIGHEST_PROTOCOL))
+        except (EOFError, OSError):
+            os._exit(0)
+
+
+def _server_main(conns: list, parent: int) -> None:
+    """The first worker: warm up, fork the others (they inherit the warm state), serve."""
+    from ._budget import die_with_parent
+
+    die_with_parent(parent)
+    try:
+        _warm_up()
+    except Exception:  # noqa: BLE001 - a failed warm-up only costs time; drawing will tell
+        pass
+    for k in range(1, len(conns)):
+        pid = os.fork()
+        if pid == 0:
+            die_with_parent()  # with the first worker (which dies with gainsmith)
+            for j, conn in enumerate(conns):
+                if j != k:
+                    conn.close()
+            _serve_figures(conns[k])
+            os._exit(0)
+    for conn in conns[1:]:
+        conn.close()
+    _serve_figures(conns[0])
+
+
+def start_server(workers: int | None = None) -> bool:
+    """Fork the figure server (once per process); returns whether one is running.
+
+    Call it before the heavy imports, as the ``memo`` command does.  Nothing is started
+    when matplotlib is loaded here already (forked workers start warm anyway), without
+    ``fork``, or on a single core.
+    """
+    with _server_lock:
+        if server_running():
+            return True
+        if "matplotlib" in sys.modules or "fork" not in mp.get_all_start_methods():
+            return False
+        workers = min(SERVER_WORKERS, os.cpu_count() or 1) if workers is None else workers
+        if workers < 1:
+            return False
+        ctx = mp.get_context("fork")
+        pairs = [ctx.Pipe(duplex=True) for _ in range(workers)]
+        process = ctx.Process(
+            target=_server_main, args=([b for _, b in pairs], os.getpid()), daemon=True
+        )
+        process.start()
+        for _, there in pairs:
+            there.close()
+        _server.update(conns=[a for a, _ in pairs], process=process, owner=os.getpid())
+        return True
+
+
+def server_running() -> bool:
+    """Whether this process owns a live figure server."""
+    process = _server["process"]
+    return process is not None and _server["owner"] == os.getpid() and process.is_alive()
+
+
+def stop_server() -> None:
+    """Stop the figure server, if this process started one."""
+    process, conns = _server["process"], _server["conns"]
+    if process is None or _server["owner"] != os.getpid():
+        return
+    _server.update(conns=None, process=None, owner=None)
+    for conn in conns:
+        conn.close()  # the other workers see the pipe close and exit
+    if process.is_alive():
+        process.kill()
+    process.join(timeout=5)
+
+
+class _ServerQueue:
+    """Figures sent to the server as they are added; one thread per worker feeds it."""
+
+    def __init__(self, conns: list):
+        self.jobs: queue.Queue = queue.Queue()
+        self.files: dict[str, dict[str, bytes] | None] = {}
+        self.threads = [
+            threading.Thread(target=self._feed, args=(conn,), daemon=True) for conn in conns
+        ]
+        for thread in self.threads:
+            thread.start()
+
+    def _feed(self, conn: Any) -> None:
+        while True:
+            job = self.jobs.get()
+            if job is None:
+                return
+            stem, payload = job
+            try:
+                conn.send_bytes(payload)
+                status, value = pickle.loads(conn.recv_bytes())
+            except (EOFError, OSError):
+                status, value = "failed", "the figure worker stopped"
+            self.files[stem] = value if status == "ok" else None
+
+    def finish(self) -> dict[str, dict[str, bytes] | None]:
+        for _ in self.threads:
+            self.jobs.put(None)
+        for thread in self.threads:
+            thread.join()
+        return self.files
+
+
+def _is_record(cls: type) -> bool:
+    """A dataclass with fields and properties but no methods of its own."""
+    return dataclasses.is_dataclass(cls) and not any(
+        callable(v) for k, v in vars(cls).items() if not k.startswith("__")
+    )
+
+
+def _portable(value: Any) -> Any:
+    """``value`` with every dataclass record replaced by a ``SimpleNamespace`` of the same
+    fields and properties (recursively): it unpickles in a figure worker without importing
+    the module that defines the record (which may load SymPy or SciPy there).  Records with
+    methods are left as they are."""
+    if isinstance(value, np.ndarray) or value is None or isinstance(value, str | bytes):
+        return value
+    cls = type(value)
+    if _is_record(cls):
+        out = {f.name: _portable(getattr(value, f.name)) for f in dataclasses.fields(value)}
+        for name, attribute in vars(cls).items():
+            if isinstance(attribute, property):
+                out[name] = _portable(getattr(value, name))
+        return types.SimpleNamespace(**out)
+    if cls in (list, tuple):
+        return cls(_portable(v) for v in value)
+    if cls is dict:
+        return {k: _portable(v) for k, v in value.items()}
+    return value
+
+
+def _portable_maker(make: Callable[[], Figure]) -> Callable[[], Figure]:
+    if not isinstance(make, functools.partial):
+        return make
+    return functools.partial(
+        make.func,
+        *(_portable(a) for a in make.args),
+        **{k: _portable(v) for k, v in make.keywords.items()},
+    )
+
+
 _PENDING: list[tuple[str, Callable[[], Figure]]] = []
 
 
@@ -352,13 +571,14 @@ def figure_names(stem: str) -> list[str]:
 
 
 class FigureBatch:
-    """Figures queued by several callers, then drawn together by one set of workers.
+    """Figures queued by several callers, then drawn together.
 
     :func:`render_figures` called inside :func:`deferred_figures` queues its makers
-    here and returns the file names with empty contents; :meth:`start` forks the
-    workers, which draw while this process goes on (the memo renders its
-    templates meanwhile); :meth:`result` waits and returns the files.  One set of
-    workers instead of one per section, and the drawing overlaps the rest.
+    here and returns the file names with empty contents; :meth:`result` returns the
+    files.  With a figure server running (:func:`start_server`), each figure goes to
+    it as soon as it is added, so drawing overlaps the rest of the memo; otherwise
+    :meth:`start` forks one set of workers for every queued figure, which draw while
+    this process goes on (the memo renders its templates meanwhile).
     """
 
     def __init__(self, workers: int | None = None):
@@ -366,16 +586,31 @@ class FigureBatch:
         self.workers = workers
         self._pool = None
         self._pending = None
+        self._server: _ServerQueue | None = None
+        if workers is None and server_running():
+            self._server = _ServerQueue(_server["conns"])
 
     def add(self, makers: Mapping[str, Callable[[], Figure]]) -> dict[str, bytes]:
         if self._pool is not None:
             raise RuntimeError("figures were added after the batch started")
-        self.items.extend(makers.items())
+        for stem, make in makers.items():
+            self.items.append((stem, make))
+            if self._server is not None:
+                try:
+                    payload = pickle.dumps(
+                        (stem, _portable_maker(make)), protocol=pickle.HIGHEST_PROTOCOL
+                    )
+                except (pickle.PicklingError, AttributeError, TypeError):
+                    continue  # drawn here by result()
+                self._server.jobs.put((stem, payload))
         return {name: b"" for stem in makers for name in figure_names(stem)}
 
     def start(self) -> None:
-        """Fork the workers and hand them every queued figure (no wait)."""
+        """Fork the workers and hand them every queued figure (no wait; nothing to do
+        when the figure server has them)."""
         global _PENDING
+        if self._server is not None:
+            return
         workers = self.workers
         if workers is None:
             workers = min(len(self.items), os.cpu_count() or 1, 4)
@@ -389,8 +624,13 @@ class FigureBatch:
         self._pending = self._pool.map_async(_render_one, range(len(self.items)), chunksize=1)
 
     def result(self) -> dict[str, bytes]:
-        """Every queued figure's files (drawn here, one by one, if no workers were started)."""
-        if self._pending is None:
+        """Every queued figure's files, in the order added (a figure the server could not
+        draw, or every figure when no workers were started, is drawn here)."""
+        if self._server is not None:
+            served = self._server.finish()
+            self._server = None
+            parts = [served.get(stem) or figure_files(make(), stem) for stem, make in self.items]
+        elif self._pending is None:
             parts = [figure_files(make(), stem) for stem, make in self.items]
         else:
             try:
@@ -403,6 +643,9 @@ class FigureBatch:
         return out
 
     def close(self) -> None:
+        if self._server is not None:
+            self._server.finish()
+            self._server = None
         if self._pool is not None:
             self._pool.terminate()
             self._pool.join()

@@ -65,13 +65,11 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.integrate
-import scipy.linalg
 import sympy as sp
 from sympy.polys.matrices import DomainMatrix
 
 from . import _closed_form as cf
-from ._budget import run_bounded
+from ._budget import BoundedChild
 from ._derive import GAIN_TOLERANCE, Check, Derivation, conditions_of
 from ._errors import BudgetExceeded, GainsmithWarning, StructureError
 from ._numeric import (
@@ -300,6 +298,14 @@ def augmented_pair(A, B, C_t, D_t):
     return Aa, Ba
 
 
+def _same_number(a: sp.Expr, b: sp.Expr) -> bool:
+    """Whether two exact numbers (poles) are equal: exactly, or to 50 significant digits."""
+    difference = sp.expand(a - b)
+    if difference.is_Rational or difference.is_zero is not None:
+        return bool(difference.is_zero)
+    return abs(complex(sp.N(difference, 50))) <= 1e-40 * max(1.0, abs(complex(sp.N(b, 20))))
+
+
 def default_integral_pole(controller_poles: tuple[sp.Expr, ...]) -> tuple[sp.Expr, str]:
     """The integral pole by the default rule, and the rule in one sentence.
 
@@ -316,7 +322,7 @@ def default_integral_pole(controller_poles: tuple[sp.Expr, ...]) -> tuple[sp.Exp
     slowest = max(sp.re(p) for p in controller_poles)
     pole = DEFAULT_INTEGRAL_POLE_FACTOR * slowest
     moved = 0
-    while any(sp.simplify(pole - p) == 0 for p in controller_poles):
+    while any(_same_number(pole, p) for p in controller_poles):
         pole = pole * sp.Rational(11, 10)
         moved += 1
     rule = (
@@ -396,7 +402,45 @@ def _is_zero_at(expr: sp.Expr, values) -> bool:
 # --------------------------------------------------------------------------------------------
 # The design
 # --------------------------------------------------------------------------------------------
-def integral_action(d: Derivation, *, budget: float | None = None) -> IntegralAction:
+def _integral_pole(design, controller_poles: tuple[sp.Expr, ...]) -> tuple[sp.Expr, str]:
+    if design.tracking.integral_pole is not None:
+        return (
+            design.tracking.integral_pole,
+            "integral pole as given in the design file (tracking.integral_pole)",
+        )
+    return default_integral_pole(controller_poles)
+
+
+def start_closed_form(
+    design, controller_poles: tuple[sp.Expr, ...], *, budget: float | None = None
+) -> BoundedChild | None:
+    """Start the closed form of ``[K, k_i]`` in a bounded child (one input only, else None).
+
+    :func:`symbolic.derive` starts it beside its own symbolic stage and hands it to
+    :func:`integral_action` (``pending``), so that the two run at the same time.
+    """
+    plant = design.plant
+    if plant.n_inputs != 1:
+        return None
+    idx = design.tracking.output
+    pole, _ = _integral_pole(design, controller_poles)
+    return BoundedChild(
+        _closed_form_stage,
+        (
+            sp.Matrix(plant.A),
+            sp.Matrix(plant.B),
+            sp.Matrix(plant.C[idx, :]),
+            sp.Matrix(plant.D[idx, :]),
+            cf.desired_coefficients(tuple(controller_poles) + (pole,)),
+        ),
+        seconds=_seconds(design, budget),
+        what="the closed form of the integral-action gain",
+    )
+
+
+def integral_action(
+    d: Derivation, *, budget: float | None = None, pending: BoundedChild | None = None
+) -> IntegralAction:
     """Derive ``[K, k_i]`` for integral action on the tracked output, and check it.
 
     Parameters
@@ -406,6 +450,9 @@ def integral_action(d: Derivation, *, budget: float | None = None) -> IntegralAc
     budget : float, optional
         Seconds for the closed form (default: the design's symbolic budget; zero or
         negative runs it in this process without a limit).
+    pending : BoundedChild, optional
+        The closed form already started by :func:`start_closed_form` for the same design
+        and controller poles (default: started here).
 
     Returns
     -------
@@ -458,11 +505,7 @@ def integral_action(d: Derivation, *, budget: float | None = None) -> IntegralAc
     notes: list[str] = []
     checks: list[Check] = []
 
-    if design.tracking.integral_pole is not None:
-        pole = design.tracking.integral_pole
-        rule = "integral pole as given in the design file (tracking.integral_pole)"
-    else:
-        pole, rule = default_integral_pole(d.controller_poles.poles)
+    pole, rule = _integral_pole(design, d.controller_poles.poles)
     poles = tuple(d.controller_poles.poles) + (pole,)
     coeffs = cf.desired_coefficients(poles)
     requested = np.array([complex(p) for p in poles])
@@ -476,23 +519,16 @@ def integral_action(d: Derivation, *, budget: float | None = None) -> IntegralAc
 
     forms: _Forms | None = None
     if m == 1:
+        if pending is None:
+            pending = start_closed_form(design, d.controller_poles.poles, budget=budget)
         try:
-            forms = run_bounded(
-                _closed_form_stage,
-                (
-                    sp.Matrix(plant.A),
-                    sp.Matrix(plant.B),
-                    sp.Matrix(plant.C[idx, :]),
-                    sp.Matrix(plant.D[idx, :]),
-                    coeffs,
-                ),
-                seconds=_seconds(design, budget),
-                what="the closed form of the integral-action gain",
-            )
+            forms = pending.result()
         except BudgetExceeded as exc:
             notes.append(f"integral action: {exc}; numeric results are given instead")
         except StructureError as exc:
             raise StructureError(exc.problem, design.path, "tracking.method") from exc
+    elif pending is not None:
+        pending.cancel()
 
     # ---- structure at the evaluated values --------------------------------------------------
     tracked = plant.outputs[idx].name
@@ -768,6 +804,8 @@ def _simulate_linear(loop, r, dist, t_d, time) -> _Trajectory:
     M = np.zeros((nz + 2, nz + 2))
     M[:nz, :nz] = F * h
     M[:nz, nz:] = G * h
+    import scipy.linalg  # the memo's simulation, not derive
+
     E = scipy.linalg.expm(M)  # Van Loan: [[Phi, Gamma], [0, I]]
     Phi, Gam = E[:nz, :nz], E[:nz, nz:]
     W = np.zeros((time.size, 2))
@@ -982,6 +1020,8 @@ def _simulate_windup(
     scale = max(1.0, abs(r))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
+        import scipy.integrate  # the memo's simulation, not derive
+
         sol = scipy.integrate.solve_ivp(
             rhs,
             span,

@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as _dt
+import functools
 import os
 import re
 import sys
@@ -316,6 +317,33 @@ def _references(d: Derivation) -> list[str]:
         " Transactions on Automatic Control 23(3):395\u2013404, 1978 (exact zero-order-hold"
         " stepping of the simulation).",
     ]
+    if d.integral is not None:
+        refs.append(
+            "H. H. Rosenbrock, State-Space and Multivariable Theory, Nelson, 1970, Ch. 3 (the"
+            " system matrix; a plant zero at s = 0 forbids integral action)."
+        )
+        refs.append(
+            "K. J. \u00c5str\u00f6m and T. H\u00e4gglund, Advanced PID Control, ISA, 2006,"
+            " Sec. 3.5 (integrator windup; back-calculation)."
+        )
+    if d.reduced_observer is not None:
+        refs.append(
+            "D. G. Luenberger, \u201cObservers for multivariable systems\u201d, IEEE Transactions"
+            " on Automatic Control 11(2):190\u2013197, 1966 (the reduced-order observer)."
+        )
+    if d.discrete is not None:
+        refs.append(
+            "G. F. Franklin, J. D. Powell, M. L. Workman, Digital Control of Dynamic Systems,"
+            " 3rd ed., Addison-Wesley, 1998, Sec. 4.3 and 8.2 (zero-order-hold equivalent;"
+            " prediction and current estimators)."
+        )
+        if "Putzer" in d.discrete.method:
+            refs.append(
+                "E. J. Putzer, \u201cAvoiding the Jordan canonical form in the discussion of"
+                " linear systems with constant coefficients\u201d, The American Mathematical"
+                " Monthly 73(1):2\u20137, 1966 (the closed-form matrix exponential of the"
+                " hold-equivalent model)."
+            )
     if d.controller_poles.dominant is not None:
         refs.insert(
             4,
@@ -589,8 +617,8 @@ def memo_extended_sections(d: Derivation, *, figures: bool = True) -> tuple[dict
                 ),
             }
         ]
-        makers["integral-action"] = lambda: xf.integral_action_figure(
-            study, tracked.name, tracked.unit
+        makers["integral-action"] = functools.partial(  # pickles: the figure server draws it
+            xf.integral_action_figure, study, tracked.name, tracked.unit
         )
         if study.windup:
             captions.append(
@@ -602,7 +630,8 @@ def memo_extended_sections(d: Derivation, *, figures: bool = True) -> tuple[dict
                     ),
                 }
             )
-            makers["anti-windup"] = lambda: xf.anti_windup_figure(
+            makers["anti-windup"] = functools.partial(
+                xf.anti_windup_figure,
                 study.windup,
                 tracked.name,
                 tracked.unit,
@@ -751,7 +780,8 @@ def memo_extended_sections(d: Derivation, *, figures: bool = True) -> tuple[dict
             }
         ]
         out_signal = plant.outputs[dc.tracked_index]
-        makers["sampled-data"] = lambda: xf.sampled_data_figure(
+        makers["sampled-data"] = functools.partial(
+            xf.sampled_data_figure,
             sampled,
             out_signal.name,
             out_signal.unit,

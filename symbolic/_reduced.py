@@ -47,9 +47,9 @@ import sympy as sp
 from sympy.polys.matrices import DomainMatrix
 
 from . import _closed_form as cf
-from ._budget import run_bounded
+from ._budget import BoundedChild, Outcome
 from ._derive import GAIN_TOLERANCE, Check, Derivation
-from ._errors import BudgetExceeded, StructureError
+from ._errors import BudgetExceeded, GainsmithError, StructureError
 from ._numeric import (
     eigenvalue_tolerance,
     evaluate_matrix,
@@ -332,7 +332,50 @@ def _seconds(design, budget: float | None) -> float | None:
 # --------------------------------------------------------------------------------------------
 # The design
 # --------------------------------------------------------------------------------------------
-def reduced_observer(d: Derivation, *, budget: float | None = None) -> ReducedObserver:
+def _reduced_poles(design, observer_poles: tuple[sp.Expr, ...]) -> tuple[tuple, str]:
+    if design.observer.reduced_poles is not None:
+        return (
+            tuple(design.observer.reduced_poles),
+            "reduced observer poles as given in the design file (observer.poles)",
+        )
+    return reduced_observer_poles(
+        tuple(observer_poles), design.plant.order - design.plant.n_outputs
+    )
+
+
+def _stage_arguments(design, C, K, observer_poles, controller_coefficients) -> tuple:
+    poles, _ = _reduced_poles(design, observer_poles)
+    plant = design.plant
+    return (
+        sp.Matrix(plant.A),
+        sp.Matrix(plant.B),
+        sp.Matrix(plant.C),
+        coordinate_change(C),
+        K,
+        cf.desired_coefficients(poles) if poles else (sp.Integer(1),),
+        controller_coefficients,
+    )
+
+
+def closed_form_outcome(
+    design, C: np.ndarray, observer_poles, controller_coefficients, K: sp.Matrix | None
+) -> Outcome:
+    """The closed-form stage run here and now, its value or error kept for
+    :func:`reduced_observer` (``pending``).
+
+    :func:`symbolic.derive` runs it in its own bounded child right after the closed-form K
+    it needs, so that no second child is forked for it.  ``C`` is the numeric output matrix.
+    """
+    try:
+        args = _stage_arguments(design, C, K, observer_poles, controller_coefficients)
+        return Outcome(_closed_form_stage(*args))
+    except GainsmithError as exc:
+        return Outcome(error=exc)
+
+
+def reduced_observer(
+    d: Derivation, *, budget: float | None = None, pending: BoundedChild | Outcome | None = None
+) -> ReducedObserver:
     """Derive the reduced-order observer of a design, its equations and its closed loop.
 
     Parameters
@@ -342,6 +385,9 @@ def reduced_observer(d: Derivation, *, budget: float | None = None) -> ReducedOb
     budget : float, optional
         Seconds for the closed forms (default: the design's symbolic budget; zero or negative
         runs them in this process without a limit).
+    pending : BoundedChild or Outcome, optional
+        The closed forms already computed or started for this design with ``d.K``'s closed
+        form (:func:`closed_form_outcome`); default: computed here.
 
     Returns
     -------
@@ -395,30 +441,22 @@ def reduced_observer(d: Derivation, *, budget: float | None = None) -> ReducedOb
     except StructureError as exc:
         raise StructureError(exc.problem, design.path, "plant.C") from exc
 
-    if design.observer.reduced_poles is not None:
-        poles = tuple(design.observer.reduced_poles)
-        rule = "reduced observer poles as given in the design file (observer.poles)"
-    else:
-        poles, rule = reduced_observer_poles(tuple(d.observer_poles.poles), rest)
+    poles, rule = _reduced_poles(design, d.observer_poles.poles)
     coeffs = cf.desired_coefficients(poles) if poles else (sp.Integer(1),)
     requested = np.array([complex(z) for z in poles])
 
     forms: _Forms | None = None
-    try:
-        forms = run_bounded(
+    if pending is None:
+        pending = BoundedChild(
             _closed_form_stage,
-            (
-                sp.Matrix(plant.A),
-                sp.Matrix(plant.B),
-                sp.Matrix(plant.C),
-                rows,
-                d.K.closed_form,
-                coeffs,
-                d.controller_poles.coefficients,
+            _stage_arguments(
+                design, C, d.K.closed_form, d.observer_poles.poles, d.controller_poles.coefficients
             ),
             seconds=_seconds(design, budget),
             what="the closed form of the reduced-order observer",
         )
+    try:
+        forms = pending.result()
     except BudgetExceeded as exc:
         notes.append(f"reduced-order observer: {exc}; numeric results are given instead")
     except StructureError as exc:

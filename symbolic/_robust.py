@@ -58,6 +58,7 @@ References
 
 from __future__ import annotations
 
+import functools
 import math
 import textwrap
 from collections.abc import Mapping, Sequence
@@ -1390,7 +1391,8 @@ def memo_robustness(
     m = r.mismatch
     name = d.design.slug
     makers = {
-        f"{name}-mismatch-poles": lambda: rf.mismatch_pole_figure(
+        f"{name}-mismatch-poles": functools.partial(  # pickles: the figure server draws it
+            rf.mismatch_pole_figure,
             m.poles[:-1] if m.grid.varied else m.poles,
             m.stable[:-1] if m.grid.varied else m.stable,
             d.controller_poles.values,
@@ -1412,8 +1414,8 @@ def memo_robustness(
     margins_ctx = None
     if r.margins is not None:
         loops = (r.margins.state_feedback, r.margins.observer_based)
-        makers[f"{name}-loop-bode"] = lambda: rf.loop_magnitude_phase_figure(loops)
-        makers[f"{name}-loop-nyquist"] = lambda: rf.loop_polar_figure(loops)
+        makers[f"{name}-loop-bode"] = functools.partial(rf.loop_magnitude_phase_figure, loops)
+        makers[f"{name}-loop-nyquist"] = functools.partial(rf.loop_polar_figure, loops)
         captions.append(
             {
                 "stem": f"{name}-loop-bode",

@@ -15,13 +15,16 @@ legible in black and white.  Render them with
 from __future__ import annotations
 
 from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
-from matplotlib.backends.backend_agg import FigureCanvasAgg
-from matplotlib.figure import Figure
 
-from ._figures import _plain, plot_design_poles
-from ._margins import MarginReport
+if TYPE_CHECKING:
+    from matplotlib.figure import Figure
+
+    from ._margins import MarginReport
+
+from ._figures import _plain, blank_figure, plot_design_poles
 
 __all__ = ["loop_magnitude_phase_figure", "loop_polar_figure", "mismatch_pole_figure"]
 
@@ -37,11 +40,7 @@ MAX_SCATTER = 40_000
 
 
 def _figure(size) -> Figure:
-    fig = Figure(figsize=size, dpi=100)
-    FigureCanvasAgg(fig)
-    return fig
-
-
+    return blank_figure(size)
 
 
 def _unwrapped_phase_deg(response: np.ndarray) -> np.ndarray:

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import partial
 
 import numpy as np
 
@@ -475,24 +476,35 @@ def memo_simulation(d: Derivation) -> tuple[dict, dict[str, bytes]]:
     spec = d.design.controller.specifications
     region = d.controller_poles.dominant.region if d.controller_poles.dominant else None
     plant_poles = np.linalg.eigvals(d.plant.A)
+    # makers are partials of module-level functions over plain data: they pickle, so the
+    # figure server can draw them (symbolic._figures)
     figs = {
-        "step": lambda: fig.step_response_figure(
-            responses, out_sig.name, out_sig.unit, s.reference
+        "step": partial(
+            fig.step_response_figure, responses, out_sig.name, out_sig.unit, s.reference
         ),
-        "estimation-error": lambda: fig.estimation_error_figure(responses),
-        "control": lambda: fig.control_effort_figure(
+        "estimation-error": partial(fig.estimation_error_figure, responses),
+        "control": partial(
+            fig.control_effort_figure,
             responses + ([s.saturated[2].response] if s.saturated else []),
             in_sig.name,
             in_sig.unit,
             s.u_max,
         ),
-        "pole-map": lambda: fig.pole_map_figure(
-            d.controller_poles.values, d.observer_poles.values, region, plant_poles
+        "pole-map": partial(
+            fig.pole_map_figure,
+            d.controller_poles.values,
+            d.observer_poles.values,
+            region,
+            plant_poles,
         ),
     }
     if s.saturated:
-        figs["saturation"] = lambda: fig.step_response_figure(
-            [s.cases[2].response, s.saturated[2].response], out_sig.name, out_sig.unit, s.reference
+        figs["saturation"] = partial(
+            fig.step_response_figure,
+            [s.cases[2].response, s.saturated[2].response],
+            out_sig.name,
+            out_sig.unit,
+            s.reference,
         )
     if s.speed_study:
         f = np.array([x for x, _ in s.speed_study])
@@ -502,7 +514,8 @@ def memo_simulation(d: Derivation) -> tuple[dict, dict[str, bytes]]:
                 [np.nan if getattr(m, key) is None else getattr(m, key) for _, m in s.speed_study]
             )
 
-        figs["observer-study"] = lambda: fig.observer_study_figure(
+        figs["observer-study"] = partial(
+            fig.observer_study_figure,
             f,
             col("overshoot_percent"),
             col("settling_time_2pct"),

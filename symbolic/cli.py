@@ -202,6 +202,10 @@ def main(argv: Sequence[str] | None = None) -> int:
         from . import _sidecar
 
         _sidecar.start()  # SciPy loads there while SymPy loads here
+    if args.command == "memo" and os.environ.get("GAINSMITH_FIGURE_SERVER", "1") != "0":
+        from . import _figures
+
+        _figures.start_server()  # matplotlib loads and warms up there; figures are drawn there
     try:
         return int(args.func(args))
     except GainsmithError as exc:
@@ -226,14 +230,17 @@ def run() -> None:
 
     The work is done and every output file published when :func:`main` returns; what is
     left is the interpreter's teardown of SymPy, SciPy and matplotlib, measured at about
-    0.8 s after a memo.  So the streams are flushed, the SciPy sidecar (if any) is
-    stopped, and the process exits at once with :func:`os._exit`.  Library callers of
+    0.8 s after a memo.  So the streams are flushed, the SciPy sidecar and the figure
+    server (if any) are stopped, and the process exits at once with :func:`os._exit`.  Library callers of
     :func:`main` (the tests) keep the normal exit.
     """
     code = main()
     sidecar = sys.modules.get(f"{__package__}._sidecar")
     if sidecar is not None:
         sidecar.stop()
+    figures = sys.modules.get(f"{__package__}._figures")
+    if figures is not None:
+        figures.stop_server()
     for stream in (sys.stdout, sys.stderr):
         try:
             stream.flush()

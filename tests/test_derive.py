@@ -468,3 +468,78 @@ def test_run_bounded_steps_reraises_our_errors_and_reports_a_crash():
     results, at, stopped = run_bounded_steps(steps, ("bug",), seconds=20)
     assert results == [1] and len(at) == 1
     assert "ZeroDivisionError: a bug" in str(stopped)
+
+
+def _sleep_then(seconds: float, value):
+    import time
+
+    time.sleep(seconds)
+    return value
+
+
+def test_bounded_children_run_side_by_side_and_keep_their_budgets():
+    """BoundedChild forks at once and is collected later: two 1 s children take about 1 s
+    together, not 2; each still has its own budget; a cancelled one is gone."""
+    import multiprocessing as mp
+    import time
+
+    from symbolic._budget import BoundedChild
+    from symbolic._errors import BudgetExceeded
+
+    t = time.perf_counter()
+    first = BoundedChild(_sleep_then, (1.0, "a"), seconds=20)
+    second = BoundedChild(_sleep_then, (1.0, "b"), seconds=20)
+    assert (first.result(), second.result()) == ("a", "b")
+    assert time.perf_counter() - t < 1.8
+    late = BoundedChild(_sleep_then, (5.0, "c"), seconds=0.5)
+    with pytest.raises(BudgetExceeded, match="did not finish within 0.5 s"):
+        late.result()
+    stuck = BoundedChild(_sleep_then, (60.0, "d"), seconds=100)
+    stuck.cancel()
+    assert not [p for p in mp.active_children() if p.is_alive()]
+    assert BoundedChild(_sleep_then, (0.0, "e"), seconds=None).result() == "e"  # in-process
+
+
+WINCH = WORKED_FILES[0].parent / "hoist_winch.toml"
+
+
+def test_extensions_started_beside_the_main_stage_equal_those_derived_afterwards():
+    """derive starts the closed forms of integral action and of the digital controller in
+    children beside its own, and runs the reduced observer's in its own child after K; the
+    results are those of the extension functions called afterwards on the same design."""
+    from symbolic._discrete import digital_controller
+    from symbolic._integral import integral_action
+    from symbolic._reduced import reduced_observer
+
+    d = derive(symbolic.load_design(WINCH))
+    assert d.passed and d.integral is not None and d.discrete is not None
+    assert d.reduced_observer is not None
+    assert d.integral.closed_form == integral_action(d).closed_form
+    assert d.reduced_observer.Ke_closed_form == reduced_observer(d).Ke_closed_form
+    later = digital_controller(d)
+    assert d.discrete.Phi_closed_form == later.Phi_closed_form
+    assert d.discrete.Gamma_closed_form == later.Gamma_closed_form
+    assert d.discrete.K_closed_form == later.K_closed_form
+    assert "Putzer" in d.discrete.method
+    assert not any("did not finish" in n for n in d.notes)
+
+
+def test_a_failing_derivation_leaves_no_extension_child_behind(monkeypatch):
+    """The sample time aliases the controller poles: derive raises after it started the
+    extensions' children (here a slow one), and stops them."""
+    import multiprocessing as mp
+    import time
+
+    from symbolic import _discrete
+    from symbolic._errors import StructureError
+
+    def slow(*args):
+        time.sleep(60)
+
+    monkeypatch.setattr(_discrete, "_zero_order_hold_and_method", slow)
+    text = WINCH.read_text().replace("sample_time = 0.05", "sample_time = 2.0")
+    t = time.perf_counter()
+    with pytest.raises(StructureError, match="aliases"):
+        derive(parse_design(text.encode(), "winch.toml"))
+    assert time.perf_counter() - t < 20
+    assert not [p for p in mp.active_children() if p.is_alive()]

@@ -87,6 +87,77 @@ def test_zoh_first_order_lag():
     assert sp.simplify(Gamma[0, 0] - (1 - sp.exp(-a * T))) == 0
 
 
+def test_zoh_repeated_lag_by_interpolation():
+    # Franklin, Powell, Workman, 3rd ed., Sec. 4.3 (from memory) via the Laplace transform:
+    # for the repeated pole of [[-a, 1], [0, -a]], e^{At} = e^{-at} [[1, t], [0, 1]]; with
+    # B = [0, 1]ᵀ, Γ = [(1 − (1 + aT) e^{−aT})/a², (1 − e^{−aT})/a]ᵀ.
+    a = sp.Symbol("a", positive=True)
+    Phi, Gamma = zero_order_hold(sp.Matrix([[-a, 1], [0, -a]]), sp.Matrix([0, 1]), T)
+    want_phi = sp.exp(-a * T) * sp.Matrix([[1, T], [0, 1]])
+    want_gamma = sp.Matrix([(1 - (1 + a * T) * sp.exp(-a * T)) / a**2, (1 - sp.exp(-a * T)) / a])
+    assert (Phi - want_phi).applyfunc(sp.simplify) == sp.zeros(2, 2)
+    assert (Gamma - want_gamma).applyfunc(sp.simplify) == sp.zeros(2, 1)
+
+
+@settings(max_examples=25, deadline=None)
+@given(
+    rates=st.lists(st.integers(min_value=0, max_value=4), min_size=1, max_size=4),
+    coupling=st.lists(st.integers(min_value=-3, max_value=3), min_size=6, max_size=6),
+    value=st.integers(min_value=2, max_value=9),
+    sample=st.integers(min_value=1, max_value=30),
+)
+def test_zoh_by_interpolation_matches_scipy(rates, coupling, value, sample):
+    """Upper-triangular plants with real poles -k·c (repeated ones included, c a parameter):
+    Putzer's closed form evaluated at c equals ``scipy.linalg.expm`` of the augmented matrix."""
+    import scipy.linalg
+
+    from symbolic._discrete import _split_roots
+
+    c = sp.Symbol("c", positive=True)
+    n = len(rates)
+    A = sp.zeros(n, n)
+    entries = iter(coupling)
+    for i in range(n):
+        A[i, i] = -rates[i] * c
+        for j in range(i + 1, n):
+            A[i, j] = next(entries)
+    B = sp.Matrix([1] * n)
+    Ts = sp.Rational(sample, 100)
+    M = A.row_join(B).col_join(sp.zeros(1, n + 1)) * Ts
+    assert _split_roots(M) is not None  # the interpolation path is the one under test
+    Phi, Gamma = zero_order_hold(A, B, Ts)
+    An = np.array(A.subs(c, value), dtype=float)
+    E = scipy.linalg.expm(np.block([[An, np.ones((n, 1))], [np.zeros((1, n + 1))]]) * float(Ts))
+    got_phi = np.array(Phi.subs(c, value).evalf(30), dtype=float)
+    got_gamma = np.array(Gamma.subs(c, value).evalf(30), dtype=float)
+    np.testing.assert_allclose(got_phi, E[:n, :n], rtol=1e-10, atol=1e-12)
+    np.testing.assert_allclose(got_gamma, E[:n, n:], rtol=1e-10, atol=1e-12)
+
+
+def test_zoh_of_an_oscillator_falls_back_to_the_jordan_form():
+    """Complex poles do not split over the parameters: SymPy's exponential is used, and its
+    closed form still agrees with SciPy."""
+    from symbolic._discrete import ZOH_BY_JORDAN_FORM, _split_roots, _zero_order_hold_and_method
+
+    k = sp.Symbol("k", positive=True)
+    A, B = sp.Matrix([[0, 1], [-k, 0]]), sp.Matrix([0, 1])
+    assert _split_roots(A.row_join(B).col_join(sp.zeros(1, 3))) is None
+    Phi, Gamma, method = _zero_order_hold_and_method(A, B, sp.Rational(1, 10))
+    assert method == ZOH_BY_JORDAN_FORM
+    ref = scipy.signal.cont2discrete(
+        (
+            np.array([[0.0, 1.0], [-4.0, 0.0]]),
+            np.array([[0.0], [1.0]]),
+            np.eye(2),
+            np.zeros((2, 1)),
+        ),
+        0.1,
+        method="zoh",
+    )
+    np.testing.assert_allclose(np.array(Phi.subs(k, 4), dtype=float), ref[0], rtol=1e-12)
+    np.testing.assert_allclose(np.array(Gamma.subs(k, 4), dtype=float), ref[1], rtol=1e-12)
+
+
 def test_zoh_against_scipy_for_an_oscillator():
     A = np.array([[0.0, 1.0], [-25.0, -0.4]])
     B = np.array([[0.0], [3.0]])

@@ -60,10 +60,22 @@ def test_worked_design_pdf_contains_the_gains(built_memos, path):
         printed = format_number(value)
         mantissa = printed.split("e")[0]  # the memo writes 1.28142 × 10^6 for 1.28142e+06
         assert mantissa.replace("-", "") in text.replace("−", "-"), printed
-    for heading in ("Summary", "Plantmodel", "Controllabilityandobservability", "Choiceofpoles",
-                    "Derivationofthegains", "Verification", "Simulatedresponse",
-                    "Robustness", "Stabilitymargins", "Assumptions,limitsandcautions", "References", "Preparedby", "Checkedby",
-                    "Approvedby"):
+    for heading in (
+        "Summary",
+        "Plantmodel",
+        "Controllabilityandobservability",
+        "Choiceofpoles",
+        "Derivationofthegains",
+        "Verification",
+        "Simulatedresponse",
+        "Robustness",
+        "Stabilitymargins",
+        "Assumptions,limitsandcautions",
+        "References",
+        "Preparedby",
+        "Checkedby",
+        "Approvedby",
+    ):
         assert heading in text, heading
     assert design.sha256[:16] in text
 
@@ -151,8 +163,14 @@ def test_hostile_text_appears_literally_and_reads_nothing(tmp_path):
     assert token not in text
     assert token.encode() not in (out / "hostile.pdf").read_bytes()
     flat = _squash(text)
-    for s in (r"\input{/etc/hostname}", r"\write18{touchCANARY}", "^^5cinput{/etc/passwd}",
-              "50%&$5#1_x{y}~z^w\\back", "unbalanced{brace", "<script>alert(1)</script>"):
+    for s in (
+        r"\input{/etc/hostname}",
+        r"\write18{touchCANARY}",
+        "^^5cinput{/etc/passwd}",
+        "50%&$5#1_x{y}~z^w\\back",
+        "unbalanced{brace",
+        "<script>alert(1)</script>",
+    ):
         assert _squash(s) in flat, s
     md = (out / "hostile.md").read_text()
     assert "<script>" not in md and "&lt;script&gt;" in md
@@ -223,8 +241,20 @@ def test_long_formulas_are_broken_over_lines():
 def test_memo_command_line(tmp_path):
     out = tmp_path / "memo"
     proc = subprocess.run(
-        [sys.executable, "-m", "symbolic", "memo", str(WORKED / "focus_actuator.toml"), "-o", str(out), "--no-pdf"],
-        capture_output=True, text=True, cwd=ROOT, timeout=120,
+        [
+            sys.executable,
+            "-m",
+            "symbolic",
+            "memo",
+            str(WORKED / "focus_actuator.toml"),
+            "-o",
+            str(out),
+            "--no-pdf",
+        ],
+        capture_output=True,
+        text=True,
+        cwd=ROOT,
+        timeout=120,
     )
     assert proc.returncode == 0, proc.stderr
     assert "memo written" in proc.stdout
@@ -233,20 +263,27 @@ def test_memo_command_line(tmp_path):
 
 def test_memo_bad_input_is_one_line(tmp_path):
     bad = tmp_path / "bad.toml"
-    bad.write_text(textwrap.dedent("""
+    bad.write_text(
+        textwrap.dedent("""
         [plant]
         A = [[0, 1], [0, 0]]
         B = [[0], [1]]
         C = [[1, 0]]
         [controler]
         poles = ["-1", "-2"]
-    """))
+    """)
+    )
     proc = subprocess.run(
         [sys.executable, "-m", "symbolic", "memo", str(bad), "-o", str(tmp_path / "o")],
-        capture_output=True, text=True, cwd=ROOT, timeout=120,
+        capture_output=True,
+        text=True,
+        cwd=ROOT,
+        timeout=120,
     )
     assert proc.returncode == 2
-    assert proc.stderr.count("\n") == 1 and "controler" in proc.stderr and "controller" in proc.stderr
+    assert (
+        proc.stderr.count("\n") == 1 and "controler" in proc.stderr and "controller" in proc.stderr
+    )
     assert "Traceback" not in proc.stderr
     assert not (tmp_path / "o").exists()
 
@@ -257,11 +294,13 @@ def _corpus_design(tmp_path: Path, items: list[str], index: int) -> Path:
 
     params = []
     for i, text in enumerate(items):
-        params.append(f"[parameters.p{i}]\nvalue = {i + 1}\ndescription = {q(text)}\nunit = {q('u' + str(i))}\n")
+        params.append(
+            f"[parameters.p{i}]\nvalue = {i + 1}\ndescription = {q(text)}\nunit = {q('u' + str(i))}\n"
+        )
     text = (
         f"title = {q('Corpus ' + str(index))}\n"
         + "\n".join(params)
-        + '\n[plant]\nA = [[0, 1], [-2, -3]]\nB = [[0], [1]]\nC = [[1, 0]]\n'
+        + "\n[plant]\nA = [[0, 1], [-2, -3]]\nB = [[0], [1]]\nC = [[1, 0]]\n"
         + '[controller]\npoles = ["-4", "-5"]\n'
     )
     path = tmp_path / f"corpus{index}.toml"
@@ -281,7 +320,9 @@ def test_memo_shows_the_tex_attack_corpus_literally(tmp_path):
     canary.write_text(token + "\n")
     touch = tmp_path / "TOUCHED"
     # a lone surrogate cannot be written in a TOML file (the loader's UTF-8 check refuses it)
-    items = [(t, e) for t, e in _corpus(canary, touch) if not any(0xD800 <= ord(c) <= 0xDFFF for c in t)]
+    items = [
+        (t, e) for t, e in _corpus(canary, touch) if not any(0xD800 <= ord(c) <= 0xDFFF for c in t)
+    ]
     assert len(items) >= 60
     halves = [items[: len(items) // 2], items[len(items) // 2 :]]
     cwd = os.getcwd()
@@ -293,7 +334,9 @@ def test_memo_shows_the_tex_attack_corpus_literally(tmp_path):
             assert write_memo(design, out, pdf=True) == 0
             pdf = out / f"corpus{index}.pdf"
             text = subprocess.run(
-                ["pdftotext", "-raw", "-enc", "UTF-8", str(pdf), "-"], capture_output=True, check=True
+                ["pdftotext", "-raw", "-enc", "UTF-8", str(pdf), "-"],
+                capture_output=True,
+                check=True,
             ).stdout.decode("utf-8")
             assert token not in text and token.encode() not in pdf.read_bytes()
             flat = _comparable(text)
@@ -309,7 +352,9 @@ def test_memo_shows_the_tex_attack_corpus_literally(tmp_path):
 def test_memo_sections_for_integral_reduced_and_digital(tmp_path):
     """Integral action, the reduced-order observer and the digital controller reach the memo."""
     text = (WORKED / "belt_drive.toml").read_text()
-    text = text.replace("[observer]\nspeed_factor = 5", '[observer]\nspeed_factor = 5\nkind = "reduced"')
+    text = text.replace(
+        "[observer]\nspeed_factor = 5", '[observer]\nspeed_factor = 5\nkind = "reduced"'
+    )
     text += '\n[tracking]\nmethod = "integral"\n\n[discrete]\nsample_time = 0.01\n'
     path = tmp_path / "extended.toml"
     path.write_text(text)
@@ -317,7 +362,9 @@ def test_memo_sections_for_integral_reduced_and_digital(tmp_path):
     d, doc = assemble_memo(design)
     for heading in ("## Integral action", "## Reduced-order observer", "## Digital implementation"):
         assert heading in doc.markdown
-    assert r"\section{Integral action}" in doc.tex and r"\section{Digital implementation}" in doc.tex
+    assert (
+        r"\section{Integral action}" in doc.tex and r"\section{Digital implementation}" in doc.tex
+    )
     assert d.integral is not None and d.reduced_observer is not None and d.discrete is not None
     # the gains printed are the derived ones
     assert format_number(d.integral.integral_gain.ravel()[0]) in doc.markdown.replace("\\-", "-")

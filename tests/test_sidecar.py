@@ -51,8 +51,10 @@ DERIVE = """
 """
 
 
-@pytest.mark.parametrize("name", ["belt_drive", "focus_actuator", "levitated_ball"])
+@pytest.mark.parametrize("name", sorted(p.stem for p in WORKED.glob("*.toml")))
 def test_derivation_is_the_same_with_and_without_the_sidecar(name):
+    """Every worked design, the hoist winch's sampled-data model, integral action and
+    reduced observer included."""
     code = DERIVE.format(path=str(WORKED / f"{name}.toml"))
     remote = _python(code, START="1")
     local = _python(code, START="0")

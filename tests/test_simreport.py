@@ -9,17 +9,24 @@ import numpy as np
 import pytest
 
 import symbolic
-from symbolic.cli import main
 from symbolic._derive import derive
 from symbolic._simreport import SPEED_FACTORS, simulation_json, simulation_study
 from symbolic._simulate import step_metrics
 from symbolic._specs import second_order_step_metrics
+from symbolic.cli import main
 
 from .conftest import WORKED
 
 CASE_KEYS = {
-    "name", "overshoot_percent", "settling_time_2pct", "settling_time_1pct", "rise_time",
-    "peak_time", "steady_state_error", "peak_control", "estimation_settling_time",
+    "name",
+    "overshoot_percent",
+    "settling_time_2pct",
+    "settling_time_1pct",
+    "rise_time",
+    "peak_time",
+    "steady_state_error",
+    "peak_control",
+    "estimation_settling_time",
 }
 
 THIRD_ORDER = """
@@ -64,7 +71,9 @@ def test_measurements_are_the_metrics_of_the_responses(focus):
         assert again.overshoot_percent == c.metrics.overshoot_percent
     # separation principle: the matched observer reproduces the true-state response
     a, b = s.cases[0].response, s.cases[1].response
-    np.testing.assert_allclose(a.tracked_output, b.tracked_output, rtol=0, atol=1e-10 * abs(s.reference))
+    np.testing.assert_allclose(
+        a.tracked_output, b.tracked_output, rtol=0, atol=1e-10 * abs(s.reference)
+    )
 
 
 def test_second_order_plant_meets_its_specs_as_predicted(focus):

@@ -47,7 +47,9 @@ def belt():
 def test_three_cases_10000_samples(belt):
     model = loop_model(belt)
     med, times = _median(lambda: simulate_cases(model, samples=10_000))
-    print(f"\nthree cases, 4-state plant + observer, 10,000 samples: median {med:.3f} s {[round(t, 3) for t in times]}")
+    print(
+        f"\nthree cases, 4-state plant + observer, 10,000 samples: median {med:.3f} s {[round(t, 3) for t in times]}"
+    )
     assert med < 0.2
 
 
@@ -55,7 +57,9 @@ def test_observer_speed_sweep_20_factors(belt):
     ctrl = belt.controller_poles.values
 
     def sweep():
-        observer_speed_study(lambda f: loop_model(belt, _observer_gain(belt, f * ctrl)), SPEED_FACTORS)
+        observer_speed_study(
+            lambda f: loop_model(belt, _observer_gain(belt, f * ctrl)), SPEED_FACTORS
+        )
 
     med, times = _median(sweep, repeats=3)
     print(f"\nobserver-speed sweep, 20 factors: median {med:.3f} s {[round(t, 3) for t in times]}")
@@ -69,18 +73,44 @@ def test_memo_whole_process(tmp_path):
         out = tmp_path / f"m{i}"
         t = time.perf_counter()
         subprocess.run(
-            [sys.executable, "-m", "symbolic", "memo", str(WORKED / "belt_drive.toml"), "-o", str(out), "--no-pdf"],
-            cwd=ROOT, check=True, capture_output=True,
+            [
+                sys.executable,
+                "-m",
+                "symbolic",
+                "memo",
+                str(WORKED / "belt_drive.toml"),
+                "-o",
+                str(out),
+                "--no-pdf",
+            ],
+            cwd=ROOT,
+            check=True,
+            capture_output=True,
         )
         times.append(time.perf_counter() - t)
     med = statistics.median(times)
     load = os.getloadavg()[0]
-    print(f"\nmemo (belt_drive, no PDF), whole process: median {med:.2f} s {[round(t, 2) for t in times]}, load {load:.1f}")
+    print(
+        f"\nmemo (belt_drive, no PDF), whole process: median {med:.2f} s {[round(t, 2) for t in times]}, load {load:.1f}"
+    )
     if shutil.which("pdflatex"):
         t = time.perf_counter()
         proc = subprocess.run(
-            [sys.executable, "-m", "symbolic", "memo", str(WORKED / "belt_drive.toml"), "-o", str(tmp_path / "pdf")],
-            cwd=ROOT, check=True, capture_output=True, text=True,
+            [
+                sys.executable,
+                "-m",
+                "symbolic",
+                "memo",
+                str(WORKED / "belt_drive.toml"),
+                "-o",
+                str(tmp_path / "pdf"),
+            ],
+            cwd=ROOT,
+            check=True,
+            capture_output=True,
+            text=True,
         )
-        print(f"memo with PDF: {time.perf_counter() - t:.2f} s; {proc.stdout.strip().splitlines()[-1]}")
+        print(
+            f"memo with PDF: {time.perf_counter() - t:.2f} s; {proc.stdout.strip().splitlines()[-1]}"
+        )
     assert med < 5.0

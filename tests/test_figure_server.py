@@ -1,0 +1,138 @@
+"""The figure server: warm workers started by the memo command draw the memo's figures.
+
+The server is only an accelerator: the files must be byte for byte those drawn in this
+process, the main process of a memo must never load matplotlib, and whatever the server
+cannot draw (a maker that does not pickle, a dead worker) is drawn here instead.
+"""
+
+from __future__ import annotations
+
+import functools
+import json
+import os
+import subprocess
+import sys
+import textwrap
+from pathlib import Path
+
+import pytest
+
+from symbolic import _figures
+
+ROOT = Path(__file__).resolve().parents[1]
+WORKED = ROOT / "worked_designs"
+
+
+def _memo_in_fresh_interpreter(out: Path, **env: str) -> dict:
+    code = f"""
+        import contextlib, io, json, sys
+        from symbolic import cli
+        with contextlib.redirect_stdout(io.StringIO()):
+            code = cli.main(["memo", {str(WORKED / "hoist_winch.toml")!r}, "-o", {str(out)!r},
+                             "--no-pdf"])
+        from symbolic import _figures
+        print(json.dumps({{"code": code, "server": _figures.server_running(),
+                          "matplotlib_here": "matplotlib" in sys.modules}}))
+    """
+    done = subprocess.run(
+        [sys.executable, "-c", textwrap.dedent(code)],
+        cwd=ROOT,
+        env={**os.environ, "SOURCE_DATE_EPOCH": "1764633600", **env},
+        capture_output=True,
+        text=True,
+        timeout=300,
+    )
+    assert done.returncode == 0, done.stderr[-3000:]
+    return json.loads(done.stdout.strip().splitlines()[-1])
+
+
+def test_memo_figures_come_from_the_server_identical_and_matplotlib_stays_out(tmp_path):
+    out = _memo_in_fresh_interpreter(tmp_path / "served")
+    assert out == {"code": 0, "server": True, "matplotlib_here": False}
+    local = _memo_in_fresh_interpreter(tmp_path / "local", GAINSMITH_FIGURE_SERVER="0")
+    assert local["code"] == 0 and not local["server"]  # drawn by forked workers instead
+    served = sorted((tmp_path / "served" / "figures").iterdir())
+    assert len(served) == 24  # the hoist winch: 12 figures, PDF and PNG
+    for path in served:
+        assert path.read_bytes() == (tmp_path / "local" / "figures" / path.name).read_bytes()
+        assert path.read_bytes() == (WORKED / "figures" / path.name).read_bytes(), path.name
+
+
+def _line_figure(values):
+    fig = _figures.blank_figure((2.0, 1.5))
+    fig.add_subplot(1, 1, 1).plot(values)
+    return fig
+
+
+def _run_in_child(body: str) -> dict:
+    code = "import json\nfrom symbolic import _figures\n" + textwrap.dedent(body)
+    done = subprocess.run(
+        [sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, timeout=120
+    )
+    assert done.returncode == 0, done.stderr[-3000:]
+    return json.loads(done.stdout.strip().splitlines()[-1])
+
+
+def test_what_the_server_cannot_draw_is_drawn_here():
+    """An unpicklable maker (a lambda) and every figure after the server was killed are
+    drawn in this process, with the same bytes as the server's."""
+    out = _run_in_child(
+        """
+        import functools, os, signal
+        from tests.test_figure_server import _line_figure
+        assert _figures.start_server(workers=2)
+        makers = {
+            "served": functools.partial(_line_figure, [1.0, 3.0, 2.0]),
+            "lambda": lambda: _line_figure([1.0, 3.0, 2.0]),
+        }
+        with _figures.deferred_figures() as batch:
+            _figures.render_figures(makers)
+            files = batch.result()
+        same = files["served.png"] == files["lambda.png"] and files["served.pdf"] == files["lambda.pdf"]
+        os.kill(_figures._server["process"].pid, signal.SIGKILL)
+        _figures._server["process"].join()
+        with _figures.deferred_figures() as batch:
+            _figures.render_figures({"after": functools.partial(_line_figure, [1.0, 3.0, 2.0])})
+            after = batch.result()
+        _figures.stop_server()
+        print(json.dumps({"same": same, "after": after["after.png"] == files["served.png"],
+                          "names": sorted(files) + sorted(after)}))
+        """
+    )
+    assert out == {
+        "same": True,
+        "after": True,
+        "names": ["lambda.pdf", "lambda.png", "served.pdf", "served.png", "after.pdf", "after.png"],
+    }
+
+
+def test_stopping_the_server_leaves_no_worker_behind():
+    out = _run_in_child(
+        """
+        import functools, os, time
+        from tests.test_figure_server import _line_figure
+        assert _figures.start_server(workers=2)
+        first = _figures._server["process"].pid
+        with _figures.deferred_figures() as batch:
+            _figures.render_figures({"a": functools.partial(_line_figure, [0.0, 1.0]),
+                                     "b": functools.partial(_line_figure, [1.0, 0.0])})
+            batch.result()
+        children = [int(p) for p in open(f"/proc/{first}/task/{first}/children").read().split()]
+        _figures.stop_server()
+        time.sleep(0.5)
+        alive = [p for p in [first, *children] if os.path.exists(f"/proc/{p}")
+                 and open(f"/proc/{p}/stat").read().split()[2] != "Z"]
+        print(json.dumps({"workers": 1 + len(children), "alive": alive}))
+        """
+    )
+    assert out == {"workers": 2, "alive": []}
+
+
+def test_no_server_when_matplotlib_is_loaded_already():
+    pytest.importorskip("matplotlib")
+    import matplotlib  # noqa: F401
+
+    assert not _figures.start_server()
+    assert not _figures.server_running()
+    files = _figures.render_figures({"x": functools.partial(_line_figure, [1.0, 2.0])})
+    assert sorted(files) == ["x.pdf", "x.png"] and files["x.png"].startswith(b"\x89PNG")
