@@ -435,8 +435,8 @@ def zero_order_hold(A, B, T) -> tuple[sp.Matrix, sp.Matrix]:
 
 
 #: How :func:`zero_order_hold` found the exponential, as the digital controller reports it.
-ZOH_BY_INTERPOLATION = "Putzer's method (the exponential interpolated at the eigenvalues)"
-ZOH_BY_JORDAN_FORM = "SymPy's matrix exponential (Jordan form)"
+ZOH_BY_INTERPOLATION = "Putzer's method"  # the exponential interpolated at the eigenvalues
+ZOH_BY_JORDAN_FORM = "SymPy's matrix exponential"  # by the Jordan form
 
 
 def _zero_order_hold_and_method(A, B, T) -> tuple[sp.Matrix, sp.Matrix, str]:
