@@ -126,12 +126,13 @@ def integral_action_figure(study, output_name: str, output_unit: str) -> Figure:
     """
     fig, (top, bottom) = _figure(2)
     styles = {"reference gain": (_RED, _DASHED), "integral action": (_BLACK, "-")}
+    runs = {(r.loop, r.plant): r for r in study.runs}  # fields only: drawn from a plain copy
     plants = [r.plant for r in study.runs if r.loop == "integral action"]
     mismatched = [p for p in plants if p != "nominal"]
     for ax, which in ((top, ["nominal"]), (bottom, mismatched)):
         for k, plant in enumerate(which):
             for loop, (colour, style) in styles.items():
-                run = study.run(loop, plant)
+                run = runs[loop, plant]
                 if k == 1:
                     style = _DOTTED if loop == "reference gain" else _DASH_DOT
                 ax.plot(

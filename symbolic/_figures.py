@@ -519,26 +519,20 @@ class _ServerQueue:
         return self.files
 
 
-def _is_record(cls: type) -> bool:
-    """A dataclass with fields and properties but no methods of its own."""
-    return dataclasses.is_dataclass(cls) and not any(
-        callable(v) for k, v in vars(cls).items() if not k.startswith("__")
-    )
-
-
 def _portable(value: Any) -> Any:
-    """``value`` with every dataclass record replaced by a ``SimpleNamespace`` of the same
+    """``value`` with every dataclass instance replaced by a ``SimpleNamespace`` of its
     fields and properties (recursively): it unpickles in a figure worker without importing
-    the module that defines the record (which may load SymPy or SciPy there).  Records with
-    methods are left as they are."""
+    the module that defines it (which may load SymPy or SciPy there).  Methods are not
+    copied: figure functions read fields and properties only."""
     if isinstance(value, np.ndarray) or value is None or isinstance(value, str | bytes):
         return value
     cls = type(value)
-    if _is_record(cls):
+    if dataclasses.is_dataclass(cls):
         out = {f.name: _portable(getattr(value, f.name)) for f in dataclasses.fields(value)}
-        for name, attribute in vars(cls).items():
-            if isinstance(attribute, property):
-                out[name] = _portable(getattr(value, name))
+        for klass in reversed(cls.__mro__):
+            for name, attribute in vars(klass).items():
+                if isinstance(attribute, property):
+                    out[name] = _portable(getattr(value, name))
         return types.SimpleNamespace(**out)
     if cls in (list, tuple):
         return cls(_portable(v) for v in value)

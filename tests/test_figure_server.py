@@ -136,3 +136,44 @@ def test_no_server_when_matplotlib_is_loaded_already():
     assert not _figures.server_running()
     files = _figures.render_figures({"x": functools.partial(_line_figure, [1.0, 2.0])})
     assert sorted(files) == ["x.pdf", "x.png"] and files["x.png"].startswith(b"\x89PNG")
+
+
+def test_records_travel_as_plain_namespaces(tmp_path):
+    """Dataclass arguments of a maker are sent as SimpleNamespace copies of their fields and
+    properties, so the worker never imports the module that defines them (here the
+    simulation's Response, whose module loads SciPy)."""
+    import pickle
+    import types
+
+    import numpy as np
+
+    from symbolic._margins import MarginReport
+
+    response = _run_in_child(
+        """
+        import pickle, sys
+        from symbolic import derive, load_design
+        from symbolic._simreport import simulation_study
+        d = derive(load_design("worked_designs/belt_drive.toml"), budget=0)
+        case = simulation_study(d).cases[0].response
+        payload = pickle.dumps(_figures._portable([case, {"k": (case, 2.0)}]))
+        open(PATH, "wb").write(payload)
+        print(json.dumps({"name": case.name, "samples": int(case.time.size)}))
+        """.replace("PATH", repr(str(tmp_path / "payload")))
+    )
+    out = _run_in_child(
+        f"""
+        import pickle, sys
+        value = pickle.loads(open({str(tmp_path / "payload")!r}, "rb").read())
+        print(json.dumps({{"name": value[0].name, "samples": int(value[1]["k"][0].time.size),
+                          "loaded": sorted(m for m in sys.modules
+                                           if m.startswith(("scipy", "sympy", "symbolic._sim")))}}))
+        """
+    )
+    assert out == {"name": response["name"], "samples": response["samples"], "loaded": []}
+    # properties are evaluated and copied; the copy pickles
+    fields = {f: None for f in MarginReport.__dataclass_fields__}
+    report = MarginReport(**{**fields, "checks": (), "frequency": np.ones(3)})
+    plain = _figures._portable(report)
+    assert isinstance(plain, types.SimpleNamespace) and plain.passed is report.passed
+    assert pickle.loads(pickle.dumps(plain)).frequency.tolist() == [1.0, 1.0, 1.0]
