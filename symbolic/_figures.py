@@ -382,8 +382,8 @@ def figure_files(fig: Figure, stem: str) -> dict[str, bytes]:
 # --------------------------------------------------------------------------------------------
 # The figure server: warm workers started with the memo command
 # --------------------------------------------------------------------------------------------
-#: Workers of the figure server (one per core, at most this many).
-SERVER_WORKERS = 2
+#: Workers of the figure server: one per core, at most this many (a memo has 9 to 12 figures).
+SERVER_WORKERS = 4
 
 _server: dict[str, Any] = {"conns": None, "process": None, "owner": None}
 _server_lock = threading.Lock()
@@ -452,7 +452,13 @@ def start_server(workers: int | None = None) -> bool:
             return True
         if "matplotlib" in sys.modules or "fork" not in mp.get_all_start_methods():
             return False
-        workers = min(SERVER_WORKERS, os.cpu_count() or 1) if workers is None else workers
+        if workers is None:
+            cores = (
+                len(os.sched_getaffinity(0))
+                if hasattr(os, "sched_getaffinity")
+                else (os.cpu_count() or 1)
+            )
+            workers = min(SERVER_WORKERS, cores)
         if workers < 1:
             return False
         ctx = mp.get_context("fork")
