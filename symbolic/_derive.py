@@ -526,20 +526,24 @@ def _start_extensions(
     children of their own, the reduced observer's (which needs the closed-form K) as a
     callable for the main stage's child to run after K.  Keyed by the
     :class:`Derivation` field each belongs to."""
-    from . import _discrete, _integral, _reduced
-
     pending: dict = {}
     if design.tracking.method == "integral":
-        job = _integral.start_closed_form(design, ctrl.poles, budget=budget)
+        from ._integral import start_closed_form
+
+        job = start_closed_form(design, ctrl.poles, budget=budget)
         if job is not None:
             pending["integral"] = job
     if design.discrete is not None:
-        job = _discrete.start_closed_forms(design, ctrl.poles, obs.poles, budget=budget)
+        from ._discrete import start_closed_forms
+
+        job = start_closed_forms(design, ctrl.poles, obs.poles, budget=budget)
         if job is not None:
             pending["discrete"] = job
     if design.observer.kind == "reduced":
+        from ._reduced import closed_form_outcome
+
         pending["reduced_observer"] = functools.partial(
-            _reduced.closed_form_outcome, design, num.C, obs.poles, ctrl.coefficients
+            closed_form_outcome, design, num.C, obs.poles, ctrl.coefficients
         )
     return pending
 
@@ -592,7 +596,7 @@ def _derive(
             pending[key] = (
                 outcome
                 if outcome is not None
-                else Outcome(error=BudgetExceeded(reason or f"{what} did not finish"))
+                else Outcome(error=BudgetExceeded(f"{what} did not run ({reason})"))
             )
     else:
         for key in after:

@@ -335,8 +335,12 @@ def _split_roots(M: sp.Matrix) -> list[sp.Expr] | None:
     charpoly = M.charpoly()
     x = charpoly.gens[0]
     numerator, _ = sp.fraction(sp.together(charpoly.as_expr()))
+    try:
+        factors = sp.factor_list(numerator)[1]
+    except (sp.PolynomialError, NotImplementedError):  # not a polynomial SymPy can factor
+        return None
     roots: list[sp.Expr] = []
-    for factor, multiplicity in sp.factor_list(numerator)[1]:
+    for factor, multiplicity in factors:
         if not factor.has(x):
             continue
         poly = sp.Poly(factor, x)
