@@ -443,9 +443,10 @@ def _server_main(conns: list, parent: int) -> None:
 def start_server(workers: int | None = None) -> bool:
     """Fork the figure server (once per process); returns whether one is running.
 
-    Call it before the heavy imports, as the ``memo`` command does.  Nothing is started
-    when matplotlib is loaded here already (forked workers start warm anyway), without
-    ``fork``, or on a single core.
+    Call it before the heavy imports, as the ``memo`` command does.  ``workers`` defaults
+    to one per usable core, at most :data:`SERVER_WORKERS`.  Nothing is started when
+    matplotlib is loaded here already (forked workers start warm anyway) or without
+    ``fork``.
     """
     with _server_lock:
         if server_running():
