@@ -1266,7 +1266,7 @@ def _integral_in_z(d, Phi, Gamma, C, D, T, idx, zc, checks) -> DiscreteIntegral:
 
 def _reduced_in_z(d, Phi, Gamma, C, T, checks, notes) -> DiscreteReduced | None:
     """The minimum-order observer of the sampled plant (poles e^{sT} of the reduced ones)."""
-    from ._reduced import coordinate_change, reduced_observer_poles
+    from ._reduced import coordinate_change, observer_matrices, reduced_observer_poles
 
     design = d.design
     n, p = Phi.shape[0], C.shape[0]
@@ -1331,11 +1331,7 @@ def _reduced_in_z(d, Phi, Gamma, C, T, checks, notes) -> DiscreteReduced | None:
             res <= tol,
         )
     )
-    Ahat = Pbb - Lr @ Pab
-    Bhat = Ahat @ Lr + Pba - Lr @ Paa
-    Fhat = Gb_ - Lr @ Ga_
-    Chat = np.vstack([np.zeros((p, rest)), np.eye(rest)])
-    Dhat = np.vstack([np.eye(p), Lr])
+    Ahat, Bhat, Fhat, Chat, Dhat = observer_matrices(Paa, Pab, Pba, Pbb, Ga_, Gb_, Lr)
     return DiscreteReduced(
         T=Tm,
         T_inverse=Ti,

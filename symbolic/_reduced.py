@@ -332,6 +332,21 @@ def _seconds(design, budget: float | None) -> float | None:
 # --------------------------------------------------------------------------------------------
 # The design
 # --------------------------------------------------------------------------------------------
+def observer_matrices(Aaa, Aab, Aba, Abb, Ba, Bb, gain) -> tuple[np.ndarray, ...]:
+    """``Â = A_bb − G A_ab``, ``B̂ = Â G + A_ba − G A_aa``, ``F̂ = B_b − G B_a`` and the maps
+    ``Ĉ = [0; I]``, ``D̂ = [I; G]`` (with ``x̄ = Ĉ η + D̂ ȳ``) of the reduced-order observer of
+    gain ``G`` on a partitioned model (Luenberger [1]); the same for the plant in continuous time
+    and for its ZOH model (Φ, Γ in place of A, B).
+    """
+    p, rest = Aaa.shape[0], Abb.shape[0]
+    Ahat = Abb - gain @ Aab
+    Bhat = Ahat @ gain + Aba - gain @ Aaa
+    Fhat = Bb - gain @ Ba
+    Chat = np.vstack([np.zeros((p, rest)), np.eye(rest)])
+    Dhat = np.vstack([np.eye(p), gain])
+    return Ahat, Bhat, Fhat, Chat, Dhat
+
+
 def _reduced_poles(design, observer_poles: tuple[sp.Expr, ...]) -> tuple[tuple, str]:
     if design.observer.reduced_poles is not None:
         return (
@@ -523,11 +538,7 @@ def reduced_observer(
             )
         )
 
-    Ahat = Abb - Ke @ Aab
-    Bhat = Ahat @ Ke + Aba - Ke @ Aaa
-    Fhat = Bb_ - Ke @ Ba_
-    Chat = np.vstack([np.zeros((p, rest)), np.eye(rest)])
-    Dhat = np.vstack([np.eye(p), Ke])
+    Ahat, Bhat, Fhat, Chat, Dhat = observer_matrices(Aaa, Aab, Aba, Abb, Ba_, Bb_, Ke)
     est_eta, est_y = Ti @ Chat, Ti @ Dhat
     K = d.K.value
     K_eta, K_y = K @ est_eta, K @ est_y
