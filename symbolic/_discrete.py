@@ -86,6 +86,8 @@ __all__ = [
     "c_controller_files",
     "closed_loop_bandwidth",
     "continuous_equations",
+    "controller_equations",
+    "loop_matrices",
     "matched_state",
     "python_controller_source",
     "digital_controller",
@@ -156,6 +158,11 @@ class DifferenceEquations:
     integrator_index: int | None = None
     #: Names of the entries of ξ, for the generated code's comments
     state_names: tuple[str, ...] = ()
+    #: The estimate the controller forms, ``x̂ = E_ξ ξ + E_y y + E_u u`` (E_ξ has a zero column
+    #: for the integrator); None when not recorded
+    estimate_state: np.ndarray | None = None
+    estimate_measurement: np.ndarray | None = None
+    estimate_control: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -691,7 +698,7 @@ def _seconds(design, budget: float | None) -> float:
     return CLOSED_FORM_SECONDS if seconds <= 0 else min(seconds, CLOSED_FORM_SECONDS)
 
 
-def _equations(
+def controller_equations(
     form: str,
     Phi,
     Gamma,
@@ -751,6 +758,9 @@ def _equations(
     Mi = np.linalg.inv(np.eye(m) + Kx @ E_u)
     if integral is None:
         return DifferenceEquations(
+            estimate_state=E_xi,
+            estimate_measurement=E_y,
+            estimate_control=E_u,
             form=form,
             state_matrix=O_xi,
             measurement_matrix=O_y,
@@ -790,11 +800,19 @@ def _equations(
         anti_windup=Baw,
         integrator_index=no,
         state_names=names + ("x_I",),
+        estimate_state=np.hstack([E_xi, np.zeros((E_xi.shape[0], 1))]),
+        estimate_measurement=E_y,
+        estimate_control=E_u,
     )
 
 
-def _sampled_loop(eq: DifferenceEquations, Phi, Gamma, C, D) -> tuple[np.ndarray, np.ndarray]:
-    """Plant and controller at the samples, state [x; ξ]: ``w⁺ = F w + G r``."""
+def loop_matrices(eq: DifferenceEquations, Phi, Gamma, C, D) -> tuple[np.ndarray, np.ndarray]:
+    """Plant and controller at the samples, state [x; ξ]: ``w⁺ = F w + G r``.
+
+    The same interconnection in continuous time (``w' = F w + G r``) with A, B in place of
+    Φ, Γ and continuous controller equations (:func:`continuous_equations`); the
+    anti-windup term is inactive in the linear loop.
+    """
     m = Gamma.shape[1]
     Mi = np.linalg.inv(np.eye(m) - eq.output_measurement @ D)
     Ux = Mi @ eq.output_measurement @ C
@@ -1074,7 +1092,7 @@ def digital_controller(
     forms = OBSERVER_FORMS + (("reduced",) if reduced is not None else ())
     loop_controller = zc if integral is None else np.append(zc, integral.integral_pole_z)
     for form in forms:
-        eq = _equations(
+        eq = controller_equations(
             form,
             Phi,
             Gamma,
@@ -1090,7 +1108,7 @@ def digital_controller(
             tracked=idx,
         )
         equations[form] = eq
-        F, _G = _sampled_loop(eq, Phi, Gamma, C, D)
+        F, _G = loop_matrices(eq, Phi, Gamma, C, D)
         observer_z = reduced.poles_z if form == "reduced" else zo
         union = np.concatenate([loop_controller, observer_z])
         res = pole_residual(np.linalg.eigvals(F), union)
@@ -1522,7 +1540,7 @@ def sampled_data_study(
     Y = np.array(fine_y)
     U = np.array(fine_u).reshape(len(fine_t), m)
 
-    F, G = _sampled_loop(eq, digital.Phi, digital.Gamma, C, D)
+    F, G = loop_matrices(eq, digital.Phi, digital.Gamma, C, D)
     poles = np.linalg.eigvals(F)
     final = None
     if np.max(np.abs(poles)) < 1 - 1e-12 and u_max is None:
@@ -1624,10 +1642,11 @@ def continuous_equations(d: Derivation, form: str) -> DifferenceEquations:
             integral_pole_z=complex(ia.integral_pole),
             pole_rule=ia.pole_rule,
             tracking_time=1.0 / abs(complex(ia.integral_pole)),
-            back_calculation=np.zeros((1, m)),
+            # back-calculation x_I' += (u_d − u)/(k_i T_t), T_t = 1/|p_I| (as in _integral)
+            back_calculation=np.linalg.pinv(ia.integral_gain) * abs(complex(ia.integral_pole)),
             method=ia.method,
         )
-    eq = _equations(
+    eq = controller_equations(
         "predictor" if form != "reduced" else "reduced",
         A,
         B,
@@ -1645,8 +1664,8 @@ def continuous_equations(d: Derivation, form: str) -> DifferenceEquations:
     if eq.integrator_index is not None:  # x_I' = y_t − r: no "x_I +" of the running sum
         Ao = eq.state_matrix.copy()
         Ao[eq.integrator_index, eq.integrator_index] = 0.0
-        eq = dataclasses.replace(eq, state_matrix=Ao, anti_windup=None, sample_time=0.0)
-    return eq
+        eq = dataclasses.replace(eq, state_matrix=Ao)
+    return dataclasses.replace(eq, sample_time=0.0)
 
 
 def _continuous_design_response(d, digital, form, x0, r, grid):
@@ -1656,7 +1675,7 @@ def _continuous_design_response(d, digital, form, x0, r, grid):
     A, B, C, D = d.plant.A, d.plant.B, d.plant.C, d.plant.D
     m = B.shape[1]
     eq = continuous_equations(d, form)
-    F, G = _sampled_loop(eq, A, B, C, D)
+    F, G = loop_matrices(eq, A, B, C, D)
     Mi = np.linalg.inv(np.eye(m) - eq.output_measurement @ D)
     n = A.shape[0]
     h = float(grid[1] - grid[0])

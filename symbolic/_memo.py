@@ -77,6 +77,8 @@ class MemoDocument:
     tex: str
     markdown: str
     figures: dict[str, bytes]
+    #: the requirements table the memo's verdict shows (symbolic._verdict.RequirementTable)
+    requirements: object = None
 
 
 def memo_date() -> str:
@@ -353,8 +355,83 @@ def _references(d: Derivation) -> list[str]:
     return refs
 
 
-def build_context(d: Derivation, study=None, claims=None) -> dict:
-    """The template context shared by the LaTeX and Markdown memos."""
+def _shipped_gains(d: Derivation, ctrl) -> list[_Math]:
+    """The gains of the controller the memo ships, numerically (one line each)."""
+    lines = []
+    dc = d.discrete if ctrl is not None and ctrl.digital else None
+    integral = d.integral is not None
+    reduced = d.design.observer.kind == "reduced" and d.reduced_observer is not None
+    if dc is None:
+        if integral:
+            lines.append(r"[K\;\, k_i] = " + _numeric_matrix(d.integral.K_augmented, 6))
+        else:
+            lines.append("K = " + _numeric_matrix(d.K.value, 6))
+        if reduced:
+            lines.append("K_e = " + _numeric_matrix(d.reduced_observer.Ke, 6))
+        else:
+            lines.append("L = " + _numeric_matrix(d.L.value, 6))
+        if not integral and d.reference is not None:
+            lines.append("N = " + _numeric_matrix(d.reference.value, 6))
+        return [_math(x) for x in lines]
+    form = ctrl.form
+    if dc.integral is not None:
+        lines.append(r"[K_d\;\, k_{i,d}] = " + _numeric_matrix(dc.integral.K_augmented, 6))
+    else:
+        lines.append("K_d = " + _numeric_matrix(dc.K, 6))
+    if form == "reduced" and dc.reduced is not None:
+        lines.append("L_r = " + _numeric_matrix(dc.reduced.L, 6))
+    elif form == "current":
+        lines.append("L_c = " + _numeric_matrix(dc.L_current, 6))
+    else:
+        lines.append("L_p = " + _numeric_matrix(dc.L_predictor, 6))
+    if dc.integral is None and dc.reference_gain is not None:
+        lines.append("N_d = " + _numeric_matrix(dc.reference_gain, 6))
+    return [_math(x) for x in lines]
+
+
+def _requirements_context(table) -> dict:
+    rows = [
+        {
+            "number": r.number,
+            "label": r.label,
+            "requested": r.requested,
+            "achieved": r.achieved,
+            "passed": r.passed,
+            "shortfall": r.shortfall,
+            "basis": r.basis,
+            "source": r.source,
+        }
+        for r in table.rows
+    ]
+    return {
+        "controller": table.controller,
+        "rows": rows,
+        "open_items": list(table.open_items),
+        "passed": table.passed,
+        "count": len(rows),
+        "failed": sum(not r.passed for r in table.rows),
+        "verdict": table.verdict,
+    }
+
+
+def build_context(
+    d: Derivation, study=None, claims=None, requirements=None, controller=None
+) -> dict:
+    """The template context shared by the LaTeX and Markdown memos.
+
+    ``requirements`` is the :class:`symbolic._verdict.RequirementTable` of the shipped
+    ``controller`` (:class:`symbolic._shipped.ShippedController`); both are computed here
+    when not given.
+    """
+    if controller is None:
+        from ._shipped import shipped_controller
+
+        controller = shipped_controller(d)
+    if requirements is None:
+        from ._simreport import simulation_study
+        from ._verdict import requirement_table
+
+        requirements = requirement_table(d, simulation_study(d, sweep=False, controller=controller))
     des = d.design
     plant = des.plant
     n = plant.order
@@ -535,6 +612,12 @@ def build_context(d: Derivation, study=None, claims=None) -> dict:
         "closed_loop_poles": _poles(np.array(sorted(sep.poles, key=lambda z: (z.real, z.imag)))),
         "checks": checks,
         "passed": d.passed,
+        "requirements": _requirements_context(requirements),
+        "shipped_gains": _shipped_gains(d, controller),
+        "shipped_controller_poles": _poles(controller.controller_poles),
+        "shipped_observer_poles": _poles(controller.observer_poles)
+        if controller.observer_poles.size
+        else _math("\\text{none}"),
         "notes": list(d.notes),
         "references": _references(d),
         "simulation": study,
@@ -833,9 +916,11 @@ def build_memo(
     claims_context: dict | None = None,
     robustness_context: dict | None = None,
     extended_context: dict | None = None,
+    requirements=None,
+    controller=None,
 ) -> MemoDocument:
     """Render both memo sources from a finished derivation."""
-    ctx = build_context(d, study_context, claims_context)
+    ctx = build_context(d, study_context, claims_context, requirements, controller)
     ctx["robustness"] = robustness_context
     ctx.update(extended_sections(d) if extended_context is None else extended_context)
     name = d.design.slug
@@ -851,25 +936,31 @@ def build_memo(
 def assemble_memo(design: Design) -> tuple[Derivation, MemoDocument]:
     """Derive, simulate, study robustness and render: everything but the PDF and the files."""
     from ._figures import deferred_figures
-    from ._simreport import memo_simulation
+    from ._simreport import memo_simulation, simulation_study
+    from ._verdict import requirement_table
 
     d = derive(design)
     with deferred_figures() as batch:  # every figure is drawn by one set of workers
-        study_ctx, figures = memo_simulation(d)
-        claims_ctx = None
+        study = simulation_study(d)
+        study_ctx, figures = memo_simulation(d, study)
+        claims_ctx = claims = None
         if design.claims is not None:
-            from ._claims import memo_claims
+            from ._claims import check_claims, memo_claims
 
             claims_ctx = memo_claims(d, design.claims)
+            claims = check_claims(d, design.claims)
+        table = requirement_table(d, study, claims=claims)
         robustness_ctx, robustness_figures = memo_robustness_section(d)
         extended_ctx, extended_figures = memo_extended_sections(d)
         names = {**figures, **robustness_figures, **extended_figures}  # contents come later
         batch.start()  # the figures are drawn while the templates render
-        doc = build_memo(d, study_ctx, names, claims_ctx, robustness_ctx, extended_ctx)
+        doc = build_memo(
+            d, study_ctx, names, claims_ctx, robustness_ctx, extended_ctx, table, study.controller
+        )
         files = batch.result()
     if set(files) != set(names):
         raise RuntimeError(f"figure files {sorted(set(files) ^ set(names))} were not expected")
-    return d, dataclasses.replace(doc, figures=files)
+    return d, dataclasses.replace(doc, figures=files, requirements=table)
 
 
 def write_memo(design: Design, out_dir: str | Path, pdf: bool = True) -> int:
@@ -919,4 +1010,8 @@ def write_memo(design: Design, out_dir: str | Path, pdf: bool = True) -> int:
     )
     if message:
         print(message, file=sys.stderr if message.startswith("PDF skipped") else sys.stdout)
-    return 0 if d.passed else 1
+    table = doc.requirements
+    print(table.verdict)
+    for item in table.open_items:
+        print(f"  open item {item}")
+    return 0 if table.passed else 1

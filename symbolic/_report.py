@@ -121,7 +121,37 @@ def derivation_json(d: Derivation) -> dict[str, Any]:
         "notes": list(d.notes),
     }
     out.update(_extensions_json(d))
+    _shipped_observer_on_top(d, out)
     return out
+
+
+def _shipped_observer_on_top(d: Derivation, out: dict[str, Any]) -> None:
+    """With ``[observer] kind = "reduced"`` the top-level observer keys describe the reduced
+    observer that is shipped; the full-order one moves under ``full_order_observer``."""
+    ro = d.reduced_observer
+    out["observer_kind"] = "full-order"
+    if d.design.observer.kind != "reduced" or ro is None:
+        return
+    out["observer_kind"] = "reduced-order"
+    out["full_order_observer"] = {
+        "note": "comparison only: not the observer that is shipped",
+        "L": out["L"],
+        "observer_poles": out["observer_poles"],
+        "closed_loop_poles": out["closed_loop_poles"],
+        "method": out["methods"]["L"],
+        "formula": out["formulas"]["L"],
+        "charpoly": out["formulas"]["observer_charpoly"],
+        "pole_rule": out["pole_selection"]["observer"],
+    }
+    out["L"] = _matrix(ro.Ke) if ro.Ke.size else []
+    out["observer_poles"] = complex_pairs(ro.pole_values)
+    out["closed_loop_poles"] = complex_pairs(
+        sorted(ro.closed_loop_poles, key=lambda z: (z.real, z.imag))
+    )
+    out["methods"]["L"] = ro.method
+    out["formulas"]["L"] = _formula_matrix(ro.Ke_closed_form)
+    out["formulas"]["observer_charpoly"] = None
+    out["pole_selection"]["observer"] = ro.pole_rule
 
 
 def _extensions_json(d: Derivation) -> dict[str, Any]:
@@ -290,8 +320,12 @@ def derivation_summary(d: Derivation) -> str:
             w(f"  {sentence}")
     w("  controller: " + ", ".join(_fmt_complex(z) for z in cp.values))
     w(f"    ({cp.rule})")
-    w("  observer:   " + ", ".join(_fmt_complex(z) for z in d.observer_poles.values))
+    reduced = d.design.observer.kind == "reduced" and d.reduced_observer is not None
+    label = "full-order observer (comparison only, not shipped): " if reduced else "observer:   "
+    w("  " + label + ", ".join(_fmt_complex(z) for z in d.observer_poles.values))
     w(f"    ({d.observer_poles.rule})")
+    if reduced:
+        w("  shipped observer: the reduced-order observer (below)")
     w("")
     w("Gains")
     for g in (d.K, d.L):

@@ -63,6 +63,7 @@ import math
 import textwrap
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 import sympy as sp
@@ -1015,14 +1016,19 @@ class RobustnessReport:
     notes: tuple[str, ...]
     points: int
     timings: dict[str, float] = field(default_factory=dict, compare=False)
+    #: the shipped controller's stability (nominal, over the ranges) and margins
+    #: (:func:`symbolic._verdict.robustness_table`); None when not computed
+    shipped: Any = None
 
     @property
     def passed(self) -> bool:
-        """No unstable point, margins computed, and every check passed."""
+        """No unstable point, margins computed, every check passed, and the shipped controller
+        stable over the ranges with its margins met."""
         return (
             self.mismatch.all_stable
             and self.margins is not None
             and all(c.passed is not False for c in self.checks)
+            and (self.shipped is None or self.shipped.passed)
         )
 
 
@@ -1076,7 +1082,14 @@ def robustness_study(
         checks.extend(margins.observer_based.checks)
     if not study.grid.varied:
         notes.append("no parameter has a range: the mismatch study has only the nominal point")
+    from ._shipped import shipped_controller
+    from ._verdict import robustness_table
+
+    t = time.perf_counter()
+    shipped = robustness_table(d, shipped_controller(d), points)
+    timings["shipped"] = time.perf_counter() - t
     return RobustnessReport(
+        shipped=shipped,
         derivation=d,
         mismatch=study,
         stability=stability,
@@ -1167,6 +1180,7 @@ def robustness_json(r: RobustnessReport) -> dict:
         "checks": [_check_json(c) for c in r.checks],
         "notes": list(r.notes),
         "caution": CAUTION,
+        "shipped_controller": None if r.shipped is None else r.shipped.to_json(),
         "passed": r.passed,
     }
 
@@ -1321,11 +1335,18 @@ def robustness_text(r: RobustnessReport) -> str:
         w("Notes")
         for note in r.notes:
             w("  - " + note)
+    if r.shipped is not None:
+        from ._simreport import requirements_text
+
+        w("")
+        out.extend(requirements_text(r.shipped))
     w("")
     w("Caution: " + CAUTION)
     w("")
     if r.passed:
-        w("stable at every point of the study; margins computed")
+        w("stable at every point of the study; margins met")
+    elif r.shipped is not None and not r.shipped.passed:
+        w("THE SHIPPED CONTROLLER FAILS: " + "; ".join(r.shipped.open_items))
     elif not m.all_stable:
         w("UNSTABLE SOMEWHERE IN THE PARAMETER RANGES")
     elif r.margins is None:

@@ -60,10 +60,13 @@ __all__ = [
     "Response",
     "StepMetrics",
     "default_horizon",
+    "horizon_from_poles",
     "default_mismatch",
     "simulate_step",
     "simulate_cases",
     "step_metrics",
+    "step_linear",
+    "integrate_saturated",
     "observer_speed_study",
 ]
 
@@ -430,6 +433,21 @@ def _horizon_from_eigenvalues(eigenvalues: np.ndarray) -> float:
     return horizon
 
 
+def horizon_from_poles(poles: np.ndarray, sample_time: float | None = None) -> float:
+    """The default horizon (rule of :func:`default_horizon`) for closed-loop poles.
+
+    z-plane poles of a digital loop (``sample_time`` given) are mapped to ``s = ln(z)/T``
+    (a pole at z = 0 counts as very fast).
+    """
+    poles = np.asarray(poles, dtype=complex).ravel()
+    if sample_time is not None:
+        T = float(sample_time)
+        tiny = np.abs(poles) < 1e-300
+        safe = np.where(tiny, 1e-300, poles)
+        poles = np.where(tiny, -700.0 / T, np.log(safe) / T)
+    return _horizon_from_eigenvalues(poles)
+
+
 def default_horizon(model: LoopModel, *, use_observer: bool = True) -> float:
     """Default length of a step simulation.
 
@@ -589,15 +607,15 @@ def _validate_run(
     return ref, x0_final, xhat0_array, horizon_value, sample_count, limit
 
 
-def _zoh_matrices(loop: _Loop, step: float) -> tuple[np.ndarray, np.ndarray]:
+def _zoh_matrices(F: np.ndarray, G: np.ndarray, step: float) -> tuple[np.ndarray, np.ndarray]:
     """``Phi = expm(F h)`` and ``Gamma = int_0^h expm(F tau) dtau G`` from one exponential.
 
     Van Loan [1]: ``expm([[F, G], [0, 0]] h) = [[Phi, Gamma], [0, I]]``.
     """
-    size = loop.F.shape[0]
+    size = F.shape[0]
     augmented = np.zeros((size + 1, size + 1))
-    augmented[:size, :size] = loop.F * step
-    augmented[:size, size:] = loop.G * step
+    augmented[:size, :size] = F * step
+    augmented[:size, size:] = np.reshape(G, (size, 1)) * step
     exponential = scipy.linalg.expm(augmented)
     return exponential[:size, :size], exponential[:size, size]
 
@@ -612,7 +630,17 @@ def _first_over_limit(block: np.ndarray) -> int | None:
 def _step_exact(
     loop: _Loop, reference: float, z0: np.ndarray, time: np.ndarray
 ) -> tuple[np.ndarray, bool]:
-    """Exact ZOH stepping ``z_{k+1} = Phi z_k + Gamma r`` on a uniform grid.
+    return step_linear(loop.F, loop.G, reference, z0, time)
+
+
+def step_linear(
+    F: np.ndarray, G: np.ndarray, reference: float, z0: np.ndarray, time: np.ndarray
+) -> tuple[np.ndarray, bool]:
+    """Exact ZOH stepping of ``z' = F z + G r`` (constant r) on a uniform grid.
+
+    Returns the trajectory (one row per sample, shorter when the state passed
+    :data:`STATE_LIMIT`) and whether it stopped early.  ``z_{k+1} = Phi z_k + Gamma r``
+    with ``Phi``, ``Gamma`` from one exponential (Van Loan [1]).
 
     Done ``BLOCK`` samples at a time: with ``P_j = Phi^j`` and ``S_j = sum_{i<j} Phi^i Gamma``,
     ``z_{k+j} = P_j z_k + S_j r`` for ``j = 1..BLOCK`` is one matrix-vector product per block
@@ -620,7 +648,7 @@ def _step_exact(
     """
     samples = time.size
     step = float(time[1] - time[0])
-    phi, gamma = _zoh_matrices(loop, step)
+    phi, gamma = _zoh_matrices(F, G, step)
     size = z0.size
     block = min(_BLOCK, samples - 1)
     powers = np.empty((block, size, size))
@@ -661,8 +689,29 @@ def _integrate_limited(
     budget (:data:`SATURATED_BUDGET`) or a runaway state still leaves the part already done.
     Returns the trajectory, whether it stopped early, and a note ('' when none).
     """
-    F0, Bz, Ku = loop.F0, loop.Bz, loop.Ku
-    feedforward = loop.N[:, 0] * reference
+    return integrate_saturated(
+        loop.F0, loop.Bz, loop.Ku, loop.N[:, 0] * reference, None, z0, time, limit, reference
+    )
+
+
+def integrate_saturated(
+    F0: np.ndarray,
+    Bz: np.ndarray,
+    Ku: np.ndarray,
+    feedforward: np.ndarray,
+    drive: np.ndarray | None,
+    z0: np.ndarray,
+    time: np.ndarray,
+    limit: np.ndarray,
+    reference: float = 0.0,
+) -> tuple[np.ndarray, bool, str]:
+    """Integrate ``z' = F0 z + Bz clip(Ku z + feedforward) + drive`` with LSODA.
+
+    The loop with a limited input, in any stacked state (plant and controller states); see
+    :func:`simulate_step` for the integrator settings.  ``reference`` only sets the scale of
+    the absolute tolerance.  Returns the trajectory, whether it stopped early, and a note.
+    """
+    constant = np.zeros(z0.size) if drive is None else np.asarray(drive, dtype=float)
     calls = [0]
 
     def rhs(_t: float, z: np.ndarray) -> np.ndarray:
@@ -670,7 +719,7 @@ def _integrate_limited(
         if calls[0] > SATURATED_BUDGET:
             raise _OverBudget
         u = np.clip(Ku @ z + feedforward, -limit, limit)
-        return F0 @ z + Bz @ u
+        return F0 @ z + Bz @ u + constant
 
     def jacobian(_t: float, z: np.ndarray) -> np.ndarray:
         # Piecewise: an input inside its limits passes Ku on, a clipped one contributes zero.

@@ -24,13 +24,15 @@ from scipy.signal import place_poles
 from symbolic import derive, parse_design
 from symbolic._discrete import (
     ControllerRunner,
-    _sampled_loop,
     c_controller_files,
     digital_controller,
     matched_state,
     numeric_zero_order_hold,
     python_controller_source,
     sampled_data_study,
+)
+from symbolic._discrete import (
+    loop_matrices as _sampled_loop,
 )
 from symbolic._errors import RenderError
 from symbolic._export import c_identifier_prefix, c_sources, gain_formulas, python_source

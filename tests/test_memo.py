@@ -50,10 +50,18 @@ def built_memos(tmp_path_factory):
 def test_worked_design_pdf_contains_the_gains(built_memos, path):
     out, results = built_memos
     design, code = results[path.stem]
-    assert code == 0
     pdf = out / f"{path.stem}.pdf"
     assert pdf.read_bytes().startswith(b"%PDF")
     text = _squash(_pdf_text(pdf))
+    # the verdict on the front page agrees with the exit code (and with the table)
+    front = text[: text.index("Contents")]
+    if code == 0:
+        assert "Verdict:everyrequirementbelowismet" in front
+        assert "FAIL" not in front and "Openitems." not in front
+    else:
+        assert code == 1
+        assert "Verdict:notacceptableasitstands" in front
+        assert "FAIL" in front and "Openitems." in front
     d = derive(design)
     # the numbers as the terminal summary prints them (6 significant figures)
     for value in np.concatenate([d.K.value.ravel(), d.L.value.ravel(), d.reference.value.ravel()]):

@@ -148,7 +148,8 @@ def test_commands_with_a_sidecar_never_load_scipy_themselves(command, tmp_path):
                           "scipy_here": sorted(m for m in sys.modules if m.startswith("scipy"))}}))
         """
     )
-    assert out["code"] == 0
+    # the belt drive's memo lists open items (its requirements table fails): exit 1
+    assert out["code"] == (1 if command == "memo" else 0)
     if command == "memo":
         assert "scipy.integrate" in out["scipy_here"]  # the simulation's, loaded here
         assert not [m for m in out["scipy_here"] if m.startswith("scipy.signal")]

@@ -7,5 +7,6 @@ set -eu
 cd "$(dirname "$0")"
 export SOURCE_DATE_EPOCH=1764633600  # 2025-12-02
 for design in *.toml; do
-  python3 -m symbolic memo "$design" -o . --no-pdf
+  # exit code 1 means the memo lists open items (a requirement not met): still written
+  python3 -m symbolic memo "$design" -o . --no-pdf || test $? -eq 1
 done

@@ -22,8 +22,9 @@ import time
 import pytest
 
 import symbolic
-from symbolic._simreport import SPEED_FACTORS, _observer_gain, loop_model
-from symbolic._simulate import observer_speed_study, simulate_cases
+from symbolic._shipped import shipped_controller
+from symbolic._simreport import SPEED_FACTORS, _speed_study, loop_model, simulation_study
+from symbolic._simulate import simulate_cases
 
 from ..conftest import ROOT, WORKED
 
@@ -53,13 +54,17 @@ def test_three_cases_10000_samples(belt):
     assert med < 0.2
 
 
+def test_shipped_study_without_sweep(belt):
+    med, times = _median(lambda: simulation_study(belt, sweep=False))
+    print(f"\nshipped-loop study, three cases: median {med:.3f} s {[round(t, 3) for t in times]}")
+    assert med < 0.5
+
+
 def test_observer_speed_sweep_20_factors(belt):
-    ctrl = belt.controller_poles.values
+    ctrl = shipped_controller(belt)
 
     def sweep():
-        observer_speed_study(
-            lambda f: loop_model(belt, _observer_gain(belt, f * ctrl)), SPEED_FACTORS
-        )
+        _speed_study(ctrl, 1.0, None, None, 2001)
 
     med, times = _median(sweep, repeats=3)
     print(f"\nobserver-speed sweep, 20 factors: median {med:.3f} s {[round(t, 3) for t in times]}")
@@ -72,7 +77,7 @@ def test_memo_whole_process(tmp_path):
     for i in range(3):
         out = tmp_path / f"m{i}"
         t = time.perf_counter()
-        subprocess.run(
+        proc = subprocess.run(
             [
                 sys.executable,
                 "-m",
@@ -84,9 +89,9 @@ def test_memo_whole_process(tmp_path):
                 "--no-pdf",
             ],
             cwd=ROOT,
-            check=True,
             capture_output=True,
         )
+        assert proc.returncode in (0, 1), proc.stderr  # 1: the memo lists open items
         times.append(time.perf_counter() - t)
     med = statistics.median(times)
     load = os.getloadavg()[0]
@@ -106,10 +111,10 @@ def test_memo_whole_process(tmp_path):
                 str(tmp_path / "pdf"),
             ],
             cwd=ROOT,
-            check=True,
             capture_output=True,
             text=True,
         )
+        assert proc.returncode in (0, 1), proc.stderr  # 1: the memo lists open items
         print(
             f"memo with PDF: {time.perf_counter() - t:.2f} s; {proc.stdout.strip().splitlines()[-1]}"
         )
