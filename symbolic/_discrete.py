@@ -57,14 +57,12 @@ import sympy as sp
 
 from . import _closed_form as cf
 from ._budget import BoundedChild
-from ._derive import GAIN_TOLERANCE, Check, Derivation
+from ._derive import GAIN_TOLERANCE, Check, Derivation, eigenvalue_check
 from ._errors import GainsmithWarning, RenderError, StructureError
 from ._numeric import (
     closed_loop_bandwidth,
-    eigenvalue_tolerance,
     evaluate_matrix,
     numeric_ackermann,
-    pole_residual,
     relative_difference,
     sampled_plant,
     scipy_placement,
@@ -1048,11 +1046,15 @@ def digital_controller(
     Lt, L_cf = gain("L", L_cf, Phi.T, C.T, zo)
     Lp = Lt.T
     Lc = np.linalg.solve(Phi, Lp)
-    for label, M, poles in (("Φ − ΓK", Phi - Gamma @ K, zc), ("Φ − L_p C", Phi - Lp @ C, zo)):
-        res = pole_residual(np.linalg.eigvals(M), poles)
-        tol = eigenvalue_tolerance(poles)
+    for label, (F, G), poles in (("Φ − ΓK", (Gamma, K), zc), ("Φ − L_p C", (Lp, C), zo)):
         checks.append(
-            Check(f"discrete: eigenvalues of {label} vs e^(sT) of the poles", res, tol, res <= tol)
+            eigenvalue_check(
+                f"discrete: eigenvalues of {label} vs e^(sT) of the poles",
+                Phi - F @ G,
+                poles,
+                terms=(Phi, (F, G)),
+                weights=np.abs(Phi) + np.abs(F) @ np.abs(G),
+            )
         )
     res = relative_difference(Phi @ Lc, Lp)
     checks.append(Check("discrete: Φ L_c = L_p (current-estimator gain)", res, 1e-12, res <= 1e-12))
@@ -1111,8 +1113,6 @@ def digital_controller(
         F, _G = loop_matrices(eq, Phi, Gamma, C, D)
         observer_z = reduced.poles_z if form == "reduced" else zo
         union = np.concatenate([loop_controller, observer_z])
-        res = pole_residual(np.linalg.eigvals(F), union)
-        tol = eigenvalue_tolerance(union)
         what = {
             "current": "current estimator",
             "predictor": "predictor observer",
@@ -1120,12 +1120,12 @@ def digital_controller(
         }[form]
         extra = " and the integrator" if integral is not None else ""
         checks.append(
-            Check(
+            eigenvalue_check(
                 f"discrete: sampled loop with the {what}{extra} has poles e^(sT) of controller"
                 f"{' (with the integral pole)' if integral is not None else ''} ∪ observer",
-                res,
-                tol,
-                res <= tol,
+                F,
+                union,
+                terms=(Phi, (Gamma, K), (Lp, C)),
             )
         )
 
@@ -1254,14 +1254,13 @@ def _integral_in_z(d, Phi, Gamma, C, D, T, idx, zc, checks) -> DiscreteIntegral:
             )
     else:
         how = "by scipy.signal.place_poles on the augmented pair (several inputs: not unique)"
-    res = pole_residual(np.linalg.eigvals(Pa - Ga @ Ka), poles)
-    tol = eigenvalue_tolerance(poles)
     checks.append(
-        Check(
+        eigenvalue_check(
             "discrete: eigenvalues of Φ_a − Γ_a[K, k_i] vs e^(sT) of the poles",
-            res,
-            tol,
-            res <= tol,
+            Pa - Ga @ Ka,
+            poles,
+            terms=(Pa, (Ga, Ka)),
+            weights=np.abs(Pa) + np.abs(Ga) @ np.abs(Ka),
         )
     )
     ki = Ka[:, n:]
@@ -1339,14 +1338,13 @@ def _reduced_in_z(d, Phi, Gamma, C, T, checks, notes) -> DiscreteReduced | None:
             )
         else:
             checks.append(Check("discrete: L_r vs scipy.signal.place_poles", None, None, None, why))
-    res = pole_residual(np.linalg.eigvals(Pbb - Lr @ Pab), zr)
-    tol = eigenvalue_tolerance(zr)
     checks.append(
-        Check(
+        eigenvalue_check(
             "discrete: eigenvalues of Φ_bb − L_r Φ_ab vs e^(sT) of the reduced observer poles",
-            res,
-            tol,
-            res <= tol,
+            Pbb - Lr @ Pab,
+            zr,
+            terms=(Pbb, (Lr, Pab)),
+            weights=np.abs(Pbb) + np.abs(Lr) @ np.abs(Pab),
         )
     )
     Ahat, Bhat, Fhat, Chat, Dhat = observer_matrices(Paa, Pab, Pba, Pbb, Ga_, Gb_, Lr)

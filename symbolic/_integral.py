@@ -70,13 +70,11 @@ from sympy.polys.matrices import DomainMatrix
 
 from . import _closed_form as cf
 from ._budget import BoundedChild
-from ._derive import GAIN_TOLERANCE, Check, Derivation, conditions_of
+from ._derive import GAIN_TOLERANCE, Check, Derivation, conditions_of, eigenvalue_check
 from ._errors import BudgetExceeded, GainsmithWarning, StructureError
 from ._numeric import (
-    eigenvalue_tolerance,
     evaluate_matrix,
     numeric_ackermann,
-    pole_residual,
     relative_difference,
     scipy_placement,
 )
@@ -600,14 +598,14 @@ def integral_action(
                 )
             )
     achieved = np.linalg.eigvals(Aa - Ba @ Ka)
-    tol = eigenvalue_tolerance(requested)
-    res = pole_residual(achieved, requested)
     checks.append(
-        Check(
+        eigenvalue_check(
             "integral action: eigenvalues of A_a − B_a[K, k_i] vs requested poles (relative)",
-            res,
-            tol,
-            res <= tol,
+            Aa - Ba @ Ka,
+            requested,
+            achieved=achieved,
+            terms=(Aa, (Ba, Ka)),
+            weights=np.abs(Aa) + np.abs(Ba) @ np.abs(Ka),
         )
     )
     if forms is not None:

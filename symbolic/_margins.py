@@ -84,8 +84,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.optimize import brentq
 
-from ._derive import Check, Derivation
-from ._numeric import eigenvalue_tolerance, frequency_response, pole_residual
+from ._derive import Check, Derivation, eigenvalue_check
+from ._numeric import frequency_response
 
 __all__ = [
     "BrokenLoop",
@@ -847,15 +847,12 @@ def compare_margins(d: Derivation) -> MarginComparison:
             "the controller and observer poles",
         ),
     ):
-        got = np.linalg.eigvals(closed_loop_matrix(loop, 1.0))
-        res = pole_residual(got, want)
-        tol = eigenvalue_tolerance(want)
         checks.append(
-            Check(
+            eigenvalue_check(
                 f"{loop.name} loop closed at k = 1: eigenvalues vs {label} (relative)",
-                res,
-                tol,
-                res <= tol,
+                closed_loop_matrix(loop, 1.0),
+                want,
+                terms=(A, (B, K), (B, K), (L, C)),
             )
         )
     a = broken_loop_margins(sf)

@@ -48,13 +48,11 @@ from sympy.polys.matrices import DomainMatrix
 
 from . import _closed_form as cf
 from ._budget import BoundedChild, Outcome
-from ._derive import GAIN_TOLERANCE, Check, Derivation
+from ._derive import GAIN_TOLERANCE, Check, Derivation, eigenvalue_check
 from ._errors import BudgetExceeded, GainsmithError, StructureError
 from ._numeric import (
-    eigenvalue_tolerance,
     evaluate_matrix,
     numeric_ackermann,
-    pole_residual,
     relative_difference,
     scipy_placement,
 )
@@ -527,14 +525,13 @@ def reduced_observer(
                 checks.append(
                     Check("reduced observer: Ke vs scipy.signal.place_poles", None, None, None, how)
                 )
-        res = pole_residual(np.linalg.eigvals(Abb - Ke @ Aab), requested)
-        tol = eigenvalue_tolerance(requested)
         checks.append(
-            Check(
+            eigenvalue_check(
                 "reduced observer: eigenvalues of A_bb − Ke A_ab vs requested poles (relative)",
-                res,
-                tol,
-                res <= tol,
+                Abb - Ke @ Aab,
+                requested,
+                terms=(Abb, (Ke, Aab)),
+                weights=np.abs(Abb) + np.abs(Ke) @ np.abs(Aab),
             )
         )
 
@@ -547,15 +544,14 @@ def reduced_observer(
     loop = np.block([[A - B @ K_y @ C, -B @ K_eta], [Bhat @ C - Fhat @ K_y @ C, Fc]])
     loop_poles = np.linalg.eigvals(loop)
     union = np.concatenate([d.controller_poles.values, requested])
-    res = pole_residual(loop_poles, union)
-    tol = eigenvalue_tolerance(union)
     checks.append(
-        Check(
+        eigenvalue_check(
             "reduced observer: eigenvalues of the (2n − p) loop vs controller ∪ reduced observer"
             " poles (relative)",
-            res,
-            tol,
-            res <= tol,
+            loop,
+            union,
+            terms=(A, (B, K_y, C), (B, K_eta), (Bhat, C), (Fhat, K_y, C), Ahat, (Fhat, K_eta)),
+            achieved=loop_poles,
         )
     )
     if forms is not None and forms.factors is not None:

@@ -70,11 +70,11 @@ import sympy as sp
 
 from ._budget import run_bounded
 from ._closed_form import characteristic_coefficients
-from ._derive import Check, Derivation, derive
+from ._derive import Check, Derivation, derive, eigenvalue_check
 from ._design import Design
 from ._errors import BudgetExceeded, DesignFileError
 from ._margins import MarginComparison, MarginReport, compare_margins
-from ._numeric import eigenvalue_tolerance, evaluate_matrix, numeric_ackermann, pole_residual
+from ._numeric import evaluate_matrix, numeric_ackermann
 
 __all__ = [
     "GainSensitivity",
@@ -569,14 +569,16 @@ def mismatch_study(d: Derivation, points: int = 5) -> MismatchStudy:
     bad = np.nonzero(~stable)[0]
     nominal = poles[grid.nominal_index]
     union = np.concatenate([d.controller_poles.values, d.observer_poles.values])
-    res = pole_residual(nominal, union)
-    tol = eigenvalue_tolerance(union)
+    at = grid.nominal_index
+    A, B, C = d.plant.A, d.plant.B, d.plant.C
+    K, L = d.K.value, d.L.value
     checks = [
-        Check(
+        eigenvalue_check(
             "mismatch study: poles at the nominal point vs the controller and observer poles (relative)",
-            res,
-            tol,
-            res <= tol,
+            asm.loops(grid.values[at : at + 1])[1][0],
+            union,
+            terms=(A, (B, K), (B, K), (L, C)),
+            achieved=nominal,
         )
     ]
     changes = _changes(asm, grid, sf_stable, "state feedback") + _changes(

@@ -58,7 +58,7 @@ from ._export import (
     gain_formulas,
 )
 from ._figures import figure_files
-from ._numeric import eigenvalue_tolerance, pole_residual, scipy_placement
+from ._numeric import check_eigenvalues, scipy_placement
 
 __all__ = [
     "GainSchedule",
@@ -325,15 +325,14 @@ def _scipy_agreement(
     A, B, C, D = _plant_stacks(design, picked, count)
     ctrl = np.asarray(formulas.controller_poles)
     obs = np.asarray(formulas.observer_poles)
-    tol_c, tol_o = eigenvalue_tolerance(ctrl), eigenvalue_tolerance(obs)
     track = design.tracking.output
     result = np.ones(count, dtype=np.int8)
     notes: dict[int, str] = {}
     for k, point in enumerate(indices):
         problems: list[str] = []
-        ok = _compare_gain(A[k], B[k], K[point], ctrl, tol_c, "K", problems)
+        ok = _compare_gain(A[k], B[k], K[point], ctrl, "K", problems)
         # the observer gain on the dual pair: place_poles(A', C', p).gain_matrix = L'
-        ok &= _compare_gain(A[k].T, C[k].T, L[point].T, obs, tol_o, "L", problems)
+        ok &= _compare_gain(A[k].T, C[k].T, L[point].T, obs, "L", problems)
         # N against the inverse of the closed loop's steady-state gain
         Acl = A[k] - B[k] @ K[point]
         Ct, Dt = C[k][track : track + 1], D[k][track : track + 1]
@@ -350,7 +349,7 @@ def _scipy_agreement(
     return result, notes
 
 
-def _compare_gain(A, B, G, poles, tol, name: str, problems: list[str]) -> bool:
+def _compare_gain(A, B, G, poles, name: str, problems: list[str]) -> bool:
     """Compare a gain with place_poles; where SciPy refuses, check the eigenvalues instead."""
     reference, how = scipy_placement(A, B, poles)
     if reference is not None:
@@ -359,11 +358,13 @@ def _compare_gain(A, B, G, poles, tol, name: str, problems: list[str]) -> bool:
             return True
         problems.append(f"{name} differs from scipy.signal.place_poles by {diff:.1e} (relative)")
         return False
-    residual = pole_residual(np.linalg.eigvals(A - B @ G), poles)
-    if residual <= tol:
+    verdict = check_eigenvalues(
+        A - B @ G, poles, terms=(A, (B, G)), weights=np.abs(A) + np.abs(B) @ np.abs(G)
+    )
+    if verdict.passed:
         problems.append(f"{name}: {how}; the eigenvalues of the closed form's loop match instead")
         return True
-    problems.append(f"{name}: {how}; the closed form's poles are off by {residual:.1e}")
+    problems.append(f"{name}: {how}; the closed form's poles are off by {verdict.residual:.1e}")
     return False
 
 
