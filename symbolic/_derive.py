@@ -17,7 +17,7 @@ import time
 import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import sympy as sp
@@ -241,6 +241,9 @@ class Derivation:
     integral: IntegralAction | None = None  # [tracking] method = "integral"
     reduced_observer: ReducedObserver | None = None  # [observer] kind = "reduced"
     discrete: DigitalController | None = None  # [discrete] sample_time
+    #: how the specification-based poles were checked and refined on the simulated step of the
+    #: shipped loop (:class:`symbolic._refine.Refinement`); None for given poles
+    refinement: Any = None
 
     @property
     def passed(self) -> bool:
@@ -277,7 +280,6 @@ def _exact_complex(z: complex) -> sp.Expr:
 def select_controller_poles(design: Design) -> PoleChoice:
     """The controller poles: given, or from specifications plus the rule for the rest."""
     req = design.controller
-    n = design.plant.order
     if req.poles is not None:
         coeffs = cf.desired_coefficients(req.poles)
         return PoleChoice(
@@ -285,6 +287,13 @@ def select_controller_poles(design: Design) -> PoleChoice:
         )
     assert req.specifications is not None
     pair = _sidecar.call(dominant_pair, req.specifications)  # root finding: SciPy
+    return _from_pair(design, pair)
+
+
+def _from_pair(design: Design, pair: DominantPair) -> PoleChoice:
+    """The controller poles for a dominant pair: the pair and the remaining poles by rule."""
+    req = design.controller
+    n = design.plant.order
     dominant = tuple(_exact_complex(p) for p in pair.poles)
     if req.remaining_poles is not None:
         rest = req.remaining_poles
@@ -302,6 +311,31 @@ def select_controller_poles(design: Design) -> PoleChoice:
         )
     poles = dominant + tuple(rest)
     return PoleChoice(poles, "specifications", rule, cf.desired_coefficients(poles), pair)
+
+
+def _shipped_pole_sets(design: Design, base: PoleChoice):
+    """``(sigma, omega_d) -> (controller poles with the integral pole last, shipped observer
+    poles, PoleChoice)`` by the design's rules: what :mod:`symbolic._refine` varies."""
+    from ._refine import refined_pair
+
+    spec = design.controller.specifications
+
+    def sets(sigma: float, omega_d: float):
+        choice = _from_pair(design, refined_pair(spec, base.dominant, sigma, omega_d))
+        obs = select_observer_poles(design, choice)
+        cpoles = choice.values
+        if design.tracking.method == "integral":
+            from ._integral import integral_pole_for
+
+            cpoles = np.append(cpoles, complex(integral_pole_for(design, choice.poles)[0]))
+        opoles = obs.values
+        if design.observer.kind == "reduced":
+            from ._reduced import reduced_poles_for
+
+            opoles = np.array([complex(z) for z in reduced_poles_for(design, obs.poles)[0]])
+        return cpoles, opoles, choice
+
+    return sets
 
 
 def select_observer_poles(design: Design, controller: PoleChoice) -> PoleChoice:
@@ -527,11 +561,26 @@ def derive(design: Design, *, budget: float | None = None) -> Derivation:
     """
     t0 = time.perf_counter()
     ctrl = select_controller_poles(design)
-    obs = select_observer_poles(design, ctrl)
     num = _numeric_plant(design)
+    refinement = None
+    if ctrl.origin == "specifications" and design.controller.refine:
+        from ._refine import refine_controller_poles
+
+        ctrl, refinement = refine_controller_poles(
+            design, ctrl, num, _shipped_pole_sets(design, ctrl)
+        )
+    obs = select_observer_poles(design, ctrl)
     pending = _start_extensions(design, ctrl, obs, num, budget)
     try:
         result = _derive(design, budget, ctrl, obs, num, pending, t0)
+        if refinement is not None:
+            notes = result.notes
+            if not refinement.met:
+                notes = notes + (
+                    "the specifications are not all met on the simulated step of the shipped"
+                    " loop: dominant pair " + refinement.sentence,
+                )
+            result = dataclasses.replace(result, refinement=refinement, notes=notes)
         return _extensions(result, budget, pending)
     except BaseException:
         for job in pending.values():

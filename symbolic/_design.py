@@ -88,6 +88,7 @@ _CONTROLLER_KEYS = (
     "peak_time",
     "remaining_pole_factor",
     "remaining_poles",
+    "refine",
 )
 _OBSERVER_KEYS = ("poles", "speed_factor", "kind")
 _TRACKING_KEYS = ("output", "method", "integral_pole")
@@ -174,6 +175,9 @@ class ControllerRequest:
     specifications: Specifications | None = None
     remaining_pole_factor: float = DEFAULT_REMAINING_POLE_FACTOR
     remaining_poles: tuple[sp.Expr, ...] | None = None
+    #: Refine the dominant pair on the simulated step of the shipped loop (symbolic._refine);
+    #: ``[controller] refine = false`` keeps the second-order pair as it is.
+    refine: bool = True
 
 
 @dataclass(frozen=True)
@@ -743,7 +747,7 @@ class _Reader:
                     f"give either poles or specifications, not both (found poles and {spec_keys[0]})",
                     SpecificationError,
                 )
-            for k in ("settling_band", "remaining_pole_factor", "remaining_poles"):
+            for k in ("settling_band", "remaining_pole_factor", "remaining_poles", "refine"):
                 if k in data:
                     self.fail(
                         f"controller.{k}",
@@ -790,8 +794,14 @@ class _Reader:
                     "controller.remaining_poles",
                     f"{len(remaining)} poles given; the dominant pair takes 2 of {n}, so give {n - 2}",
                 )
+        refine = data.get("refine", True)
+        if not isinstance(refine, bool):
+            self.fail("controller.refine", f"expected true or false, got {_short(refine)}")
         return ControllerRequest(
-            specifications=spec, remaining_pole_factor=factor, remaining_poles=remaining
+            specifications=spec,
+            remaining_pole_factor=factor,
+            remaining_poles=remaining,
+            refine=refine,
         )
 
     # -- [observer] ----------------------------------------------------------

@@ -400,7 +400,7 @@ def _is_zero_at(expr: sp.Expr, values) -> bool:
 # --------------------------------------------------------------------------------------------
 # The design
 # --------------------------------------------------------------------------------------------
-def _integral_pole(design, controller_poles: tuple[sp.Expr, ...]) -> tuple[sp.Expr, str]:
+def integral_pole_for(design, controller_poles: tuple[sp.Expr, ...]) -> tuple[sp.Expr, str]:
     if design.tracking.integral_pole is not None:
         return (
             design.tracking.integral_pole,
@@ -421,7 +421,7 @@ def start_closed_form(
     if plant.n_inputs != 1:
         return None
     idx = design.tracking.output
-    pole, _ = _integral_pole(design, controller_poles)
+    pole, _ = integral_pole_for(design, controller_poles)
     return BoundedChild(
         _closed_form_stage,
         (
@@ -503,7 +503,7 @@ def integral_action(
     notes: list[str] = []
     checks: list[Check] = []
 
-    pole, rule = _integral_pole(design, d.controller_poles.poles)
+    pole, rule = integral_pole_for(design, d.controller_poles.poles)
     poles = tuple(d.controller_poles.poles) + (pole,)
     coeffs = cf.desired_coefficients(poles)
     requested = np.array([complex(p) for p in poles])

@@ -345,7 +345,7 @@ def observer_matrices(Aaa, Aab, Aba, Abb, Ba, Bb, gain) -> tuple[np.ndarray, ...
     return Ahat, Bhat, Fhat, Chat, Dhat
 
 
-def _reduced_poles(design, observer_poles: tuple[sp.Expr, ...]) -> tuple[tuple, str]:
+def reduced_poles_for(design, observer_poles: tuple[sp.Expr, ...]) -> tuple[tuple, str]:
     if design.observer.reduced_poles is not None:
         return (
             tuple(design.observer.reduced_poles),
@@ -357,7 +357,7 @@ def _reduced_poles(design, observer_poles: tuple[sp.Expr, ...]) -> tuple[tuple, 
 
 
 def _stage_arguments(design, C, K, observer_poles, controller_coefficients) -> tuple:
-    poles, _ = _reduced_poles(design, observer_poles)
+    poles, _ = reduced_poles_for(design, observer_poles)
     plant = design.plant
     return (
         sp.Matrix(plant.A),
@@ -454,7 +454,7 @@ def reduced_observer(
     except StructureError as exc:
         raise StructureError(exc.problem, design.path, "plant.C") from exc
 
-    poles, rule = _reduced_poles(design, d.observer_poles.poles)
+    poles, rule = reduced_poles_for(design, d.observer_poles.poles)
     coeffs = cf.desired_coefficients(poles) if poles else (sp.Integer(1),)
     requested = np.array([complex(z) for z in poles])
 

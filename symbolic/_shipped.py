@@ -45,6 +45,7 @@ import dataclasses
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -59,7 +60,9 @@ from ._discrete import (
 from ._errors import StructureError
 from ._numeric import numeric_ackermann, scipy_placement
 from ._reduced import coordinate_change, observer_matrices
-from ._simulate import Response, integrate_saturated, step_linear
+
+if TYPE_CHECKING:  # the simulator loads SciPy: imported where a run needs it
+    from ._simulate import Response
 
 __all__ = [
     "ShippedController",
@@ -70,6 +73,7 @@ __all__ = [
     "shipped_controller",
     "simulate_controller",
     "state_feedback_reference",
+    "template_controller",
 ]
 
 #: A run stops when the stacked state grows past this size (as in :mod:`symbolic._simulate`).
@@ -355,6 +359,8 @@ def _final_value(ctrl: ShippedController, F, G, r, Ku, Nr, limit) -> tuple[float
 
 
 def _response(ctrl, name, slug, time, W, U, r, limit, final, stable, method, stopped, notes):
+    from ._simulate import Response
+
     n = ctrl.plant.A.shape[0]
     X, XI = W[:, :n], W[:, n:]
     Y = X @ ctrl.plant.C.T + U @ ctrl.plant.D.T
@@ -390,6 +396,8 @@ def _simulate_continuous(ctrl, r, x0, xi0, horizon, samples, limit, name, slug) 
     time = np.linspace(0.0, float(horizon), int(samples))
     w0 = np.concatenate([x0, xi0])
     notes: list[str] = []
+    from ._simulate import integrate_saturated, step_linear
+
     if limit is None:
         W, stopped = step_linear(F, G[:, 0], r, w0, time)
         method = (
@@ -535,6 +543,38 @@ def shipped_controller(d: Derivation) -> ShippedController:
     P, Q = _initial_maps(n, d.reduced_observer if form == "reduced" else None)
     return ShippedController(
         eq, None, tracking, observer, "continuous", plant, ctrl_poles, obs_poles, P, Q, idx
+    )
+
+
+def template_controller(design, plant: NumericPlant) -> ShippedController:
+    """A controller record of the kind ``design`` asks for, without gains: the template of
+    :func:`build_controller` before any derivation exists (pole refinement)."""
+    n, m = plant.B.shape
+    reduced = design.observer.kind == "reduced"
+    digital = design.discrete is not None
+    empty = DifferenceEquations(
+        form="",
+        state_matrix=np.zeros((0, 0)),
+        measurement_matrix=np.zeros((0, plant.C.shape[0])),
+        control_matrix=np.zeros((0, m)),
+        output_state=np.zeros((m, 0)),
+        output_measurement=np.zeros((m, plant.C.shape[0])),
+        output_reference=np.zeros((m, 1)),
+        sample_time=0.0,
+        description="",
+    )
+    return ShippedController(
+        equations=empty,
+        sample_time=float(design.discrete.sample_time) if digital else None,
+        tracking="integral action" if design.tracking.method == "integral" else "reference gain",
+        observer="reduced-order observer" if reduced else "full-order observer",
+        form=("reduced" if reduced else "current") if digital else "continuous",
+        plant=plant,
+        controller_poles=np.zeros(0, dtype=complex),
+        observer_poles=np.zeros(0, dtype=complex),
+        initial_from_estimate=np.zeros((0, n)),
+        initial_from_state=np.zeros((0, n)),
+        tracked_index=int(design.tracking.output),
     )
 
 

@@ -35,8 +35,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from ._margins import BrokenLoop, MarginReport, broken_loop_margins
-from ._numeric import eigenvalue_tolerance, pole_residual
-from ._shipped import ShippedController, batch_loop_poles, poles_stable
+from ._numeric import check_eigenvalues
+from ._shipped import ShippedController, batch_loop_poles, closed_loop, poles_stable
 
 __all__ = [
     "GAIN_MARGIN_DB",
@@ -443,9 +443,9 @@ def _stability_rows(ctrl: ShippedController) -> list[dict]:
         )
     ]
     want = ctrl.requested_poles
-    res = pole_residual(poles, want)
-    tol = eigenvalue_tolerance(want)
-    ok = res <= tol
+    F, _G = closed_loop(ctrl)
+    check = check_eigenvalues(F, want, achieved=poles)
+    res, tol, ok = check.residual, check.tolerance, check.passed
     rows.append(
         dict(
             key="closed_loop_poles",
@@ -455,7 +455,8 @@ def _stability_rows(ctrl: ShippedController) -> list[dict]:
             passed=bool(ok),
             shortfall="" if ok else f"deviation {res:.2g} exceeds the tolerance {tol:.1g}",
             basis="eigenvalues of the shipped loop against the requested poles"
-            + (" (z = e^{sT})" if ctrl.digital else ""),
+            + (" (z = e^{sT})" if ctrl.digital else "")
+            + (f"; {check.explanation}" if check.explanation else ""),
             source="[controller] and [observer] poles",
             requested_value=float(tol),
             achieved_value=float(res),
