@@ -15,6 +15,7 @@ import numpy as np
 
 from ._derive import Derivation
 from ._errors import GainsmithError
+from ._numbers import format_poles
 from ._numeric import numeric_ackermann, scipy_placement
 from ._simulate import (
     LoopModel,
@@ -267,20 +268,9 @@ def _verdicts(d: Derivation, cases, zeros) -> tuple[list[SpecVerdict], list[str]
                 extra = [complex(p) for p in d.controller_poles.values][2:]
                 why = []
                 if extra:
-                    why.append(
-                        "the further poles at "
-                        + ", ".join(
-                            f"{p.real:.4g}" + (f"{p.imag:+.4g}j" if p.imag else "") for p in extra
-                        )
-                    )
+                    why.append("the further poles at " + format_poles(extra, 4))
                 if len(zeros):
-                    why.append(
-                        "the plant zeros at "
-                        + ", ".join(
-                            f"{z.real:.4g}" + (f"{z.imag:+.4g}j" if abs(z.imag) > 1e-9 else "")
-                            for z in zeros
-                        )
-                    )
+                    why.append("the plant zeros at " + format_poles(zeros, 4))
                 reason = (
                     (" — " + " and ".join(why) + " are not in the second-order model")
                     if why
@@ -464,7 +454,7 @@ def run_simulate(design, as_json: bool = False) -> int:
 def memo_simulation(d: Derivation) -> tuple[dict, dict[str, bytes]]:
     """Context of the memo's response section, and its figures (PDF and PNG)."""
     from . import _figures as fig
-    from ._memo import _complex, _math, _num  # formatting shared with the memo
+    from ._memo import _math, _num  # formatting shared with the memo
 
     s = simulation_study(d)
     plant = d.design.plant
@@ -626,7 +616,7 @@ def memo_simulation(d: Derivation) -> tuple[dict, dict[str, bytes]]:
         f" {s.reference:g} on {out_sig.name} over {s.horizon:.4g} s with {s.samples} samples."
         f" Method: {s.method}."
     )
-    del band, _complex
+    del band
     ctx = {
         "method": method,
         "summary": summary,
