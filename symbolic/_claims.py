@@ -34,8 +34,9 @@ from scipy.optimize import linear_sum_assignment
 from ._derive import Derivation, derive
 from ._design import Claims, Design
 from ._errors import DesignFileError
+from ._numbers import format_number, format_pole, format_poles
 from ._numeric import check_eigenvalues
-from ._report import complex_pairs, dumps, format_number
+from ._report import complex_pairs, dumps
 
 __all__ = [
     "ClaimReport",
@@ -468,44 +469,6 @@ def _percent(fraction: float) -> str:
     return f"{pct:.2g} %"
 
 
-def _real_text(x: float, digits: int) -> str:
-    text = format_number(x, digits)
-    return "0" if text in ("-0", "0") else text
-
-
-def _poles_text(poles: Sequence[complex] | np.ndarray, digits: int = _EXPLANATION_DIGITS) -> str:
-    """Poles as text, conjugate pairs written once: ``-3.1±2.2j, -10``.
-
-    An imaginary part too small to show at ``digits`` significant figures
-    is dropped, so a repeated real pole split by rounding reads ``-10, -10``.
-    """
-    values = [complex(z) for z in poles]
-    used = [False] * len(values)
-    parts: list[str] = []
-    for i, z in enumerate(values):
-        if used[i]:
-            continue
-        used[i] = True
-        shown_im = abs(z.imag) >= 0.5 * 10.0 ** (1 - digits) * max(abs(z), 1e-300)
-        if not shown_im:
-            parts.append(_real_text(z.real, digits))
-            continue
-        # find the conjugate partner among the remaining poles
-        best, best_d = None, math.inf
-        for j in range(i + 1, len(values)):
-            if not used[j]:
-                d = abs(values[j] - z.conjugate())
-                if d < best_d:
-                    best, best_d = j, d
-        if best is not None and best_d <= 1e-6 * max(1.0, abs(z)):
-            used[best] = True
-            parts.append(f"{_real_text(z.real, digits)}±{format_number(abs(z.imag), digits)}j")
-        else:
-            sign = "+" if z.imag >= 0 else "-"
-            parts.append(f"{_real_text(z.real, digits)}{sign}{format_number(abs(z.imag), digits)}j")
-    return ", ".join(parts)
-
-
 def _entry_name(name: str, index: tuple[int, ...]) -> str:
     return name + "".join(f"[{i}]" for i in index)
 
@@ -559,8 +522,8 @@ def _gain_explanation(
     tol: float,
 ) -> str:
     matrix = "A − BK" if name == "K" else "A − LC"
-    got = _poles_text(achieved)
-    want = _poles_text(requested)
+    got = format_poles(achieved, _EXPLANATION_DIGITS)
+    want = format_poles(requested, _EXPLANATION_DIGITS)
     unstable = bool(np.any(np.real(achieved) >= 0.0))
     danger = ""
     if unstable:
@@ -660,14 +623,6 @@ def _cell(x: float, digits: int) -> str:
     return format_number(x, digits) if math.isfinite(float(x)) else "—"
 
 
-def _complex_cell(z: complex) -> str:
-    z = complex(z)
-    if abs(z.imag) <= 1e-12 * max(1.0, abs(z.real)):
-        return format_number(z.real, 8)
-    sign = "+" if z.imag >= 0 else "-"
-    return f"{format_number(z.real, 8)} {sign} {format_number(abs(z.imag), 8)}j"
-
-
 def _table(header: Sequence[str], rows: Sequence[Sequence[str]], indent: str = "    ") -> list[str]:
     widths = [max(len(h), *(len(r[i]) for r in rows)) for i, h in enumerate(header)]
     lines = [indent + "  ".join(h.ljust(w) for h, w in zip(header, widths)).rstrip()]
@@ -718,7 +673,7 @@ def format_claims(report: ClaimReport, derivation: Derivation) -> str:
             matrix = "A − B K" if v.name == "K" else "A − L C"
             w(f"    poles of {matrix} with the claimed {v.name}:")
             prow = [
-                [_complex_cell(r), _complex_cell(a)]
+                [format_pole(r, 8), format_pole(a, 8)]
                 for r, a in zip(v.requested_poles, v.achieved_poles)
             ]
             out.extend(_table(["requested", "achieved"], prow, indent="      "))

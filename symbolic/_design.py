@@ -26,6 +26,7 @@ from sympy.polys.matrices import DomainMatrix
 
 from ._errors import DesignFileError, ExpressionError, SpecificationError, StructureError
 from ._expressions import check_name, parse_expression, parse_number, parse_pole
+from ._numbers import format_pole
 from ._specs import Specifications
 
 __all__ = [
@@ -716,12 +717,17 @@ class _Reader:
         for p in out:
             im = sp.im(p)
             if im != 0 and remaining.count(p) != remaining.count(sp.conjugate(p)):
-                self.fail(key, f"pole {p} has no matching conjugate {sp.conjugate(p)}")
+                self.fail(
+                    key,
+                    f"pole {format_pole(p, None)} has no matching conjugate"
+                    f" {format_pole(sp.conjugate(p), None)}",
+                )
         for p in out:
             if sp.re(p) >= 0:
                 self.fail(
                     key,
-                    f"pole {p} is not in the open left half-plane: the loop would not be stable",
+                    f"pole {format_pole(p, None)} is not in the open left half-plane: the loop"
+                    " would not be stable",
                 )
         return tuple(out)
 
@@ -883,9 +889,13 @@ class _Reader:
             except ExpressionError as exc:
                 self.fail(key, str(exc))
             if sp.im(pole) != 0:
-                self.fail(key, f"must be real (integral action adds one real pole), got {pole}")
+                self.fail(
+                    key,
+                    "must be real (integral action adds one real pole),"
+                    f" got {format_pole(pole, None)}",
+                )
             if pole >= 0:
-                self.fail(key, f"must be negative for a stable loop, got {pole}")
+                self.fail(key, f"must be negative for a stable loop, got {format_pole(pole, None)}")
         return TrackingRequest(output=output, method=method, integral_pole=pole)
 
     # -- [discrete] ----------------------------------------------------------

@@ -59,6 +59,7 @@ from . import _closed_form as cf
 from ._budget import BoundedChild
 from ._derive import GAIN_TOLERANCE, Check, Derivation, eigenvalue_check
 from ._errors import GainsmithWarning, RenderError, StructureError
+from ._numbers import format_pole
 from ._numeric import (
     closed_loop_bandwidth,
     evaluate_matrix,
@@ -493,7 +494,7 @@ def discrete_coefficients(poles, T) -> tuple[sp.Expr, ...]:
                 remaining.pop(i)
                 break
         else:
-            raise StructureError(f"pole {p} has no conjugate", key="poles")
+            raise StructureError(f"pole {format_pole(p, None)} has no conjugate", key="poles")
         w = abs(im_)
         factors.append(z**2 - 2 * sp.exp(re_ * T) * sp.cos(w * T) * z + sp.exp(2 * re_ * T))
     poly = sp.Poly(sp.expand(sp.Mul(*factors)), z)
@@ -942,7 +943,7 @@ def digital_controller(
         if abs(worst.imag) * T >= math.pi:
             raise StructureError(
                 f"the sample time {T:g} s is too long for the {label} pole"
-                f" {worst.real:.6g}{worst.imag:+.6g}j: |Im s|·T = {abs(worst.imag) * T:.4g} ≥ π,"
+                f" {format_pole(worst)}: |Im s|·T = {abs(worst.imag) * T:.4g} ≥ π,"
                 " so the pole aliases (a different pole would give the same z = e^{sT});"
                 f" choose T < π/|Im s| = {math.pi / abs(worst.imag):.4g} s, and in practice"
                 " much shorter",
@@ -1305,7 +1306,7 @@ def _reduced_in_z(d, Phi, Gamma, C, T, checks, notes) -> DiscreteReduced | None:
         if abs(s_.imag) * T >= math.pi:
             raise StructureError(
                 f"the sample time {T:g} s is too long for the reduced observer pole"
-                f" {s_.real:.6g}{s_.imag:+.6g}j: |Im s|·T ≥ π, so the pole aliases",
+                f" {format_pole(s_)}: |Im s|·T ≥ π, so the pole aliases",
                 design.path,
                 "discrete.sample_time",
             )

@@ -68,6 +68,7 @@ from sympy.printing.precedence import PRECEDENCE
 from ._derive import Derivation, _describe_zero, derive
 from ._design import Design, Parameter
 from ._errors import DesignFileError
+from ._numbers import format_pole, format_poles
 from ._numeric import relative_difference
 
 __all__ = [
@@ -732,18 +733,6 @@ def _real_text(x: float) -> str:
     return r[:-2] if r.endswith(".0") else r
 
 
-def _pole_text(z: complex) -> str:
-    re_, im = z.real, z.imag
-    if im == 0:
-        return _real_text(re_)
-    sign = "-" if im < 0 else "+"
-    return f"{_real_text(re_)} {sign} {_real_text(abs(im))}j"
-
-
-def _poles_text(poles: Sequence[complex]) -> str:
-    return ", ".join(_pole_text(z) for z in poles)
-
-
 #: Stands for a space that must not break a line (never in generated text: see _wrap).
 _KEEP_TOGETHER = "\x00"
 
@@ -818,9 +807,9 @@ def _header_lines(formulas: GainFormulas, language: str, file_name: str) -> list
         f" {_comment_text(formulas.tracked_output)}.",
         "",
         "Requested controller poles (eigenvalues of A - B K):",
-        f"    {_poles_text(formulas.controller_poles)}",
+        f"    {format_poles(formulas.controller_poles, None)}",
         "Requested observer poles (eigenvalues of A - L C):",
-        f"    {_poles_text(formulas.observer_poles)}",
+        f"    {format_poles(formulas.observer_poles, None)}",
         "",
         *_extra_header_lines(formulas),
         "Sign convention: u = -K x_hat + N r, with the observer",
@@ -843,7 +832,7 @@ def _extra_header_lines(formulas: GainFormulas) -> list[str]:
     if "K_integral" in names:
         lines += [
             "Integral action: K_integral = [K, k_i] places the controller poles and the",
-            f"integral pole {_pole_text(formulas.integral_pole or 0j)} (eigenvalues of A_a - B_a [K, k_i],",
+            f"integral pole {format_pole(formulas.integral_pole or 0j, None)} (eigenvalues of A_a - B_a [K, k_i],",
             "A_a = [[A, 0], [C_t, 0]], B_a = [B; D_t]); u = -K x_hat - k_i x_I with",
             "x_I' = y_t - r. Codes 1 and 3 also mean that integral action is impossible",
             "(det of the augmented controllability matrix = z(0) det of the plant's).",
@@ -854,7 +843,7 @@ def _extra_header_lines(formulas: GainFormulas) -> list[str]:
     if "Ke" in names:
         lines += [
             "Reduced-order observer (Luenberger): eigenvalues of A_bb - Ke A_ab at",
-            f"    {_poles_text(formulas.reduced_poles)};",
+            f"    {format_poles(formulas.reduced_poles, None)};",
             "eta' = A_hat eta + B_hat y_bar + F_hat u, y_bar = y - D u,",
             "x_hat = estimate_from_state eta + estimate_from_output y_bar.",
             "",

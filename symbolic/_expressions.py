@@ -18,7 +18,7 @@ Limits are checked before the corresponding work is done:
 * brackets nest at most 50 deep, the syntax tree nests at most 50 deep (a chain
   ``a + b + c`` or ``a*b/c`` counts as one level) and has at most 500
   expression nodes;
-* a numeric literal is plain decimal with at most 15 significant digits and a
+* a numeric literal is plain decimal with at most 17 significant digits and a
   magnitude between 1e-15 and 1e15 (or zero); it is converted exactly from its
   decimal text, never through a binary float;
 * an exponent is a number, optionally signed, or a ratio of two integers in
@@ -64,7 +64,7 @@ detected, since deciding either needs numerical evaluation.
 Together these keep every SymPy step small: typical entries take 1 to 5 ms,
 and the slowest of 18 000 random grammar-shaped expressions took 0.1 s of CPU
 time here (after SymPy's one-time lazy imports on the first call).  The limit values
-are engineering judgement (common practice, no source), except the 15
+are engineering judgement (common practice, no source), except the 17
 significant digits (see :func:`parse_number`).
 """
 
@@ -101,15 +101,18 @@ __all__ = [
 
 # ---------------------------------------------------------------------------
 # Limits.  The values are engineering judgement ("common practice, no source")
-# except the 15 significant digits: an IEEE 754 binary64 number round-trips any
-# decimal of at most 15 significant digits (DBL_DIG = 15, ISO/IEC 9899:2018,
-# 5.2.4.2.2), so a longer literal claims a precision no double can carry.
+# except the 17 significant digits: 17 significant decimal digits suffice to
+# write any IEEE 754 binary64 number so that it reads back as the same double
+# (DBL_DECIMAL_DIG = 17, ISO/IEC 9899:2018, 5.2.4.2.2), and Python's ``repr`` of
+# a float and NumPy's printing use up to 17.  A design file may therefore carry
+# any double printed by a program; an 18th digit cannot change the double it
+# reads as, so a longer literal claims a precision no double carries.
 # ---------------------------------------------------------------------------
 MAX_TEXT_LENGTH = 2000
 MAX_NAME_LENGTH = 64
 MAX_DEPTH = 50
 MAX_NODES = 500
-MAX_SIGNIFICANT_DIGITS = 15
+MAX_SIGNIFICANT_DIGITS = 17
 MAX_LITERAL_EXPONENT10 = 15  # literals satisfy 1e-15 <= |x| <= 1e15 (or x == 0)
 MAX_EXPONENT = 10
 MAX_EXPONENT_DENOMINATOR = 10
@@ -365,7 +368,8 @@ def _literal_value(literal: str, shown: str | None = None) -> sympy.Rational:
     if len(significant) > MAX_SIGNIFICANT_DIGITS:
         raise ExpressionError(
             f"number {_quote(shown)} has {len(significant)} significant digits; at most "
-            f"{MAX_SIGNIFICANT_DIGITS} (what a double-precision number can hold)"
+            f"{MAX_SIGNIFICANT_DIGITS} (enough for any double-precision number to read back"
+            " unchanged)"
         )
     leading = exponent + len(significant) - 1  # power of ten of the leading digit
     too_large = f"number {_quote(shown)} is too large (magnitude above 1e{MAX_LITERAL_EXPONENT10})"
@@ -1055,7 +1059,7 @@ def parse_number(value: object) -> sympy.Expr:
     ------
     ExpressionError
         For a bool, nan or infinity, a magnitude above 1e15 or nonzero below
-        1e-15, more than 15 significant digits [2]_, a string that is not a
+        1e-15, more than 17 significant digits [2]_, a string that is not a
         plain decimal number, or any other type.
 
     References
@@ -1063,8 +1067,11 @@ def parse_number(value: object) -> sympy.Expr:
     .. [1] D. Goldberg, "What Every Computer Scientist Should Know About
        Floating-Point Arithmetic", *ACM Computing Surveys* 23(1), 1991,
        section 1.1 (0.1 has no exact binary representation).
-    .. [2] ISO/IEC 9899:2018 (C17), 5.2.4.2.2: ``DBL_DIG`` = 15 for IEEE 754
-       binary64, the decimal digits that survive a round trip.
+    .. [2] ISO/IEC 9899:2018 (C17), 5.2.4.2.2: ``DBL_DECIMAL_DIG`` = 17 for
+       IEEE 754 binary64, the significant decimal digits that suffice to write
+       any double so that it reads back unchanged (``repr`` of a float uses at
+       most 17).  (``DBL_DIG`` = 15 is the other direction: decimals of 15
+       digits survive a trip through a double.)
 
     Examples
     --------

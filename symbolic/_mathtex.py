@@ -14,6 +14,7 @@ import re
 
 import sympy as sp
 
+from ._numbers import pole_parts
 from ._texsafe import TrustedLatex
 
 __all__ = [
@@ -22,6 +23,8 @@ __all__ = [
     "matrix_latex",
     "equation_lines",
     "polynomial_latex",
+    "pole_latex",
+    "poles_latex",
     "LONG",
 ]
 
@@ -221,3 +224,44 @@ def polynomial_latex(coeffs, var: str = "s", digits: int | None = None) -> Trust
         else:
             parts.append(("- " if negative else "+ ") + term)
     return TrustedLatex(" ".join(parts) if parts else "0")
+
+
+def _number_text_latex(text: str) -> str:
+    """A number printed by :func:`symbolic._numbers.format_number`, for math mode."""
+    sign = ""
+    if text.startswith("-"):
+        sign, text = "-", text[1:]
+    if text == "inf":
+        return sign + "\\infty"
+    if text == "nan":
+        return "\\mathrm{NaN}"
+    mantissa, _, exponent = text.partition("e")
+    if not exponent:
+        return sign + mantissa
+    return f"{sign}{mantissa}\\times 10^{{{int(exponent)}}}"
+
+
+def pole_latex(z: complex, digits: int = 4) -> TrustedLatex:
+    """A pole for math mode, with the numbers :func:`symbolic._numbers.format_pole` prints.
+
+    The imaginary unit is ``j``, as everywhere in gainsmith's output; a part too
+    small to show at ``digits`` figures is left out as in plain text.
+
+    Examples
+    --------
+    >>> pole_latex(-2 - 3j), pole_latex(-4 + 1e-17j), pole_latex(-1.5e-7 + 2e-7j, 2)
+    ('-2 - 3j', '-4', '-1.5\\\\times 10^{-7} + 2\\\\times 10^{-7}j')
+    """
+    real, imag = pole_parts(z, digits)
+    if imag is None:
+        return TrustedLatex(_number_text_latex(real or "0"))
+    negative = imag.startswith("-")
+    imag_tex = _number_text_latex(imag.removeprefix("-")) + "j"
+    if real is None:
+        return TrustedLatex(("-" if negative else "") + imag_tex)
+    return TrustedLatex(f"{_number_text_latex(real)} {'-' if negative else '+'} {imag_tex}")
+
+
+def poles_latex(poles, digits: int = 4) -> TrustedLatex:
+    """Poles for math mode, separated by ``,\\;``."""
+    return TrustedLatex(",\\; ".join(pole_latex(z, digits) for z in poles))

@@ -29,7 +29,14 @@ from . import __version__
 from ._derive import Derivation, derive
 from ._design import Design
 from ._errors import RenderError
-from ._mathtex import equation_lines, expr_latex, matrix_latex, polynomial_latex, symbol_latex
+from ._mathtex import (
+    equation_lines,
+    expr_latex,
+    matrix_latex,
+    poles_latex,
+    polynomial_latex,
+    symbol_latex,
+)
 from ._texsafe import TrustedLatex, TrustedMarkdown, render_template
 
 __all__ = ["MemoDocument", "assemble_memo", "build_memo", "write_memo", "memo_date"]
@@ -107,14 +114,6 @@ def _num(x: float, digits: int = 6) -> str:
         mant, exp = text.split("e")
         return f"{mant}\\times 10^{{{int(exp)}}}"
     return text
-
-
-def _complex(z: complex, digits: int = 4) -> str:
-    z = complex(z)
-    if abs(z.imag) <= 1e-12 * max(1.0, abs(z.real)):
-        return _num(z.real, digits)
-    sign = "+" if z.imag > 0 else "-"
-    return f"{_num(z.real, digits)} {sign} {_num(abs(z.imag), digits)}j"
 
 
 def _numeric_matrix(M: np.ndarray, digits: int = 5) -> str:
@@ -293,7 +292,7 @@ def _spec_rows(d: Derivation) -> list[dict]:
 
 
 def _poles(values: np.ndarray) -> _Math:
-    return _math(",\\; ".join(_complex(z) for z in values))
+    return _math(poles_latex(values, 4))
 
 
 def _references(d: Derivation) -> list[str]:

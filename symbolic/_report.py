@@ -14,6 +14,7 @@ import numpy as np
 import sympy as sp
 
 from ._derive import Check, Derivation
+from ._numbers import format_number, format_pole, format_poles
 
 __all__ = ["derivation_json", "derivation_summary", "complex_pairs", "format_number"]
 
@@ -260,22 +261,6 @@ def dumps(obj: Any) -> str:
     return json.dumps(obj, indent=2, ensure_ascii=False, allow_nan=False)
 
 
-def format_number(x: float, digits: int = 6) -> str:
-    """A float with ``digits`` significant figures, no trailing noise."""
-    x = float(x)
-    if x == 0:
-        return "0"
-    return f"{x:.{digits}g}"
-
-
-def _fmt_complex(z: complex) -> str:
-    z = complex(z)
-    if abs(z.imag) < 1e-12 * max(1.0, abs(z.real)):
-        return format_number(z.real)
-    sign = "+" if z.imag >= 0 else "-"
-    return f"{format_number(z.real)} {sign} {format_number(abs(z.imag))}j"
-
-
 def _fmt_matrix(M: np.ndarray) -> str:
     rows = ["[" + ", ".join(format_number(x) for x in row) + "]" for row in np.atleast_2d(M)]
     return "[" + ", ".join(rows) + "]" if len(rows) > 1 else rows[0]
@@ -318,11 +303,11 @@ def derivation_summary(d: Derivation) -> str:
         )
         for sentence in pair.defaults_used:
             w(f"  {sentence}")
-    w("  controller: " + ", ".join(_fmt_complex(z) for z in cp.values))
+    w("  controller: " + format_poles(cp.values))
     w(f"    ({cp.rule})")
     reduced = d.design.observer.kind == "reduced" and d.reduced_observer is not None
     label = "full-order observer (comparison only, not shipped): " if reduced else "observer:   "
-    w("  " + label + ", ".join(_fmt_complex(z) for z in d.observer_poles.values))
+    w("  " + label + format_poles(d.observer_poles.values))
     w(f"    ({d.observer_poles.rule})")
     if reduced:
         w("  shipped observer: the reduced-order observer (below)")
@@ -382,7 +367,7 @@ def _extensions_summary(d: Derivation, w) -> None:
         w("")
         w("Integral action")
         w(f"  {ia.sign_convention}")
-        w(f"  integral pole {_fmt_complex(complex(ia.integral_pole))}  ({ia.pole_rule})")
+        w(f"  integral pole {format_pole(ia.integral_pole)}  ({ia.pole_rule})")
         w(f"  [K, k_i] = {_fmt_matrix(ia.K_augmented)}    [{ia.method}]")
         if ia.closed_form is not None:
             for j in range(ia.closed_form.shape[1]):
@@ -398,7 +383,7 @@ def _extensions_summary(d: Derivation, w) -> None:
         w("Reduced-order observer")
         w(f"  order n − p = {ro.order}; closed loop of order {2 * ro.T.shape[0] - ro.measured}")
         if ro.order:
-            w("  poles: " + ", ".join(_fmt_complex(z) for z in ro.pole_values))
+            w("  poles: " + format_poles(ro.pole_values))
             w(f"    ({ro.pole_rule})")
             w(f"  Ke = {_fmt_matrix(ro.Ke)}    [{ro.method}]")
             if ro.Ke_closed_form is not None:
@@ -415,7 +400,7 @@ def _extensions_summary(d: Derivation, w) -> None:
         w(f"  L (current estimator) = {_fmt_matrix(dc.L_current.T)}ᵀ")
         if dc.reference_gain is not None:
             w(f"  reference gain N = {_fmt_matrix(dc.reference_gain)}")
-        w("  z-plane poles: " + ", ".join(_fmt_complex(z) for z in dc.poles_z))
+        w("  z-plane poles: " + format_poles(dc.poles_z))
         if dc.bandwidth is not None:
             w(
                 f"  closed-loop bandwidth {format_number(dc.bandwidth, 4)} rad/s; sampling at"

@@ -74,6 +74,7 @@ from ._derive import Check, Derivation, derive, eigenvalue_check
 from ._design import Design
 from ._errors import BudgetExceeded, DesignFileError
 from ._margins import MarginComparison, MarginReport, compare_margins
+from ._numbers import format_pole, format_poles
 from ._numeric import evaluate_matrix, numeric_ackermann
 
 __all__ = [
@@ -1191,11 +1192,11 @@ def _db_text(x: float | None) -> str:
     return "none" if x is None else f"{x:.3g} dB"
 
 
-def _fmt_pole(z: complex) -> str:
+def _pair_text(z: complex) -> str:
+    """A pole as text, a complex one as the member of its pair above the real axis."""
     z = complex(z)
-    if abs(z.imag) <= 1e-12 * max(1.0, abs(z.real)):
-        return f"{z.real:.6g}"
-    return f"{z.real:.6g} ± {abs(z.imag):.6g}j"
+    text = format_pole(complex(z.real, abs(z.imag)))
+    return text + " (and its conjugate)" if text.endswith("j") else text
 
 
 def _point_text(p: Mapping[str, float], only: Sequence[str] | None = None) -> str:
@@ -1287,12 +1288,12 @@ def robustness_text(r: RobustnessReport) -> str:
         f" {_point_text(m.worst_damping_at, g.varied)}"
     )
     w(
-        f"  least stable pole {_fmt_pole(m.least_stable_pole)} at"
+        f"  least stable pole {_pair_text(m.least_stable_pole)} at"
         f" {_point_text(m.least_stable_at, g.varied)}"
     )
     w(
         "  nominal point: "
-        + ", ".join(_fmt_pole(z) for z in _conjugate_once(m.nominal_poles))
+        + format_poles(_sorted_poles(m.nominal_poles))
         + " (the controller and observer poles)"
     )
     w("")
@@ -1358,15 +1359,9 @@ def robustness_text(r: RobustnessReport) -> str:
     return "\n".join(out)
 
 
-def _conjugate_once(poles: np.ndarray) -> list[complex]:
-    """Each conjugate pair once (the member with positive imaginary part), sorted."""
-    out = []
-    for z in sorted(poles, key=lambda z: (-z.real, abs(z.imag))):
-        z = complex(z)
-        if z.imag < -1e-12 * max(1.0, abs(z)):
-            continue
-        out.append(z)
-    return out
+def _sorted_poles(poles: np.ndarray) -> list[complex]:
+    """Slowest first; a conjugate pair together, the member above the real axis first."""
+    return sorted((complex(z) for z in poles), key=lambda z: (-z.real, abs(z.imag), -z.imag))
 
 
 def run_robustness(design: Design, points: int = 5, as_json: bool = False) -> int:
@@ -1494,7 +1489,7 @@ def memo_robustness(
         "unstable_points": [_point_text(p, m.grid.varied) for p in m.unstable_points],
         "worst_damping_ratio": m.worst_damping_ratio,
         "worst_damping_at": _point_text(m.worst_damping_at, m.grid.varied),
-        "least_stable_pole": _fmt_pole(m.least_stable_pole),
+        "least_stable_pole": _pair_text(m.least_stable_pole),
         "least_stable_at": _point_text(m.least_stable_at, m.grid.varied),
         "stability_changes": [c.text() for c in m.changes],
         "routh_hurwitz": list(r.stability.lines),

@@ -15,6 +15,7 @@ import numpy as np
 
 from ._derive import Derivation
 from ._errors import GainsmithError
+from ._numbers import format_poles
 from ._shipped import (
     ShippedController,
     build_controller,
@@ -339,11 +340,11 @@ def _approximation_remark(label, meas, pred, rel, ctrl, zeros) -> str:
     extra = [complex(p) for p in ctrl.controller_poles][2:]
     why = []
     if extra:
-        why.append("the further poles at " + ", ".join(_pole_text(p) for p in extra))
+        why.append("the further poles at " + format_poles(extra, 4))
     if ctrl.observer_poles.size:
         why.append("the observer")
     if len(zeros):
-        why.append("the plant zeros at " + ", ".join(_pole_text(z) for z in zeros))
+        why.append("the plant zeros at " + format_poles(zeros, 4))
     if ctrl.digital:
         why.append("the sampling")
     reason = (
@@ -361,11 +362,6 @@ def _approximation_remark(label, meas, pred, rel, ctrl, zeros) -> str:
         f"{label}: measured {meas:.4g} on the shipped loop against {pred:.4g} predicted by the"
         f" second-order approximation ({100 * rel:.0f} % apart){reason}."
     )
-
-
-def _pole_text(z: complex) -> str:
-    z = complex(z)
-    return f"{z.real:.4g}" + (f"{z.imag:+.4g}j" if abs(z.imag) > 1e-9 * max(1.0, abs(z)) else "")
 
 
 # --------------------------------------------------------------------------
@@ -576,7 +572,7 @@ def memo_simulation(
 ) -> tuple[dict, dict[str, bytes]]:
     """Context of the memo's response section, and its figures (PDF and PNG)."""
     from . import _figures as fig
-    from ._memo import _complex, _math, _num  # formatting shared with the memo
+    from ._memo import _math, _num  # formatting shared with the memo
 
     s = simulation_study(d) if study is None else study
     ctrl = s.controller
@@ -740,7 +736,7 @@ def memo_simulation(
         f" {s.reference:g} on {out_sig.name} over {s.horizon:.4g} s with {s.samples} samples."
         f" Method: {s.method}."
     )
-    del band, _complex
+    del band
     ctx = {
         "method": method,
         "summary": summary,

@@ -48,6 +48,7 @@ from typing import Any, Literal
 import jinja2
 
 from symbolic._errors import RenderError
+from symbolic._numbers import format_pole, pole_parts
 
 __all__ = [
     "LATEX_PREAMBLE_LINES",
@@ -531,6 +532,21 @@ def _tex_real(x: float, digits: int) -> str:
     return rf"{sign}{mantissa}\times10^{{{exponent}}}"
 
 
+def _tex_text(text: str) -> str:
+    """A number printed by :func:`symbolic._numbers.format_number`, for math mode."""
+    sign = ""
+    if text.startswith("-"):
+        sign, text = "-", text[1:]
+    if text == "nan":
+        return r"\mathrm{NaN}"
+    if text == "inf":
+        return sign + r"\infty"
+    mantissa, _, exponent = text.partition("e")
+    if not exponent:
+        return sign + mantissa
+    return rf"{sign}{mantissa}\times10^{{{int(exponent)}}}"
+
+
 def tex_number(x: object, digits: int = 6) -> TrustedLatex:
     """Format a number for LaTeX math mode.
 
@@ -545,8 +561,10 @@ def tex_number(x: object, digits: int = 6) -> TrustedLatex:
     -------
     TrustedLatex
         For math mode, e.g. ``1.23\\times10^{-5}``; ``\\infty``, ``-\\infty``,
-        ``\\mathrm{NaN}``; a complex number ``a + b\\,\\mathrm{j}`` (``j`` for the imaginary
-        unit as in control engineering; the imaginary part alone when ``a`` is 0).
+        ``\\mathrm{NaN}``; a complex number (a pole) ``a + b\\,\\mathrm{j}`` (``j`` for the
+        imaginary unit as in control engineering), with the parts of
+        :func:`symbolic._numbers.format_pole`: a part too small to show at ``digits``
+        figures is left out (``-4`` for ``-4 + 1e-17j``, ``3\\,\\mathrm{j}`` for ``3j``).
 
     Raises
     ------
@@ -563,14 +581,14 @@ def tex_number(x: object, digits: int = 6) -> TrustedLatex:
     value, digits = _split_number(x, digits, "tex_number")
     if isinstance(value, float):
         return TrustedLatex(_tex_real(value, digits))
-    real, imag = value.real, value.imag
-    if imag == 0:
-        return TrustedLatex(_tex_real(real, digits))
-    imag_text = _tex_real(abs(imag), digits) + r"\,\mathrm{j}"
-    if real == 0:
-        return TrustedLatex(("-" if imag < 0 else "") + imag_text)
-    joiner = " - " if imag < 0 else " + "
-    return TrustedLatex(_tex_real(real, digits) + joiner + imag_text)
+    real, imag = pole_parts(value, digits)
+    if imag is None:
+        return TrustedLatex(_tex_text(real or "0"))
+    negative = imag.startswith("-")
+    imag_text = _tex_text(imag.removeprefix("-")) + r"\,\mathrm{j}"
+    if real is None:
+        return TrustedLatex(("-" if negative else "") + imag_text)
+    return TrustedLatex(_tex_text(real) + (" - " if negative else " + ") + imag_text)
 
 
 _SUPERSCRIPT = str.maketrans("0123456789-", "⁰¹²³⁴⁵⁶⁷⁸⁹⁻")
@@ -602,7 +620,10 @@ def md_number(x: object, digits: int = 6) -> TrustedMarkdown:
     -------
     TrustedMarkdown
         Digits, ``.``, the minus sign U+2212, ``×`` and superscript digits only, so no
-        Markdown syntax can form; ``∞``, ``NaN``; a complex number as ``a + b j``.
+        Markdown syntax can form; ``∞``, ``NaN``.  A complex number (a pole) is written
+        as a design file writes it, by :func:`symbolic._numbers.format_pole`: ``-2+3j``,
+        ``-4`` (digits, ``.``, ``e``, ASCII ``+`` and ``-`` and ``j``, with no space, so
+        again no Markdown syntax can form).
 
     Raises
     ------
@@ -615,18 +636,13 @@ def md_number(x: object, digits: int = 6) -> TrustedMarkdown:
     '1.23×10⁻⁵'
     >>> md_number(-4.0)
     '−4'
+    >>> md_number(-2 - 3j)
+    '-2-3j'
     """
     value, digits = _split_number(x, digits, "md_number")
     if isinstance(value, float):
         return TrustedMarkdown(_md_real(value, digits))
-    real, imag = value.real, value.imag
-    if imag == 0:
-        return TrustedMarkdown(_md_real(real, digits))
-    imag_text = _md_real(abs(imag), digits) + " j"
-    if real == 0:
-        return TrustedMarkdown(("\N{MINUS SIGN}" if imag < 0 else "") + imag_text)
-    joiner = " \N{MINUS SIGN} " if imag < 0 else " + "
-    return TrustedMarkdown(_md_real(real, digits) + joiner + imag_text)
+    return TrustedMarkdown(format_pole(value, digits))
 
 
 # --------------------------------------------------------------------------------------

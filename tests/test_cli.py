@@ -460,6 +460,55 @@ def test_bad_set_exits_2_with_one_line(write_design, set_args, key, problem):
     assert_one_line_error(err, path, key, problem)
 
 
+#: The heat sink with its controller poles written as a user writes complex numbers.
+HEAT_SINK_POLES = HEAT_SINK.replace(
+    "overshoot_percent = 5\nsettling_time = 60", 'poles = ["-2+3j", "-2-3j"]'
+)
+
+
+def test_derive_prints_poles_as_the_design_file_writes_them(write_design):
+    assert HEAT_SINK_POLES != HEAT_SINK
+    code, out, err = run_main("derive", write_design(HEAT_SINK_POLES))
+    assert code == 0, err
+    assert "  controller: -2+3j, -2-3j\n" in out
+    assert "  observer:   -8+12j, -8-12j\n" in out  # 4 x the controller poles (speed_factor)
+    assert "3*I" not in out and " + 3j" not in out and "±" not in out
+
+
+def test_derive_json_keeps_poles_as_pairs(write_design):
+    code, out, err = run_main("derive", "--json", write_design(HEAT_SINK_POLES))
+    assert code == 0, err
+    data = json.loads(out)
+    assert data["controller_poles"] == [[-2.0, 3.0], [-2.0, -3.0]]
+
+
+def test_seventeen_significant_digits_are_accepted(write_design):
+    # repr(0.1 + 0.2) and other 17-digit doubles (ISO/IEC 9899:2018, DBL_DECIMAL_DIG = 17)
+    text = HEAT_SINK.replace("value = 45.0", 'value = "45.000000000000007"')
+    code, out, err = run_main(
+        "derive", "--json", write_design(text), "--set", "tau=2.0000000000000004"
+    )
+    assert code == 0, err
+    values = json.loads(out)["parameters"]
+    assert values["Cth"] == float("45.000000000000007") != 45.0
+    assert values["tau"] == float("2.0000000000000004") != 2.0
+
+
+@pytest.mark.parametrize(
+    ("value", "set_args", "key"),
+    [
+        ('"45.0000000000000001"', [], "parameters.Cth.value"),
+        ("45.0", ["--set", "Cth=45.0000000000000001"], "parameters.Cth"),
+    ],
+    ids=["in-the-file", "with-set"],
+)
+def test_eighteen_significant_digits_exit_2_with_one_line(write_design, value, set_args, key):
+    path = write_design(HEAT_SINK.replace("value = 45.0", f"value = {value}"))
+    code, out, err = run_main("derive", path, *set_args)
+    assert code == 2 and out == ""
+    assert_one_line_error(err, path, key, "has 18 significant digits; at most 17")
+
+
 def test_missing_file_exits_2(tmp_path):
     path = tmp_path / "nowhere.toml"
     code, out, err = run_main("derive", path)
@@ -556,6 +605,19 @@ def test_process_derive_json_exit_0():
     assert proc.stderr == ""
     data = json.loads(proc.stdout)
     assert PUBLIC_KEYS <= data.keys() and data["passed"] is True
+
+
+def test_process_eighteen_digits_exit_2_one_line_no_traceback(tmp_path):
+    path = tmp_path / "long.toml"
+    path.write_text(
+        HEAT_SINK.replace("value = 0.8", 'value = "0.800000000000000044"'), encoding="utf-8"
+    )
+    proc = run_process("derive", path)
+    assert proc.returncode == 2
+    assert proc.stdout == ""
+    assert_one_line_error(
+        proc.stderr, path, "parameters.Rth.value", "has 18 significant digits; at most 17"
+    )
 
 
 def test_process_bad_file_exit_2_one_line_no_traceback(tmp_path):

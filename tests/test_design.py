@@ -522,7 +522,7 @@ POLES = [
         "complex-without-conjugate",
         sub(POLES_LINE, 'poles = ["-4+3j", "-5"]'),
         "controller.poles",
-        r"pole -4 \+ 3\*I has no matching conjugate -4 - 3\*I",
+        r"pole -4\+3j has no matching conjugate -4-3j",  # as written in the file
     ),
     case(
         "conjugate-multiplicity-differs",
@@ -559,13 +559,13 @@ POLES = [
         "right-half-plane-complex",
         sub(POLES_LINE, 'poles = ["0.5+3j", "0.5-3j"]'),
         "controller.poles",
-        r"not in the open left half-plane",
+        r"pole 0\.5\+3j is not in the open left half-plane",
     ),
     case(
         "on-the-imaginary-axis",
         sub(POLES_LINE, 'poles = ["3j", "-3j"]'),
         "controller.poles",
-        r"pole 3\*I is not in the open left half-plane",
+        r"pole 3j is not in the open left half-plane",
     ),
     case(
         "at-the-origin",
@@ -976,6 +976,52 @@ def test_numbers_are_exact_from_their_decimal_text():
     values = {p.name: p.value for p in design.parameters}
     assert values["m"] == sp.Rational(2, 5)
     assert values["c"] == sp.Rational(3, 2)
+
+
+#: Numbers as a program prints doubles: ``repr(0.1 + 0.2)`` and a 17-digit value.
+SEVENTEEN_DIGITS = sub(
+    "value = 1.5\n",
+    "value = 0.30000000000000004\n",
+    sub(
+        'A = [[0, 1], [0, "-c/m"]]',
+        'A = [[0, "1.2345678901234567"], [0, "-c/m"]]',
+        sub("value = 0.4\n", 'value = "1"\n'),
+    ),
+)
+
+
+def test_numbers_of_17_significant_digits_evaluate_to_the_same_double(write_design):
+    # 17 significant digits write any IEEE 754 double so that it reads back unchanged
+    # (ISO/IEC 9899:2018, 5.2.4.2.2, DBL_DECIMAL_DIG = 17); the loader keeps the decimal
+    # value exactly and rounds once, at evaluation, to the double float(text) gives.
+    path = write_design(SEVENTEEN_DIGITS)
+    design = load_design(path, overrides={"kf": "0.89999999999999991"})
+    values = {p.name: p.value for p in design.parameters}
+    assert values["c"] == sp.Rational(30000000000000004, 10**17)
+    assert values["kf"] == sp.Rational(89999999999999991, 10**17)
+    assert design.plant.A[0, 1] == sp.Rational(12345678901234567, 10**16)
+    plant = derive(design, budget=0).plant
+    assert plant.A[0, 1] == float("1.2345678901234567")
+    assert plant.A[1, 1] == -float("0.30000000000000004") == -(0.1 + 0.2)
+    assert plant.B[1, 0] == float("0.89999999999999991")
+
+
+@pytest.mark.parametrize(
+    ("old", "new", "key"),
+    [
+        ("value = 0.30000000000000004\n", 'value = "0.300000000000000044"\n', "parameters.c.value"),
+        ('"1.2345678901234567"', '"1.23456789012345678"', "plant.A"),
+        ('"-4+3j"', '"-4+3.00000000000000001j"', "controller.poles[0]"),
+    ],
+    ids=["parameter", "matrix-entry", "pole"],
+)
+def test_eighteen_significant_digits_are_refused(write_design, old, new, key):
+    path = write_design(sub(old, new, SEVENTEEN_DIGITS))
+    with pytest.raises(DesignFileError) as info:
+        load_design(path)
+    assert "has 18 significant digits; at most 17" in info.value.problem
+    assert info.value.key.startswith(key)
+    assert "\n" not in str(info.value)
 
 
 def test_tracking_output_by_name_and_claims_as_matrix_or_flat():

@@ -10,7 +10,9 @@ Python language defines it, and to refuse everything else):
 * [Goldberg] D. Goldberg, "What Every Computer Scientist Should Know About
   Floating-Point Arithmetic", ACM Computing Surveys 23(1), 1991, section 1.1:
   0.1 has no exact binary representation.
-* [C17] ISO/IEC 9899:2018, 5.2.4.2.2: DBL_DIG = 15 for IEEE 754 binary64.
+* [C17] ISO/IEC 9899:2018, 5.2.4.2.2: DBL_DIG = 15 and DBL_DECIMAL_DIG = 17
+  for IEEE 754 binary64 (a decimal of 15 digits survives a trip through a
+  double; 17 digits write any double so that it reads back unchanged).
 * [UTS39] Unicode Technical Standard #39 "Unicode Security Mechanisms",
   confusables data: Cyrillic U+0430 looks like Latin ``a`` (from memory).
 * [Batchelder] N. Batchelder, "Eval really is dangerous", blog post, 2012: the
@@ -25,6 +27,7 @@ import math
 import time
 from fractions import Fraction
 
+import numpy as np
 import pytest
 import sympy
 
@@ -243,6 +246,9 @@ def test_non_symbol_in_the_mapping_is_a_programming_error():
         ("1e-15", sympy.Rational(1, 10**15)),
         ("999999999999999", sympy.Integer(999999999999999)),
         ("0.333333333333333", sympy.Rational(333333333333333, 10**15)),
+        ("0.30000000000000004", sympy.Rational(30000000000000004, 10**17)),
+        ("1.2345678901234567", sympy.Rational(12345678901234567, 10**16)),
+        ("99999999999999.999", sympy.Rational(99999999999999999, 1000)),
     ],
 )
 def test_decimal_literals_are_converted_exactly(text, expected):
@@ -256,8 +262,9 @@ def test_decimal_literals_are_converted_exactly(text, expected):
 @pytest.mark.parametrize(
     ("text", "fragment"),
     [
-        ("1234567890123456", "significant digits"),  # [C17] DBL_DIG = 15
-        ("0.1234567890123456", "significant digits"),
+        ("123456789012345678", "significant digits"),  # [C17] DBL_DECIMAL_DIG = 17
+        ("0.123456789012345678", "significant digits"),
+        ("1.00000000000000001", "significant digits"),
         ("1e16", "too large"),
         ("1.1e15", "too large"),
         ("1e-16", "too small"),
@@ -680,12 +687,49 @@ def test_parse_number_is_exact(value, expected):
     assert isinstance(result, sympy.Rational)
 
 
-def test_parse_number_round_trips_floats_of_15_digits():
-    # [C17] DBL_DIG = 15: these decimals survive the double and come back exact.
-    for value in (9.80665, 0.45, 6.02214076e-1, 1.602176634e-15, 299792458.0, 123456789.012345):
+def test_parse_number_round_trips_floats_of_up_to_17_digits():
+    # [C17] DBL_DIG = 15: these decimals survive the double and come back exact;
+    # DBL_DECIMAL_DIG = 17: so do the 16- and 17-digit reprs (0.1 + 0.2, 1/3).
+    for value in (
+        9.80665,
+        0.45,
+        6.02214076e-1,
+        1.602176634e-15,
+        299792458.0,
+        123456789.012345,
+        0.1 + 0.2,
+        1 / 3,
+        2 / 3 * 1e-3,
+    ):
         result = parse_number(value)
         assert float(result) == value
         assert Fraction(int(result.p), int(result.q)) == Fraction(repr(value))
+
+
+def _significant_digits(text: str) -> int:
+    mantissa = text.lstrip("-").partition("e")[0].replace(".", "")
+    return len(mantissa.strip("0"))
+
+
+def test_repr_of_random_doubles_reads_back_as_the_same_double():
+    # [C17] DBL_DECIMAL_DIG = 17: repr needs up to 17 digits and every one of them is
+    # accepted, as a string and as a TOML float; the value is the decimal text, exactly.
+    rng = np.random.default_rng(1991)
+    scaled = rng.uniform(1, 10, 2000) * 10.0 ** rng.integers(-15, 15, 2000)
+    scaled *= rng.choice([-1.0, 1.0], 2000)
+    bits = rng.integers(0, 2**63, 20000, dtype=np.uint64).view(np.float64)
+    bits = bits[(np.abs(bits) >= 1e-15) & (np.abs(bits) <= 1e15)][:1000]  # the magnitude limits
+    values = [float(x) for x in np.concatenate([scaled, bits])]
+    assert len(values) >= 2500
+    lengths = set()
+    for value in values:
+        text = repr(value)
+        lengths.add(_significant_digits(text))
+        for given in (text, value):
+            result = parse_number(given)
+            assert float(result) == value, text
+            assert Fraction(int(result.p), int(result.q)) == Fraction(text)
+    assert {16, 17} <= lengths  # the digits refused before are exercised
 
 
 @pytest.mark.parametrize(
@@ -703,7 +747,7 @@ def test_parse_number_round_trips_floats_of_15_digits():
         (10**16, "too large"),
         (10**100_000, "too large"),
         (1234567890123456, "too large"),
-        (0.1 + 0.2, "significant digits"),  # repr is 0.30000000000000004
+        ("0.300000000000000044", "significant digits"),  # 18 digits, [C17] 17 suffice
         ("abc", "plain decimal"),
         ("nan", "plain decimal"),
         ("inf", "plain decimal"),

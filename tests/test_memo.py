@@ -16,7 +16,9 @@ import pytest
 import symbolic
 from symbolic import _memo
 from symbolic._derive import derive
+from symbolic._mathtex import pole_latex
 from symbolic._memo import assemble_memo, build_memo, write_memo
+from symbolic._numbers import format_pole
 from symbolic._report import format_number
 
 from .conftest import ROOT, WORKED, WORKED_FILES, require_tex, tex_available
@@ -235,6 +237,18 @@ def test_source_date_epoch_makes_sources_reproducible(monkeypatch):
     second = build_memo(d, None, {})
     assert first.tex == second.tex and first.markdown == second.markdown
     assert "1970-01-01" in first.markdown.replace("\\-", "-")
+
+
+def test_memo_prints_poles_with_j_and_the_numbers_of_the_plain_text():
+    # levitated_ball.toml asks for the controller poles -60+45j, -60-45j, -150
+    d = derive(symbolic.load_design(WORKED / "levitated_ball.toml"))
+    doc = build_memo(d, None, {})
+    math = "-60 + 45j,\\; -60 - 45j,\\; -150"
+    assert f"Controller poles: ${math}$" in doc.markdown
+    assert f"Controller poles: ${math}$" in doc.tex
+    for z in (*d.controller_poles.values, *d.observer_poles.values):
+        assert pole_latex(z, 4).replace(" ", "") == format_pole(z, 4)
+    assert not re.search(r"[0-9.] ?i\b|\\mathrm\{i\}", doc.tex)  # no i for the imaginary unit
 
 
 def test_long_formulas_are_broken_over_lines():

@@ -360,6 +360,10 @@ def test_render_template_wraps_errors() -> None:
         (-2 - 3j, 6, r"-2 - 3\,\mathrm{j}"),
         (-4j, 6, r"-4\,\mathrm{j}"),
         (complex(5, 0), 6, "5"),
+        (complex(-4, 1e-17), 6, "-4"),  # round-off on a real pole is not shown
+        (complex(-1.5e-7, -2e6), 6, r"-2\times10^{6}\,\mathrm{j}"),
+        (-1.5e-7 + 2e-7j, 3, r"-1.5\times10^{-7} + 2\times10^{-7}\,\mathrm{j}"),
+        (-1.5e-7 + 2j, 3, r"2\,\mathrm{j}"),  # the real part is below the 3rd figure of |z|
         (np.float32(2.5), 6, "2.5"),
         (np.int64(-12), 6, "-12"),
     ],
@@ -372,7 +376,15 @@ def test_tex_number(value: object, digits: int, expected: str) -> None:
 
 @pytest.mark.parametrize(
     ("value", "expected"),
-    [(1.23e-05, "1.23×10⁻⁵"), (-4.0, "−4"), (2e10, "2×10¹⁰"), (1 - 2j, "1 − 2 j")],
+    [
+        (1.23e-05, "1.23×10⁻⁵"),
+        (-4.0, "−4"),
+        (2e10, "2×10¹⁰"),
+        # complex numbers are poles, written as a design file writes them
+        (1 - 2j, "1-2j"),
+        (-2 + 3j, "-2+3j"),
+        (complex(-4, 1e-17), "-4"),
+    ],
 )
 def test_md_number(value: object, expected: str) -> None:
     result = md_number(value)
