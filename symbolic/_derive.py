@@ -343,9 +343,7 @@ def _semidefinite_quadratic_has_no_zero(f: sp.Expr, xs: list[sp.Symbol]) -> bool
     at_zero = {x: 0 for x in xs}
     g = sp.Matrix([sp.diff(f, x) for x in xs]).subs(at_zero)
     n = len(xs)
-    subsets = [
-        [i for i in range(n) if mask >> i & 1] for mask in range(1, 2**n)
-    ]
+    subsets = [[i for i in range(n) if mask >> i & 1] for mask in range(1, 2**n)]
     for sign in (1, -1):
         Hs = sign * H
         if not all(Hs.extract(idx, idx).det() >= 0 for idx in subsets):
@@ -406,7 +404,9 @@ def has_no_real_zero(f: sp.Expr) -> bool:
     try:
         if len(xs) == 1:
             poly = sp.Poly(f, xs[0])
-            if poly.degree() > ROOT_COUNT_MAX_DEGREE or not (poly.domain.is_QQ or poly.domain.is_ZZ):
+            if poly.degree() > ROOT_COUNT_MAX_DEGREE or not (
+                poly.domain.is_QQ or poly.domain.is_ZZ
+            ):
                 return False
             return poly.count_roots() == 0
         return _semidefinite_quadratic_has_no_zero(f, xs)

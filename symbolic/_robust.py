@@ -914,7 +914,7 @@ def _numeric_gains(d: Derivation, values: np.ndarray) -> np.ndarray:
 
 
 def gain_sensitivities(
-    d: Derivation, *, budget: float | None = None, factor: bool = True, closed_form: bool = True
+    d: Derivation, *, budget: float | None = None, factor: bool = True
 ) -> SensitivityTable:
     """Normalised sensitivities (p/g)·∂g/∂p of every gain entry at the nominal values.
 
@@ -925,6 +925,8 @@ def gain_sensitivities(
     (over budget, or several inputs or outputs) the sensitivities of a
     single-input, single-output design come from central differences of the
     floating-point Ackermann gains instead (step 1e-6 relative).
+    ``factor=False`` leaves the formulas unfactored (for callers that show
+    only the numbers); the values are the same exact evaluations.
 
     The normalised sensitivity is the relative change of the gain per
     relative change of the parameter (P. M. Frank, *Introduction to System
@@ -937,7 +939,7 @@ def gain_sensitivities(
     entries = _gain_entries(d)
     notes: list[str] = []
     forms = None
-    if closed_form and entries and all(e[1] is not None for e in entries) and params:
+    if entries and all(e[1] is not None for e in entries) and params:
         seconds = d.design.symbolic_budget_seconds if budget is None else budget
         try:
             forms = run_bounded(
@@ -1039,9 +1041,10 @@ def robustness_study(
 ) -> RobustnessReport:
     """Mismatch study, Routh–Hurwitz conditions, sensitivities and margins of a derivation.
 
-    ``factor=False`` (the memo, which prints the sensitivities as numbers only) skips the
-    symbolic sensitivity formulas and takes central differences of the floating-point gains,
-    which agree with the closed forms to about 1e-6 (tests/test_robust.py).
+    The sensitivities always come from :func:`gain_sensitivities` with the exact
+    derivatives of the closed-form gains when these exist, so ``gainsmith robustness`` and
+    the memo print the same numbers; ``factor=False`` (the memo, which prints the
+    sensitivities as numbers only) merely skips factoring their formulas for display.
     """
     import time
 
@@ -1053,7 +1056,7 @@ def robustness_study(
     stability = state_feedback_stability(d, study)
     timings["routh_hurwitz"] = time.perf_counter() - t
     t = time.perf_counter()
-    sens = gain_sensitivities(d, budget=budget, factor=factor, closed_form=factor)
+    sens = gain_sensitivities(d, budget=budget, factor=factor)
     timings["sensitivities"] = time.perf_counter() - t
     t = time.perf_counter()
     notes: list[str] = list(sens.notes)
@@ -1129,12 +1132,18 @@ def _check_json(c: Check) -> dict:
     }
 
 
+def _sensitivity_values(table: SensitivityTable) -> dict[str, dict[str, float | None]]:
+    """``{gain: {parameter: value}}``, None where the gain is zero at the nominal values."""
+    sens: dict[str, dict[str, float | None]] = {}
+    for e in table.entries:
+        sens.setdefault(e.gain, {})[e.parameter] = _clean(e.value)
+    return sens
+
+
 def robustness_json(r: RobustnessReport) -> dict:
     """The machine-readable result of ``gainsmith robustness --json``."""
     m = r.mismatch
-    sens: dict[str, dict[str, float | None]] = {}
-    for e in r.sensitivities.entries:
-        sens.setdefault(e.gain, {})[e.parameter] = _clean(e.value)
+    sens = _sensitivity_values(r.sensitivities)
     return {
         "title": r.derivation.design.title,
         "design_file": r.derivation.design.path,
@@ -1386,7 +1395,8 @@ def memo_robustness(
     from . import _figures
     from . import _robust_figures as rf
 
-    # the memo shows the sensitivities as numbers: skip factoring their formulas
+    # the memo shows the sensitivities as numbers: the same exact derivatives as the
+    # robustness command, only their formulas are not factored
     r = robustness_study(d, points, budget=budget, factor=False)
     m = r.mismatch
     name = d.design.slug
@@ -1477,6 +1487,7 @@ def memo_robustness(
         "routh_hurwitz": list(r.stability.lines),
         "routh_hurwitz_conditions": conds,
         "sensitivity_method": r.sensitivities.method,
+        "sensitivities": _sensitivity_values(r.sensitivities),
         "sensitivity_headers": ["gain", *r.sensitivities.parameters],
         "sensitivity_rows": [
             [g]

@@ -526,6 +526,26 @@ def test_memo_context_and_figures(bearing):
         assert figures[f"{stem}.png"].startswith(b"\x89PNG")
 
 
+@pytest.mark.parametrize("worked", ["focus_actuator", "belt_drive"])
+def test_memo_sensitivities_are_the_robustness_commands(worked, capsys):
+    # The memo and `gainsmith robustness --json` print one set of sensitivities:
+    # the exact derivatives of the closed-form gains, to the last bit (a
+    # finite-difference copy would agree only to about 1e-6).
+    path = WORKED / f"{worked}.toml"
+    assert main(["robustness", "--json", str(path), "--points", "2"]) in (0, 1)
+    out = json.loads(capsys.readouterr().out)
+    assert out["sensitivity_method"].startswith("closed form")
+    ctx, _figures = memo_robustness(derive(load_design(path)), 2)
+    assert ctx["sensitivity_method"] == out["sensitivity_method"]
+    assert ctx["sensitivities"] == out["sensitivities"]
+    # the table the memo prints shows those numbers, row by row
+    names = ctx["sensitivity_headers"][1:]
+    for row in ctx["sensitivity_rows"]:
+        want = out["sensitivities"][row[0]]
+        shown = ["–" if want[n] is None else f"{want[n]:.4g}" for n in names]
+        assert row[1:] == shown, row[0]
+
+
 def test_mismatch_figure_subsamples_large_grids(monkeypatch):
     import symbolic._robust_figures as rf
 
