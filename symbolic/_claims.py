@@ -34,6 +34,7 @@ from scipy.optimize import linear_sum_assignment
 from ._derive import Derivation, derive
 from ._design import Claims, Design
 from ._errors import DesignFileError
+from ._labels import gain_label
 from ._numeric import pole_residual
 from ._report import complex_pairs, dumps, format_number
 
@@ -547,8 +548,11 @@ def _poles_text(poles: Sequence[complex] | np.ndarray, digits: int = _EXPLANATIO
     return ", ".join(parts)
 
 
-def _entry_name(name: str, index: tuple[int, ...]) -> str:
-    return name + "".join(f"[{i}]" for i in index)
+def _entry_name(name: str, index: tuple[int, ...], shape: tuple[int, ...]) -> str:
+    """The entry's label as every output writes it (:func:`symbolic._labels.gain_label`)."""
+    row, column = index
+    rows, columns = shape
+    return gain_label(name, row, column, (rows, columns))
 
 
 def _named_entries(
@@ -576,7 +580,7 @@ def _named_entries(
             by = format_number(abs(c - d), 3) + " (the derived entry is 0)"
         shown_c, shown_d = distinct_numbers(float(c), float(d))
         parts.append(
-            f"{_entry_name(name, tuple(int(i) for i in idx))} differs by {by}"
+            f"{_entry_name(name, tuple(int(i) for i in idx), difference.shape)} differs by {by}"
             f" (claimed {shown_c}, derived {shown_d})"
         )
     text = ", ".join(parts)
@@ -624,16 +628,19 @@ def _gain_explanation(
                 f"{gain_clause} but places the requested poles (within {pole_err:.1e},"
                 f" tolerance {pole_tol:.1e}): {why}"
             )
-        return f"{name} does not place the requested poles: {poles_clause} ({why})"
+        return f"{name} does not place the requested poles: {poles_clause}; {why}"
     if gain_ok and poles_ok:
         return (
             f"{gain_clause} and the poles of {matrix} are within {pole_err:.1e} (relative)"
             f" of {want}{_largest_entry_note(name, claimed, derived, tol)}"
         )
     if gain_ok:
+        note = _largest_entry_note(name, claimed, derived, tol)
+        if note:  # an entry off by more than the tolerance: name it
+            note += " but not in the poles"
         return (
-            f"{gain_clause}, but {poles_clause}: the placement is sensitive to rounding,"
-            " so carry more significant figures"
+            f"{gain_clause}, but {poles_clause}{note}: the placement is sensitive to small"
+            " errors in the gain (rounding too), so carry more significant figures"
         )
     entries = _named_entries(name, claimed, derived, difference, tol)
     if poles_ok:
@@ -659,7 +666,7 @@ def _largest_entry_note(name: str, claimed: np.ndarray, derived: np.ndarray, tol
     idx = np.unravel_index(k, derived.shape)
     shown_c, shown_d = distinct_numbers(float(claimed[idx]), float(derived[idx]))
     return (
-        f"; its entry {_entry_name(name, tuple(int(i) for i in idx))} alone differs by"
+        f"; its entry {_entry_name(name, tuple(int(i) for i in idx), derived.shape)} alone differs by"
         f" {_percent(float(entry_rel.flat[k]))} (claimed {shown_c}, derived {shown_d}),"
         " which weighs little in the whole matrix"
     )
@@ -774,7 +781,7 @@ def format_claims(report: ClaimReport, derivation: Derivation) -> str:
         rows = []
         for idx in np.ndindex(v.claimed.shape):
             c, d, diff = (float(M[idx]) for M in (v.claimed, v.derived, v.difference))
-            entry = short if v.name == "reference_gain" else _entry_name(short, idx)
+            entry = _entry_name(short, idx, v.claimed.shape)
             rel = f"{abs(diff) / abs(d):.2e}" if math.isfinite(d) and d != 0.0 else "—"
             rows.append([entry, _cell(c, 10), _cell(d, 10), _cell(diff, 3), rel])
         out.extend(_table(["entry", "claimed", "derived", "difference", "relative"], rows))

@@ -63,6 +63,7 @@ import math
 import textwrap
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from typing import Literal
 
 import numpy as np
 import sympy as sp
@@ -72,6 +73,7 @@ from ._closed_form import characteristic_coefficients
 from ._derive import Check, Derivation, derive
 from ._design import Design
 from ._errors import BudgetExceeded, DesignFileError
+from ._labels import gain_label
 from ._margins import MarginComparison, MarginReport, compare_margins
 from ._numeric import eigenvalue_tolerance, evaluate_matrix, numeric_ackermann, pole_residual
 
@@ -834,7 +836,7 @@ def state_feedback_stability(d: Derivation, study: MismatchStudy) -> StateFeedba
 class GainSensitivity:
     """(p/g)·∂g/∂p for one gain entry g and one parameter p."""
 
-    gain: str  # "K[0][1]", "L[2][0]", "N"
+    gain: str  # "K_2", "L_3", "N" (symbolic._labels.gain_label)
     parameter: str
     closed_form: sp.Expr | None
     value: float | None  # at the nominal values; None where g = 0 there
@@ -855,27 +857,33 @@ class SensitivityTable:
         raise KeyError((gain, parameter))
 
 
+def _entry_labels(d: Derivation, style: Literal["text", "tex"] = "text") -> list[str]:
+    """Labels of every entry of K, L (row-major) and N, as :func:`gain_label` writes them."""
+    gains = [(g.name, g.value.shape) for g in (d.K, d.L)]
+    if d.reference is not None:
+        gains.append(("N", d.reference.value.shape))
+    return [
+        gain_label(name, i, j, shape, style)
+        for name, shape in gains
+        for i in range(shape[0])
+        for j in range(shape[1])
+    ]
+
+
 def _gain_entries(d: Derivation) -> list[tuple[str, sp.Expr | None, float]]:
-    out: list[tuple[str, sp.Expr | None, float]] = []
+    """(label, closed form or None, value) of every entry, in the order of :func:`_entry_labels`."""
+    forms: list[tuple[sp.Expr | None, float]] = []
     for g in (d.K, d.L):
         cf = g.closed_form
         for i in range(g.value.shape[0]):
             for j in range(g.value.shape[1]):
-                out.append(
-                    (f"{g.name}[{i}][{j}]", None if cf is None else cf[i, j], float(g.value[i, j]))
-                )
+                forms.append((None if cf is None else cf[i, j], float(g.value[i, j])))
     if d.reference is not None:
         ref = d.reference
+        single = ref.value.shape[0] == 1
         for i in range(ref.value.shape[0]):
-            label = "N" if ref.value.shape[0] == 1 else f"N[{i}]"
-            out.append(
-                (
-                    label,
-                    ref.closed_form if ref.value.shape[0] == 1 else None,
-                    float(ref.value[i, 0]),
-                )
-            )
-    return out
+            forms.append((ref.closed_form if single else None, float(ref.value[i, 0])))
+    return [(label, f, v) for label, (f, v) in zip(_entry_labels(d), forms, strict=True)]
 
 
 def _sensitivity_forms(
@@ -1489,6 +1497,7 @@ def memo_robustness(
         "sensitivity_method": r.sensitivities.method,
         "sensitivities": _sensitivity_values(r.sensitivities),
         "sensitivity_headers": ["gain", *r.sensitivities.parameters],
+        "sensitivity_gains_latex": _entry_labels(d, "tex"),
         "sensitivity_rows": [
             [g]
             + [
