@@ -34,7 +34,8 @@ from scipy.optimize import linear_sum_assignment
 from ._derive import Derivation, derive
 from ._design import Claims, Design
 from ._errors import DesignFileError
-from ._numbers import format_number, format_pole, format_poles
+from ._labels import gain_label
+from ._numbers import format_number, format_pole
 from ._numeric import check_eigenvalues
 from ._report import complex_pairs, dumps
 
@@ -425,13 +426,16 @@ def _reference_verdict(
     dc_text = format_number(dc, 6) if math.isfinite(dc) else "undefined"
     if holds:
         explanation = (
-            f"N is within {_percent(rel)} of gainsmith's N; with gainsmith's K the"
+            f"N differs from gainsmith's N by {_against(rel, tol)}; with gainsmith's K the"
             f" steady-state gain from r to {output} is {dc_text}"
         )
     else:
+        shown_c, shown_d = distinct_numbers(claimed_value, float(derived.item()))
+        if math.isfinite(dc):
+            dc_text = distinct_numbers(dc, 1.0)[0]
         explanation = (
-            f"N differs by {_percent(rel)} (claimed {format_number(claimed_value, 6)}, derived"
-            f" {format_number(derived.item(), 6)}) — with gainsmith's K the steady-state gain"
+            f"N differs from gainsmith's N by {_against(rel, tol)}: claimed {shown_c}, derived"
+            f" {shown_d} — with gainsmith's K the steady-state gain"
             f" from r to {output} would be {dc_text} instead of 1"
         )
         if k_holds is False:
@@ -469,8 +473,99 @@ def _percent(fraction: float) -> str:
     return f"{pct:.2g} %"
 
 
-def _entry_name(name: str, index: tuple[int, ...]) -> str:
-    return name + "".join(f"[{i}]" for i in index)
+def _percent_pair(a: float, b: float) -> tuple[str, str]:
+    """Two fractions as percentages (:func:`_percent`) that read differently when they differ."""
+    ta, tb = _percent(a), _percent(b)
+    if ta == tb and a != b and math.isfinite(a) and math.isfinite(b):
+        ta, tb = (f"{t} %" for t in distinct_numbers(100.0 * a, 100.0 * b, 2))
+    return ta, tb
+
+
+def _against(rel: float, tol: float, word: str = "tolerance") -> str:
+    """'0.053 % (tolerance 0.1 %)': a relative error beside the tolerance it is held to."""
+    shown_rel, shown_tol = _percent_pair(rel, tol)
+    return f"{shown_rel} ({word} {shown_tol})"
+
+
+#: The most significant figures a double carries (17 always round-trip).
+_MAX_DIGITS = 17
+
+
+def distinct_numbers(a: float, b: float, digits: int = 6) -> tuple[str, str]:
+    """``a`` and ``b`` as text with enough significant figures to tell them apart.
+
+    Starts at ``digits`` figures and adds one at a time, up to 17 (enough
+    for any two distinct doubles), so that two different numbers never
+    print the same; equal numbers print at ``digits`` figures.
+
+    Examples
+    --------
+    >>> distinct_numbers(12.1, 12.1000004)
+    ('12.1', '12.1000004')
+    >>> distinct_numbers(2.5, 2.5)
+    ('2.5', '2.5')
+    """
+    for d in range(digits, _MAX_DIGITS + 1):
+        ta, tb = format_number(a, d), format_number(b, d)
+        if ta != tb or a == b:
+            break
+    return ta, tb
+
+
+def _distinct_poles(
+    achieved: Sequence[complex] | np.ndarray, requested: Sequence[complex] | np.ndarray
+) -> tuple[str, str]:
+    """Achieved and requested poles as text, with figures enough to show they differ."""
+    for d in range(_EXPLANATION_DIGITS, _MAX_DIGITS + 1):
+        got, want = _poles_text(achieved, d), _poles_text(requested, d)
+        if got != want:
+            break
+    return got, want
+
+
+def _real_text(x: float, digits: int) -> str:
+    text = format_number(x, digits)
+    return "0" if text in ("-0", "0") else text
+
+
+def _poles_text(poles: Sequence[complex] | np.ndarray, digits: int = _EXPLANATION_DIGITS) -> str:
+    """Poles as text, conjugate pairs written once: ``-3.1±2.2j, -10``.
+
+    An imaginary part too small to show at ``digits`` significant figures
+    is dropped, so a repeated real pole split by rounding reads ``-10, -10``.
+    """
+    values = [complex(z) for z in poles]
+    used = [False] * len(values)
+    parts: list[str] = []
+    for i, z in enumerate(values):
+        if used[i]:
+            continue
+        used[i] = True
+        shown_im = abs(z.imag) >= 0.5 * 10.0 ** (1 - digits) * max(abs(z), 1e-300)
+        if not shown_im:
+            parts.append(_real_text(z.real, digits))
+            continue
+        # find the conjugate partner among the remaining poles
+        best, best_d = None, math.inf
+        for j in range(i + 1, len(values)):
+            if not used[j]:
+                d = abs(values[j] - z.conjugate())
+                if d < best_d:
+                    best, best_d = j, d
+        if best is not None and best_d <= 1e-6 * max(1.0, abs(z)):
+            used[best] = True
+            parts.append(f"{_real_text(z.real, digits)}±{format_number(abs(z.imag), digits)}j")
+        else:
+            sign = "+" if z.imag >= 0 else "-"
+            parts.append(f"{_real_text(z.real, digits)}{sign}{format_number(abs(z.imag), digits)}j")
+    return ", ".join(parts)
+
+
+def _entry_name(name: str, index: tuple[int, ...], shape: tuple[int, ...]) -> str:
+    """The entry's label as every output writes it (:func:`symbolic._labels.gain_label`)."""
+    row, column = index
+    rows, columns = shape
+    return gain_label(name, row, column, (rows, columns))
 
 
 def _named_entries(
@@ -496,9 +591,10 @@ def _named_entries(
             by = _percent(abs(c - d) / abs(d))
         else:
             by = format_number(abs(c - d), 3) + " (the derived entry is 0)"
+        shown_c, shown_d = distinct_numbers(float(c), float(d))
         parts.append(
-            f"{_entry_name(name, tuple(int(i) for i in idx))} differs by {by}"
-            f" (claimed {format_number(c, 6)}, derived {format_number(d, 6)})"
+            f"{_entry_name(name, tuple(int(i) for i in idx), difference.shape)} differs by {by}"
+            f" (claimed {shown_c}, derived {shown_d})"
         )
     text = ", ".join(parts)
     if len(order) > _MAX_NAMED_ENTRIES:
@@ -522,8 +618,8 @@ def _gain_explanation(
     tol: float,
 ) -> str:
     matrix = "A − BK" if name == "K" else "A − LC"
-    got = format_poles(achieved, _EXPLANATION_DIGITS)
-    want = format_poles(requested, _EXPLANATION_DIGITS)
+    pole_tol = _pole_tolerance(requested, tol)
+    got, want = _distinct_poles(achieved, requested)
     unstable = bool(np.any(np.real(achieved) >= 0.0))
     danger = ""
     if unstable:
@@ -532,34 +628,61 @@ def _gain_explanation(
             if name == "K"
             else " — the estimation error would grow instead of decay"
         )
-    poles_clause = f"the achieved poles are {got} instead of {want}{danger}"
+    poles_clause = (
+        f"the achieved poles are {got} instead of {want}"
+        f" (off by {', tolerance '.join(_percent_pair(pole_err, pole_tol))}){danger}"
+    )
+    gain_clause = f"{name} differs from gainsmith's {name} by {_against(rel, tol)}"
     if not unique:
         what = "inputs" if name == "K" else "outputs"
         why = f"with {channels} {what} {name} is not unique, so only the poles of {matrix} decide"
         if poles_ok:
             return (
-                f"{name} differs from gainsmith's {name} by {_percent(rel)} but places the"
-                f" requested poles (within {pole_err:.1e}): {why}"
+                f"{gain_clause} but places the requested poles (within {pole_err:.1e},"
+                f" tolerance {pole_tol:.1e}): {why}"
             )
-        return f"{name} does not place the requested poles: {poles_clause} ({why})"
+        return f"{name} does not place the requested poles: {poles_clause}; {why}"
     if gain_ok and poles_ok:
         return (
-            f"{name} is within {_percent(rel)} of gainsmith's {name} and the poles of"
-            f" {matrix} are within {pole_err:.1e} (relative) of {want}"
+            f"{gain_clause} and the poles of {matrix} are within {pole_err:.1e} (relative)"
+            f" of {want}{_largest_entry_note(name, claimed, derived, tol)}"
         )
     if gain_ok:
+        note = _largest_entry_note(name, claimed, derived, tol)
+        if note:  # an entry off by more than the tolerance: name it
+            note += " but not in the poles"
         return (
-            f"{name} is within {_percent(rel)} of gainsmith's {name}, but {poles_clause}"
-            f" (off by {_percent(pole_err)}): the placement is sensitive to rounding, so carry"
-            " more significant figures"
+            f"{gain_clause}, but {poles_clause}{note}: the placement is sensitive to small"
+            " errors in the gain (rounding too), so carry more significant figures"
         )
     entries = _named_entries(name, claimed, derived, difference, tol)
     if poles_ok:
         return (
-            f"{entries}, although the poles of {matrix} stay within"
+            f"{gain_clause}: {entries}, although the poles of {matrix} stay within"
             f" {pole_err:.1e} (relative) of {want}"
         )
-    return f"{entries} — {poles_clause}"
+    return f"{gain_clause}: {entries} — {poles_clause}"
+
+
+def _largest_entry_note(name: str, claimed: np.ndarray, derived: np.ndarray, tol: float) -> str:
+    """'; its entry K[0][2] alone differs by 3.8 % ...' when one entry is off by more than tol.
+
+    The verdict measures the whole matrix (Frobenius norm), in which a small
+    entry weighs little; a passing claim still names an entry that by itself
+    is further off than the tolerance, so the sentence never hides it.
+    """
+    with np.errstate(divide="ignore", invalid="ignore"):
+        entry_rel = np.where(derived != 0.0, np.abs(claimed - derived) / np.abs(derived), 0.0)
+    k = int(np.argmax(entry_rel))
+    if entry_rel.flat[k] <= tol:
+        return ""
+    idx = np.unravel_index(k, derived.shape)
+    shown_c, shown_d = distinct_numbers(float(claimed[idx]), float(derived[idx]))
+    return (
+        f"; its entry {_entry_name(name, tuple(int(i) for i in idx), derived.shape)} alone differs by"
+        f" {_percent(float(entry_rel.flat[k]))} (claimed {shown_c}, derived {shown_d}),"
+        " which weighs little in the whole matrix"
+    )
 
 
 # --------------------------------------------------------------------------
@@ -663,7 +786,7 @@ def format_claims(report: ClaimReport, derivation: Derivation) -> str:
         rows = []
         for idx in np.ndindex(v.claimed.shape):
             c, d, diff = (float(M[idx]) for M in (v.claimed, v.derived, v.difference))
-            entry = short if v.name == "reference_gain" else _entry_name(short, idx)
+            entry = _entry_name(short, idx, v.claimed.shape)
             rel = f"{abs(diff) / abs(d):.2e}" if math.isfinite(d) and d != 0.0 else "—"
             rows.append([entry, _cell(c, 10), _cell(d, 10), _cell(diff, 3), rel])
         out.extend(_table(["entry", "claimed", "derived", "difference", "relative"], rows))

@@ -376,8 +376,106 @@ def _describe_zero(f: sp.Expr) -> str:
     return f"{f} = 0"
 
 
+#: Factors of higher degree than this are not examined for real roots (kept as conditions).
+ROOT_COUNT_MAX_DEGREE = 12
+
+
+def _semidefinite_quadratic_has_no_zero(f: sp.Expr, xs: list[sp.Symbol]) -> bool:
+    """True if ``f`` is a quadratic bounded on one side whose extreme value is not 0.
+
+    Completing the square: for ``f(x) = ½ xᵀ H x + gᵀ x + c`` with H positive
+    semidefinite, f is bounded below exactly when ``H x = −g`` has a solution
+    x₀, and its minimum over real x is then ``f(x₀)``; f has no real zero if
+    that minimum is positive.  The negative-semidefinite case is the same for
+    −f.  Semidefiniteness: every principal minor is nonnegative (G. Strang,
+    *Linear Algebra and Its Applications*, 4th ed., section 6.2).
+    """
+    poly = sp.Poly(f, *xs)
+    if poly.total_degree() != 2 or not (poly.domain.is_QQ or poly.domain.is_ZZ):
+        return False
+    if len(xs) > 8:  # 2**n principal minors
+        return False
+    H = sp.hessian(f, xs)
+    at_zero = {x: 0 for x in xs}
+    g = sp.Matrix([sp.diff(f, x) for x in xs]).subs(at_zero)
+    n = len(xs)
+    subsets = [[i for i in range(n) if mask >> i & 1] for mask in range(1, 2**n)]
+    for sign in (1, -1):
+        Hs = sign * H
+        if not all(Hs.extract(idx, idx).det() >= 0 for idx in subsets):
+            continue
+        try:
+            x0, params = Hs.gauss_jordan_solve(-sign * g)
+        except ValueError:  # -g outside the range of H: f is unbounded both ways
+            return False
+        x0 = x0.subs({t: 0 for t in params})
+        return bool(sign * f.subs(dict(zip(xs, x0, strict=True))) > 0)
+    return False
+
+
+def has_no_real_zero(f: sp.Expr) -> bool:
+    """True only if ``f`` provably vanishes for no real values of its parameters.
+
+    Parameters
+    ----------
+    f : sympy.Expr
+        One irreducible factor of a determinant; its symbols are real.
+
+    Returns
+    -------
+    bool
+        ``True`` when one of these proves that f has no real zero:
+
+        * SymPy's assumptions find f positive or negative for all real
+          values (e.g. ``a**2 + b**2 + 1``, ``exp(a) + 1``);
+        * f is a polynomial in one parameter with rational coefficients and
+          Sturm's theorem counts no real root (``Poly.count_roots``; e.g.
+          ``a**2 - 2*a + 5``);
+        * f is a quadratic in several parameters, bounded on one side, whose
+          extreme value is nonzero (e.g. ``a**2 - 2*a*b + b**2 + 1``).
+
+        ``False`` otherwise, including when no proof was found: the factor
+        is then kept as a condition.
+
+    Notes
+    -----
+    Sturm's theorem: P. Henrici, *Applied and Computational Complex
+    Analysis*, vol. 1, Wiley 1974, section 6.3.
+
+    Examples
+    --------
+    >>> a, b = sp.symbols("a b", real=True)
+    >>> has_no_real_zero(a**2 - 2*a + 5), has_no_real_zero(a**2 - 2*a - 5)
+    (True, False)
+    >>> has_no_real_zero(a**2 - 2*a*b + b**2 + 1), has_no_real_zero(a**2 - b**2 + 1)
+    (True, False)
+    """
+    xs = sorted(f.free_symbols, key=lambda v: v.name)
+    if not xs or not all(x.is_real for x in xs):
+        return False
+    if f.is_positive or f.is_negative:
+        return True
+    if not f.is_polynomial(*xs):
+        return False
+    try:
+        if len(xs) == 1:
+            poly = sp.Poly(f, xs[0])
+            if poly.degree() > ROOT_COUNT_MAX_DEGREE or not (
+                poly.domain.is_QQ or poly.domain.is_ZZ
+            ):
+                return False
+            return poly.count_roots() == 0
+        return _semidefinite_quadratic_has_no_zero(f, xs)
+    except (sp.PolynomialError, NotImplementedError, ZeroDivisionError):
+        return False
+
+
 def conditions_of(determinant: sp.Expr | None) -> tuple[str, ...]:
-    """The parameter conditions under which a determinant vanishes."""
+    """The parameter conditions under which a determinant vanishes.
+
+    A factor that provably has no real zero (:func:`has_no_real_zero`) is
+    not a condition: no real parameter value makes it vanish.
+    """
     if determinant is None:
         return ()
     if sp.count_ops(determinant) > FACTOR_LIMIT:
@@ -390,7 +488,9 @@ def conditions_of(determinant: sp.Expr | None) -> tuple[str, ...]:
         _c, factors = sp.factor_list(num)
     except sp.PolynomialError:
         return (f"{num} = 0",) if num.free_symbols else ()
-    return tuple(_describe_zero(f) for f, _mult in factors if f.free_symbols)
+    return tuple(
+        _describe_zero(f) for f, _mult in factors if f.free_symbols and not has_no_real_zero(f)
+    )
 
 
 def _structure(

@@ -544,12 +544,16 @@ class _Reader:
             if "value" not in spec:
                 self.fail(f"{key}.value", "missing: every parameter needs a value")
             value = self.exact(spec["value"], f"{key}.value")
+            value_key = f"{key}.value"
+            value_text = f"nominal {_short(spec['value'])}"
             if name in overrides:
                 text = overrides[name]
                 try:
                     value = parse_number(text)
                 except ExpressionError as exc:
                     raise DesignFileError(f"--set {name}={text}: {exc}", self.where, key) from exc
+                value_key = f"--set {_key_part(name)}"
+                value_text = f"value {_key_part(text)}"
             rng = None
             if "range" in spec:
                 r = spec["range"]
@@ -559,6 +563,13 @@ class _Reader:
                 hi = self.exact(r[1], f"{key}.range[1]")
                 if lo > hi:
                     self.fail(f"{key}.range", f"low {r[0]} is greater than high {r[1]}")
+                if not lo <= value <= hi:
+                    where = "" if value_key.endswith(".value") else f" declared at {key}.range"
+                    self.fail(
+                        value_key,
+                        f"{value_text} lies outside its range "
+                        f"[{_short(r[0])}, {_short(r[1])}]{where}",
+                    )
                 rng = (lo, hi)
             out.append(
                 Parameter(

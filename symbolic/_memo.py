@@ -29,6 +29,7 @@ from . import __version__
 from ._derive import Derivation, derive
 from ._design import Design
 from ._errors import RenderError
+from ._labels import gain_label
 from ._mathtex import (
     equation_lines,
     expr_latex,
@@ -129,14 +130,6 @@ def _matrix_or_numeric(M: sp.Matrix | None, value: np.ndarray) -> tuple[_Math, b
     return _math(_numeric_matrix(value)), False
 
 
-def _entry_label(name: str, i: int, j: int, rows: int, cols: int) -> str:
-    if rows == 1:
-        return f"{name}_{{{j + 1}}}"
-    if cols == 1:
-        return f"{name}_{{{i + 1}}}"
-    return f"{name}_{{{i + 1}{j + 1}}}"
-
-
 def _gain_block(name: str, closed: sp.Matrix | None, value: np.ndarray) -> dict:
     """One gain: its closed-form entries broken over lines, and numbers."""
     rows, cols = value.shape
@@ -145,7 +138,7 @@ def _gain_block(name: str, closed: sp.Matrix | None, value: np.ndarray) -> dict:
     if closed is not None:
         for i in range(closed.shape[0]):
             for j in range(closed.shape[1]):
-                label = _entry_label(name, i, j, rows, cols)
+                label = gain_label(name, i, j, (rows, cols), "tex")
                 entry = _factored(closed[i, j])
                 if len(sp.latex(entry)) > FORMULA_LIMIT:
                     too_long.append(label)
@@ -153,7 +146,10 @@ def _gain_block(name: str, closed: sp.Matrix | None, value: np.ndarray) -> dict:
                 for ln in equation_lines(label, entry):
                     lines.append(_math(ln))
     entries = [
-        {"label": _math(_entry_label(name, i, j, rows, cols)), "value": _math(_num(value[i, j]))}
+        {
+            "label": _math(gain_label(name, i, j, (rows, cols), "tex")),
+            "value": _math(_num(value[i, j])),
+        }
         for i in range(rows)
         for j in range(cols)
     ]
@@ -901,6 +897,8 @@ def memo_robustness_section(d: Derivation) -> tuple[dict | None, dict[str, bytes
         ctx["routh_hurwitz"] = [
             line for line in ctx["routh_hurwitz"] if not re.match(r"^\s*a\d+ > 0:", line)
         ]
+    for row, label in zip(ctx["sensitivity_rows"], ctx.pop("sensitivity_gains_latex"), strict=True):
+        row[0] = _math(f"${label}$")  # the gain's label (symbolic._labels), typeset
     ctx["sensitivity_colspec"] = _math("@{}l" + "r" * (len(ctx["sensitivity_headers"]) - 1) + "@{}")
     return ctx, figures
 

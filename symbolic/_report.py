@@ -14,6 +14,7 @@ import numpy as np
 import sympy as sp
 
 from ._derive import Check, Derivation
+from ._labels import gain_label
 from ._numbers import format_number, format_pole, format_poles
 
 __all__ = ["derivation_json", "derivation_summary", "complex_pairs", "format_number"]
@@ -319,7 +320,7 @@ def derivation_summary(d: Derivation) -> str:
             M = g.closed_form
             for i in range(M.shape[0]):
                 for j in range(M.shape[1]):
-                    w(f"    {g.name}[{i}][{j}] = {M[i, j]}")
+                    w(f"    {gain_label(g.name, i, j, M.shape)} = {M[i, j]}")
     if d.reference is not None:
         r = d.reference
         w(
@@ -370,8 +371,9 @@ def _extensions_summary(d: Derivation, w) -> None:
         w(f"  integral pole {format_pole(ia.integral_pole)}  ({ia.pole_rule})")
         w(f"  [K, k_i] = {_fmt_matrix(ia.K_augmented)}    [{ia.method}]")
         if ia.closed_form is not None:
-            for j in range(ia.closed_form.shape[1]):
-                label = "k_i" if j == ia.closed_form.shape[1] - 1 else f"K[0][{j}]"
+            states = ia.closed_form.shape[1] - 1
+            for j in range(states + 1):
+                label = "k_i" if j == states else gain_label("K", 0, j, (1, states))
                 w(f"    {label} = {ia.closed_form[0, j]}")
         if ia.controllability_determinant is not None:
             w(f"  det of the augmented controllability matrix = {ia.controllability_determinant}")
@@ -388,7 +390,10 @@ def _extensions_summary(d: Derivation, w) -> None:
             w(f"  Ke = {_fmt_matrix(ro.Ke)}    [{ro.method}]")
             if ro.Ke_closed_form is not None:
                 for i in range(ro.Ke_closed_form.shape[0]):
-                    w(f"    Ke[{i}][0] = {ro.Ke_closed_form[i, 0]}")
+                    w(
+                        f"    {gain_label('Ke', i, 0, ro.Ke_closed_form.shape)}"
+                        f" = {ro.Ke_closed_form[i, 0]}"
+                    )
             w("  η' = Â η + B̂ ȳ + F̂ u,  x̂ = T⁻¹ (Ĉ η + D̂ ȳ),  Â = A_bb − Ke A_ab")
     dc = d.discrete
     if dc is not None:

@@ -63,7 +63,7 @@ import math
 import textwrap
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 import sympy as sp
@@ -73,6 +73,7 @@ from ._closed_form import characteristic_coefficients
 from ._derive import Check, Derivation, derive, eigenvalue_check
 from ._design import Design
 from ._errors import BudgetExceeded, DesignFileError
+from ._labels import gain_label
 from ._margins import MarginComparison, MarginReport, compare_margins
 from ._numbers import format_pole, format_poles
 from ._numeric import evaluate_matrix, numeric_ackermann
@@ -838,7 +839,7 @@ def state_feedback_stability(d: Derivation, study: MismatchStudy) -> StateFeedba
 class GainSensitivity:
     """(p/g)·∂g/∂p for one gain entry g and one parameter p."""
 
-    gain: str  # "K[0][1]", "L[2][0]", "N"
+    gain: str  # "K_2", "L_3", "N" (symbolic._labels.gain_label)
     parameter: str
     closed_form: sp.Expr | None
     value: float | None  # at the nominal values; None where g = 0 there
@@ -859,27 +860,33 @@ class SensitivityTable:
         raise KeyError((gain, parameter))
 
 
+def _entry_labels(d: Derivation, style: Literal["text", "tex"] = "text") -> list[str]:
+    """Labels of every entry of K, L (row-major) and N, as :func:`gain_label` writes them."""
+    gains = [(g.name, g.value.shape) for g in (d.K, d.L)]
+    if d.reference is not None:
+        gains.append(("N", d.reference.value.shape))
+    return [
+        gain_label(name, i, j, shape, style)
+        for name, shape in gains
+        for i in range(shape[0])
+        for j in range(shape[1])
+    ]
+
+
 def _gain_entries(d: Derivation) -> list[tuple[str, sp.Expr | None, float]]:
-    out: list[tuple[str, sp.Expr | None, float]] = []
+    """(label, closed form or None, value) of every entry, in the order of :func:`_entry_labels`."""
+    forms: list[tuple[sp.Expr | None, float]] = []
     for g in (d.K, d.L):
         cf = g.closed_form
         for i in range(g.value.shape[0]):
             for j in range(g.value.shape[1]):
-                out.append(
-                    (f"{g.name}[{i}][{j}]", None if cf is None else cf[i, j], float(g.value[i, j]))
-                )
+                forms.append((None if cf is None else cf[i, j], float(g.value[i, j])))
     if d.reference is not None:
         ref = d.reference
+        single = ref.value.shape[0] == 1
         for i in range(ref.value.shape[0]):
-            label = "N" if ref.value.shape[0] == 1 else f"N[{i}]"
-            out.append(
-                (
-                    label,
-                    ref.closed_form if ref.value.shape[0] == 1 else None,
-                    float(ref.value[i, 0]),
-                )
-            )
-    return out
+            forms.append((ref.closed_form if single else None, float(ref.value[i, 0])))
+    return [(label, f, v) for label, (f, v) in zip(_entry_labels(d), forms, strict=True)]
 
 
 def _sensitivity_forms(
@@ -918,7 +925,7 @@ def _numeric_gains(d: Derivation, values: np.ndarray) -> np.ndarray:
 
 
 def gain_sensitivities(
-    d: Derivation, *, budget: float | None = None, factor: bool = True, closed_form: bool = True
+    d: Derivation, *, budget: float | None = None, factor: bool = True
 ) -> SensitivityTable:
     """Normalised sensitivities (p/g)·∂g/∂p of every gain entry at the nominal values.
 
@@ -929,6 +936,8 @@ def gain_sensitivities(
     (over budget, or several inputs or outputs) the sensitivities of a
     single-input, single-output design come from central differences of the
     floating-point Ackermann gains instead (step 1e-6 relative).
+    ``factor=False`` leaves the formulas unfactored (for callers that show
+    only the numbers); the values are the same exact evaluations.
 
     The normalised sensitivity is the relative change of the gain per
     relative change of the parameter (P. M. Frank, *Introduction to System
@@ -941,7 +950,7 @@ def gain_sensitivities(
     entries = _gain_entries(d)
     notes: list[str] = []
     forms = None
-    if closed_form and entries and all(e[1] is not None for e in entries) and params:
+    if entries and all(e[1] is not None for e in entries) and params:
         seconds = d.design.symbolic_budget_seconds if budget is None else budget
         try:
             forms = run_bounded(
@@ -1048,9 +1057,10 @@ def robustness_study(
 ) -> RobustnessReport:
     """Mismatch study, Routh–Hurwitz conditions, sensitivities and margins of a derivation.
 
-    ``factor=False`` (the memo, which prints the sensitivities as numbers only) skips the
-    symbolic sensitivity formulas and takes central differences of the floating-point gains,
-    which agree with the closed forms to about 1e-6 (tests/test_robust.py).
+    The sensitivities always come from :func:`gain_sensitivities` with the exact
+    derivatives of the closed-form gains when these exist, so ``gainsmith robustness`` and
+    the memo print the same numbers; ``factor=False`` (the memo, which prints the
+    sensitivities as numbers only) merely skips factoring their formulas for display.
     """
     import time
 
@@ -1062,7 +1072,7 @@ def robustness_study(
     stability = state_feedback_stability(d, study)
     timings["routh_hurwitz"] = time.perf_counter() - t
     t = time.perf_counter()
-    sens = gain_sensitivities(d, budget=budget, factor=factor, closed_form=factor)
+    sens = gain_sensitivities(d, budget=budget, factor=factor)
     timings["sensitivities"] = time.perf_counter() - t
     t = time.perf_counter()
     notes: list[str] = list(sens.notes)
@@ -1145,12 +1155,18 @@ def _check_json(c: Check) -> dict:
     }
 
 
+def _sensitivity_values(table: SensitivityTable) -> dict[str, dict[str, float | None]]:
+    """``{gain: {parameter: value}}``, None where the gain is zero at the nominal values."""
+    sens: dict[str, dict[str, float | None]] = {}
+    for e in table.entries:
+        sens.setdefault(e.gain, {})[e.parameter] = _clean(e.value)
+    return sens
+
+
 def robustness_json(r: RobustnessReport) -> dict:
     """The machine-readable result of ``gainsmith robustness --json``."""
     m = r.mismatch
-    sens: dict[str, dict[str, float | None]] = {}
-    for e in r.sensitivities.entries:
-        sens.setdefault(e.gain, {})[e.parameter] = _clean(e.value)
+    sens = _sensitivity_values(r.sensitivities)
     return {
         "title": r.derivation.design.title,
         "design_file": r.derivation.design.path,
@@ -1404,7 +1420,8 @@ def memo_robustness(
     from . import _figures
     from . import _robust_figures as rf
 
-    # the memo shows the sensitivities as numbers: skip factoring their formulas
+    # the memo shows the sensitivities as numbers: the same exact derivatives as the
+    # robustness command, only their formulas are not factored
     r = robustness_study(d, points, budget=budget, factor=False)
     m = r.mismatch
     name = d.design.slug
@@ -1495,7 +1512,9 @@ def memo_robustness(
         "routh_hurwitz": list(r.stability.lines),
         "routh_hurwitz_conditions": conds,
         "sensitivity_method": r.sensitivities.method,
+        "sensitivities": _sensitivity_values(r.sensitivities),
         "sensitivity_headers": ["gain", *r.sensitivities.parameters],
+        "sensitivity_gains_latex": _entry_labels(d, "tex"),
         "sensitivity_rows": [
             [g]
             + [

@@ -58,6 +58,7 @@ from ._export import (
     gain_formulas,
 )
 from ._figures import figure_files
+from ._labels import gain_label
 from ._numeric import check_eigenvalues, scipy_placement
 
 __all__ = [
@@ -133,16 +134,8 @@ class GainSchedule:
     @property
     def gain_columns(self) -> list[str]:
         n, m, p = self.formulas.shape
-        k = (
-            [f"K_{j + 1}" for j in range(n)]
-            if m == 1
-            else [f"K_{i + 1}_{j + 1}" for i in range(m) for j in range(n)]
-        )
-        ell = (
-            [f"L_{i + 1}" for i in range(n)]
-            if p == 1
-            else [f"L_{i + 1}_{j + 1}" for i in range(n) for j in range(p)]
-        )
+        k = [gain_label("K", i, j, (m, n)) for i in range(m) for j in range(n)]
+        ell = [gain_label("L", i, j, (n, p)) for i in range(n) for j in range(p)]
         return [*k, *ell, "N"]
 
     @property

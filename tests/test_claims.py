@@ -272,7 +272,7 @@ def test_tolerance_option_out_of_range_is_bad_input(capsys, write_design, bad):
 def test_rounding_that_moves_the_poles_does_not_hold(capsys, write_design):
     # Invented scenario (demo values): a telescope focuser driven through a
     # flexible coupling.  Rounding K to 4 significant figures keeps the gain
-    # within 1e-4 but the position gain is the small sum K[0][0] + K[0][2] of two
+    # within 1e-4 but the position gain is the small sum K_1 + K_3 of two
     # large, nearly opposite entries, so the poles move by about 10 %.  The
     # check is the defining property eig(A − B K), computed here with NumPy,
     # and SciPy's place_poles is the reference gain.
@@ -322,7 +322,7 @@ def test_rounding_that_moves_the_poles_does_not_hold(capsys, write_design):
 
 
 def test_repeated_observer_pole_is_held_to_the_root_of_the_tolerance(capsys, write_design):
-    # Ogata, 5th ed., Example 10-5 (from memory) with L[1][0] written 20.002: the
+    # Ogata, 5th ed., Example 10-5 (from memory) with L_2 written 20.002: the
     # gain is within 1.6e-5, but a double pole splits as the square root of the
     # perturbation: s² + 20.002 s + 100 has roots -10.001 ± 0.1414 (quadratic
     # formula), 1.4 % from -10.  The bound is tol**(1/2) = 0.0316 (J. H. Wilkinson,
@@ -335,7 +335,7 @@ def test_repeated_observer_pole_is_held_to_the_root_of_the_tolerance(capsys, wri
     assert claim["pole_error"] == pytest.approx(independent_pole_error(own, [-10, -10]), rel=1e-6)
     assert claim["pole_tolerance"] == pytest.approx(1e-3**0.5)
     assert claim["holds"] and code == 0
-    # L[1][0] = 20.1: the gain is still within 0.082 % (norm), but the pair splits
+    # L_2 = 20.1: the gain is still within 0.082 % (norm), but the pair splits
     # into -9.05 and -11.1 (roots of s² + 20.1 s + 100), 11 % off: beyond 0.0316
     path = write_design(ogata_10_5("L = [120.6, 20.1]"), "off.toml")
     code, doc = run_json(capsys, path)
@@ -359,7 +359,7 @@ def test_one_wrong_entry_of_K_fails_and_names_entry_and_poles(capsys, write_desi
     assert "DOES NOT HOLD" in out and "CLAIMS DO NOT HOLD" in out
     own = np.linalg.eigvals(OGATA_10_1_A - OGATA_10_1_B @ np.array([claimed]))
     (line,) = [ln for ln in out.splitlines() if "the achieved poles are" in ln]
-    assert "K[0][1]" in line and "K[0][0]" not in line and "K[0][2]" not in line
+    assert "K_2" in line and "K_1" not in line and "K_3" not in line
     assert "9.1 %" in line  # |50 − 55| / 55
     assert_close_to_three_figures(achieved_poles_in(line), own)
 
@@ -381,7 +381,7 @@ def test_one_wrong_entry_of_L_fails_and_names_entry_and_poles(capsys, write_desi
     assert code == 1
     (claim,) = doc["claims"]
     own = np.linalg.eigvals(OGATA_10_5_A - np.array([claimed]).T @ OGATA_10_5_C)
-    assert "L[0][0]" in claim["explanation"] and "L[1][0]" not in claim["explanation"]
+    assert "L_1" in claim["explanation"] and "L_2" not in claim["explanation"]
     assert_close_to_three_figures(achieved_poles_in(claim["explanation"]), own)
     assert same_multiset(poles_from_pairs(claim["achieved_poles"]), own, 1e-9)
 
@@ -567,7 +567,7 @@ def test_subprocess_exit_code_and_table(write_design):
         timeout=60,
     )
     assert proc.returncode == 1, proc.stderr
-    assert "K[0][1]" in proc.stdout and "CLAIMS DO NOT HOLD" in proc.stdout
+    assert "K_2" in proc.stdout and "CLAIMS DO NOT HOLD" in proc.stdout
     assert proc.stderr == ""
 
 
@@ -635,6 +635,111 @@ def test_verdict_follows_its_definition(direction, size, tolerance):
     np.testing.assert_allclose(verdict.difference, (claimed - published).reshape(1, 3), atol=1e-9)
     assert verdict.holds == (rel <= tolerance and pole_err <= tolerance)
     if not verdict.holds:
-        assert re.search(r"K\[0\]\[\d\]", verdict.explanation) or "significant figures" in (
+        assert re.search(r"K_\d\b", verdict.explanation) or "significant figures" in (
             verdict.explanation
         )
+
+
+# --------------------------------------------------------------------------
+# Explanations quote the error that was judged, its tolerance, and numbers
+# that differ when the values differ
+# --------------------------------------------------------------------------
+def _ogata_verdict(K=None, N=None, tolerance=1e-3):
+    _design, derivation = ogata_derivation()
+    claims = Claims(K=None if K is None else (tuple(K),), reference_gain=N)
+    (verdict,) = check_claims(derivation, claims, tolerance).verdicts
+    return verdict
+
+
+def test_explanation_states_the_judged_error_beside_the_tolerance():
+    # Ogata, 5th ed., Example 10-1 (from memory), K = [199, 55, 8] with the last
+    # entry written 8.3: the whole matrix is off by 0.3/‖[199, 55, 8]‖ = 0.145 %
+    # while that entry alone is off by 0.3/8 = 3.75 %.
+    verdict = _ogata_verdict(K=[199, 55, 8.3], tolerance=1e-3)
+    rel = 0.3 / np.linalg.norm(OGATA_10_1_K)
+    assert f"{100 * rel:.2g}" == "0.15"
+    assert verdict.explanation.startswith(
+        "K differs from gainsmith's K by 0.15 % (tolerance 0.1 %): K_3 differs by 3.8 %"
+    ), verdict.explanation
+    # the same claim judged at 5 %: it holds, and the sentence quotes 0.15 %, not 3.8 %
+    verdict = _ogata_verdict(K=[199, 55, 8.3], tolerance=5e-2)
+    assert verdict.holds
+    assert verdict.explanation.startswith(
+        "K differs from gainsmith's K by 0.15 % (tolerance 5.0 %)"
+    ), verdict.explanation
+
+
+def test_a_passing_claim_still_names_an_entry_off_by_more_than_the_tolerance():
+    # Ogata 10-1 (from memory) with K = [199, 55.5, 8.1] at 1 %: the matrix is off
+    # by ‖[0, 0.5, 0.1]‖/‖K‖ = 0.25 % and the poles by under 1 % (checked here with
+    # NumPy), so the claim holds, but K_3 alone is off by 0.1/8 = 1.25 %.
+    claimed = [199, 55.5, 8.1]
+    own = np.linalg.eigvals(OGATA_10_1_A - OGATA_10_1_B @ np.array([claimed]))
+    assert independent_pole_error(own, OGATA_10_1_POLES) < 1e-2
+    verdict = _ogata_verdict(K=claimed, tolerance=1e-2)
+    assert verdict.holds
+    assert "by 0.25 % (tolerance 1.0 %)" in verdict.explanation
+    assert re.search(
+        r"its entry K_3 alone differs by 1\.[23] % \(claimed 8\.1, derived 8\)",
+        verdict.explanation,
+    ), verdict.explanation
+    # an exact claim names no entry
+    assert "alone" not in _ogata_verdict(K=OGATA_10_1_K).explanation
+
+
+def _quoted(pattern: str, text: str) -> tuple[str, str]:
+    m = re.search(pattern, text)
+    assert m, text
+    return m.group(1), m.group(2)
+
+
+def test_a_failing_claim_never_prints_two_equal_numbers():
+    # K_1 = 199.00001 instead of 199 at a tolerance of 1e-9: six significant
+    # figures would print "claimed 199, derived 199" and the poles, to three,
+    # "-2±4j, -10 instead of -2±4j, -10".
+    verdict = _ogata_verdict(K=[199.00001, 55, 8], tolerance=1e-9)
+    assert not verdict.holds
+    c, d = _quoted(r"claimed ([-\d.e+]+), derived ([-\d.e+]+)\)", verdict.explanation)
+    assert (c, d) == ("199.00001", "199")
+    got, want = _quoted(r"the achieved poles are (.+?) instead of (.+?) \(", verdict.explanation)
+    assert got != want
+    own = np.linalg.eigvals(OGATA_10_1_A - OGATA_10_1_B @ np.array([[199.00001, 55, 8]]))
+    assert same_multiset(parse_poles(got), own, 1e-6)
+    # N: with C = [1, 0, 0] the reference gain is the constant coefficient 200 of
+    # (s + 10)(s² + 4s + 20) (Franklin et al., 7th ed., Sec. 7.5, from memory)
+    verdict = _ogata_verdict(N=199.99999, tolerance=1e-9)
+    assert not verdict.holds
+    c, d = _quoted(r"claimed ([-\d.e+]+), derived ([-\d.e+]+) ", verdict.explanation)
+    assert (c, d) == ("199.99999", "200")
+    dc = re.search(r"would be ([-\d.e+]+) instead of 1", verdict.explanation).group(1)
+    assert dc != "1" and float(dc) == pytest.approx(199.99999 / 200, rel=1e-7)
+
+
+def test_a_pole_error_just_over_its_tolerance_reads_differently_from_it():
+    # Ogata 10-1 (from memory) with K = [199, 55.2, 8.1]: the poles are off by
+    # 1.002 % (NumPy, here) against a 1 % tolerance; two-figure percentages
+    # would print "1.0 %" twice.
+    claimed = [199, 55.2, 8.1]
+    own = np.linalg.eigvals(OGATA_10_1_A - OGATA_10_1_B @ np.array([claimed]))
+    err = independent_pole_error(own, OGATA_10_1_POLES)
+    assert 1e-2 < err < 1.01e-2
+    verdict = _ogata_verdict(K=claimed, tolerance=1e-2)
+    assert not verdict.holds
+    off, tol = _quoted(r"off by ([\d.e+-]+) %, tolerance ([\d.e+-]+) %", verdict.explanation)
+    assert off != tol and float(tol) == 1.0
+    assert abs(float(off) - 100 * err) <= 5e-3
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    a=st.floats(allow_nan=False, allow_infinity=False, width=64),
+    b=st.floats(allow_nan=False, allow_infinity=False, width=64),
+)
+def test_distinct_numbers_tells_different_doubles_apart(a, b):
+    from symbolic._claims import distinct_numbers
+
+    ta, tb = distinct_numbers(a, b)
+    assert (ta == tb) == (a == b)
+    # each text is the number rounded to at least six significant figures
+    for x, t in ((a, ta), (b, tb)):
+        assert float(t) == pytest.approx(x, rel=5e-6, abs=1e-300)

@@ -379,6 +379,12 @@ BAD_FILES = [
         id="nan",
     ),
     pytest.param(
+        HEAT_SINK.replace('unit = "K/W"', 'unit = "K/W"\nrange = [1, 3]'),
+        "parameters.Rth.value",
+        "nominal 0.8 lies outside its range [1, 3]",
+        id="nominal-outside-range",
+    ),
+    pytest.param(
         HEAT_SINK.replace("settling_time = 60", "settling_time = -60"),
         "controller.settling_time",
         "expected a positive time in seconds",
@@ -447,11 +453,16 @@ def test_bad_file_exits_2_with_one_line(write_design, text, key, problem):
         pytest.param(["tau=inf"], "parameters.tau", "--set tau=inf: "),
         pytest.param(["tau"], "--set tau", "expected NAME=VALUE"),
         pytest.param(["=3"], "--set =3", "expected NAME=VALUE"),
+        pytest.param(
+            ["Rth=1.5"],
+            "--set Rth",
+            "value 1.5 lies outside its range [0.6, 1.0] declared at parameters.Rth.range",
+        ),
     ],
-    ids=["undeclared", "not-a-number", "inf", "no-equals", "no-name"],
+    ids=["undeclared", "not-a-number", "inf", "no-equals", "no-name", "outside-range"],
 )
 def test_bad_set_exits_2_with_one_line(write_design, set_args, key, problem):
-    path = write_design(HEAT_SINK)
+    path = write_design(HEAT_SINK.replace('unit = "K/W"', 'unit = "K/W"\nrange = [0.6, 1.0]'))
     argv = ["derive", path]
     for item in set_args:
         argv += ["--set", item]

@@ -203,6 +203,67 @@ def test_conditions_name_the_parameter():
     assert d.observability.conditions == ()  # C = [1, 0] always observes this plant
 
 
+# A plant built so that its structure determinants carry factors without real
+# zeros next to factors with them: det [B, AB] = -k^2 (a^2 - 2a + 5)^2 (a - 3)^2
+# and det [C; CA] = (a^2 - 2ab + b^2 + 1)^2 for A = [[0, 1], [0, 0]].
+NO_REAL_ROOT = """
+[parameters.a]
+value = 1
+[parameters.b]
+value = 0.5
+[parameters.k]
+value = 2
+[plant]
+A = [[0, 1], [0, 0]]
+B = [[0], ["k*(a**2 - 2*a + 5)*(a - 3)"]]
+C = [["a**2 - 2*a*b + b**2 + 1", 0]]
+[controller]
+poles = ["-4+3j", "-4-3j"]
+[observer]
+poles = ["-16+12j", "-16-12j"]
+"""
+
+
+def test_factors_without_real_zeros_are_not_conditions():
+    d = run(NO_REAL_ROOT)
+    a, b, k = (d.design.symbols[n] for n in ("a", "b", "k"))
+    # The determinants themselves still carry every factor ...
+    assert sp.expand(d.controllability.determinant + (k * (a**2 - 2 * a + 5) * (a - 3)) ** 2) == 0
+    assert sp.expand(d.observability.determinant - (a**2 - 2 * a * b + b**2 + 1) ** 2) == 0
+    # ... but only the factors with a real zero are listed: a^2 - 2a + 5 = (a - 1)^2 + 4
+    # and a^2 - 2ab + b^2 + 1 = (a - b)^2 + 1 are at least 4 and 1 for real a, b.
+    assert sorted(d.controllability.conditions) == ["a = 3", "k = 0"]
+    assert d.observability.conditions == ()
+    # the dropped factors really are bounded away from zero (sampled check)
+    rng = np.random.default_rng(7)
+    for x, y in rng.uniform(-50, 50, size=(200, 2)):
+        assert x**2 - 2 * x + 5 >= 4 - 1e-9 and (x - y) ** 2 + 1 >= 1
+
+
+@pytest.mark.parametrize(
+    "factor, real_zero",
+    [
+        ("a**2 - 2*a + 5", False),  # discriminant 4 - 20 < 0
+        ("a**2 - 2*a - 5", True),  # discriminant 4 + 20 > 0
+        ("a**4 + 1", False),
+        ("a**3 + 1", True),  # odd degree
+        ("a**2 + b**2", True),  # zero at a = b = 0
+        ("a**2 + b**2 + 1", False),
+        ("a**2 - 2*a*b + 2*b**2 + 1", False),  # (a - b)^2 + b^2 + 1
+        ("a**2 + 4*a*b + b**2 + 1", True),  # indefinite: a = 1, b = -1 gives -1
+        ("a*b + 1", True),
+        ("-(a - b)**2 - (b + 1)**2 - 3", False),
+        ("exp(a) + 1", False),
+    ],
+)
+def test_has_no_real_zero(factor, real_zero):
+    from symbolic._derive import has_no_real_zero
+    from symbolic._expressions import parse_expression
+
+    names = {n: sp.Symbol(n, real=True) for n in "ab"}
+    assert has_no_real_zero(sp.expand(parse_expression(factor, names))) is (not real_zero)
+
+
 def test_set_overrides_value():
     d = run(MASS_SPRING, overrides={"m": "3.1", "k": "40"})
     assert d.parameter_values["m"] == pytest.approx(3.1)

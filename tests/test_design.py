@@ -300,6 +300,19 @@ PARAMETERS = [
         "parameters.kf.range[1]",
         r"plain decimal",
     ),
+    # A nominal value outside its own declared range contradicts the file.
+    case(
+        "nominal-above-range",
+        sub("value = 0.8", "value = 1.2"),
+        "parameters.kf.value",
+        r"^nominal 1\.2 lies outside its range \[0\.7, 0\.9\]$",
+    ),
+    case(
+        "nominal-below-range",
+        sub("value = 0.8", "value = 0.69"),
+        "parameters.kf.value",
+        r"^nominal 0\.69 lies outside its range \[0\.7, 0\.9\]$",
+    ),
 ]
 
 # Booleans, arrays, NaN/inf (TOML nan, inf) and huge integers where numbers belong.
@@ -836,6 +849,12 @@ def test_errors_are_also_value_errors(write_design):
         pytest.param({"m": "inf"}, "parameters.m", r"--set m=inf: ", id="inf"),
         pytest.param({"m": "1e99"}, "parameters.m", r"--set m=1e99: .*too large", id="huge"),
         pytest.param({"m": "0.4*2"}, "parameters.m", r"--set m=0.4\*2: ", id="expression"),
+        pytest.param(
+            {"kf": "0.95"},
+            "--set kf",
+            r"^value 0\.95 lies outside its range \[0\.7, 0\.9\] declared at parameters\.kf\.range$",
+            id="outside-range",
+        ),
     ],
 )
 def test_bad_set_override(write_design, overrides, key, problem):
@@ -870,7 +889,7 @@ DERIVE_ERRORS = [
     ),
     case(
         "uncontrollable-at-the-values",
-        sub("value = 0.8", "value = 0"),
+        sub("range = [0.7, 0.9]", "range = [0, 0.9]", sub("value = 0.8", "value = 0")),
         "plant",
         r"uncontrollable at the evaluated parameter values .*kf = 0.*\(the plant is "
         r"uncontrollable where kf = 0\)",
@@ -960,6 +979,14 @@ def test_states_as_name_unit_tables_and_mixed():
     assert (x.name, x.unit, x.description) == ("x", "m", "plunger")
     assert (v.name, v.unit) == ("v", "")
     assert (design.plant.outputs[0].name, design.plant.outputs[0].unit) == ("pos", "m")
+
+
+def test_nominal_on_the_range_ends_is_accepted(write_design):
+    # The range is closed: both ends are admissible values, from the file or from --set.
+    design = parse_design(sub("value = 0.8", "value = 0.9"), "r.toml")
+    assert {p.name: p.value for p in design.parameters}["kf"] == sp.Rational(9, 10)
+    design = load_design(write_design(BASE), {"kf": "0.7"})
+    assert {p.name: p.value for p in design.parameters}["kf"] == sp.Rational(7, 10)
 
 
 def test_range_low_equal_high_is_accepted():

@@ -355,7 +355,7 @@ def test_sensitivity_closed_forms(levitated):
         if e.value is not None:
             assert float(sp.N(e.closed_form.xreplace(values))) == pytest.approx(e.value, rel=1e-12)
     # L depends on neither g nor ... : a parameter absent from a gain gives exactly 0
-    g_entries = [e for e in table.entries if e.gain == "L[0][0]" and e.parameter == "g"]
+    g_entries = [e for e in table.entries if e.gain == "L_1" and e.parameter == "g"]
     assert g_entries[0].closed_form == 0
 
 
@@ -389,7 +389,7 @@ def test_json_keys(capsys):
     assert len(out["mismatch"]["least_stable_pole"]) == 2
     assert set(out["mismatch"]["at"]) == {"m", "k", "c", "kf"}
     assert all(isinstance(line, str) for line in out["routh_hurwitz"])
-    assert set(out["sensitivities"]) == {"K[0][0]", "K[0][1]", "L[0][0]", "L[1][0]", "N"}
+    assert set(out["sensitivities"]) == {"K_1", "K_2", "L_1", "L_2", "N"}
     assert set(out["sensitivities"]["N"]) == {"m", "k", "c", "kf"}
     for loop in ("state_feedback", "observer_based"):
         m = out["margins"][loop]
@@ -524,6 +524,26 @@ def test_memo_context_and_figures(bearing):
     for stem in stems:
         assert figures[f"{stem}.pdf"].startswith(b"%PDF")
         assert figures[f"{stem}.png"].startswith(b"\x89PNG")
+
+
+@pytest.mark.parametrize("worked", ["focus_actuator", "belt_drive"])
+def test_memo_sensitivities_are_the_robustness_commands(worked, capsys):
+    # The memo and `gainsmith robustness --json` print one set of sensitivities:
+    # the exact derivatives of the closed-form gains, to the last bit (a
+    # finite-difference copy would agree only to about 1e-6).
+    path = WORKED / f"{worked}.toml"
+    assert main(["robustness", "--json", str(path), "--points", "2"]) in (0, 1)
+    out = json.loads(capsys.readouterr().out)
+    assert out["sensitivity_method"].startswith("closed form")
+    ctx, _figures = memo_robustness(derive(load_design(path)), 2)
+    assert ctx["sensitivity_method"] == out["sensitivity_method"]
+    assert ctx["sensitivities"] == out["sensitivities"]
+    # the table the memo prints shows those numbers, row by row
+    names = ctx["sensitivity_headers"][1:]
+    for row in ctx["sensitivity_rows"]:
+        want = out["sensitivities"][row[0]]
+        shown = ["–" if want[n] is None else f"{want[n]:.4g}" for n in names]
+        assert row[1:] == shown, row[0]
 
 
 def test_mismatch_figure_subsamples_large_grids(monkeypatch):
