@@ -960,8 +960,13 @@ def assemble_memo(design: Design) -> tuple[Derivation, MemoDocument]:
     return d, dataclasses.replace(doc, figures=files, requirements=table)
 
 
-def write_memo(design: Design, out_dir: str | Path, pdf: bool = True) -> int:
-    """The ``gainsmith memo`` command: derive, simulate, render, compile, publish."""
+def write_memo(design: Design, out_dir: str | Path, pdf: bool = True, as_json: bool = False) -> int:
+    """The ``gainsmith memo`` command: derive, simulate, render, compile, publish.
+
+    Exit code 0 when every row of the requirements table passes, 1 otherwise (the memo is
+    written either way and lists the open items).  ``as_json`` prints the files written and
+    the requirements table as JSON instead of the summary lines.
+    """
     from ._pdf import compile_pdf, find_tex_engine
     from ._publish import publish
 
@@ -1000,6 +1005,24 @@ def write_memo(design: Design, out_dir: str | Path, pdf: bool = True) -> int:
     out.mkdir(parents=True, exist_ok=True)
     written = publish(files, out)
     main = [p for p in written if p.suffix in (".pdf", ".tex", ".md") and p.parent == out]
+    table = doc.requirements
+    if as_json:
+        from ._report import dumps
+
+        if message.startswith("PDF skipped"):
+            print(message, file=sys.stderr)
+        print(
+            dumps(
+                {
+                    "output": str(out),
+                    "files": sorted(str(p.relative_to(out)) for p in written),
+                    "pdf": f"{doc.name}.pdf" in files,
+                    "requirements": table.to_json(),
+                    "passed": table.passed,
+                }
+            )
+        )
+        return 0 if table.passed else 1
     print(
         f"memo written to {out}/: "
         + ", ".join(sorted(p.name for p in main))
@@ -1007,7 +1030,6 @@ def write_memo(design: Design, out_dir: str | Path, pdf: bool = True) -> int:
     )
     if message:
         print(message, file=sys.stderr if message.startswith("PDF skipped") else sys.stdout)
-    table = doc.requirements
     print(table.verdict)
     for item in table.open_items:
         print(f"  open item {item}")

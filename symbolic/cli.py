@@ -61,7 +61,7 @@ def _cmd_derive(args) -> int:
 def _cmd_memo(args) -> int:
     from ._memo import write_memo
 
-    return write_memo(_load(args), args.output, pdf=not args.no_pdf)
+    return write_memo(_load(args), args.output, pdf=not args.no_pdf, as_json=args.json)
 
 
 def _cmd_simulate(args) -> int:
@@ -131,6 +131,9 @@ def build_parser() -> argparse.ArgumentParser:
     common(p)
     p.add_argument("-o", "--output", default="memo", help="output folder (default: ./memo)")
     p.add_argument("--no-pdf", action="store_true", help="do not compile the PDF")
+    p.add_argument(
+        "--json", action="store_true", help="print the files written and the requirements table"
+    )
     p.set_defaults(func=_cmd_memo)
 
     p = sub.add_parser("simulate", help="simulate the step response and compare with the specs")

@@ -138,6 +138,11 @@ def test_actuator_limit_fails_the_design_and_says_by_how_much(write_design, tmp_
     assert "not acceptable as it stands" in md and "Open items" in md
     assert "every requirement below is met" not in md
     assert "Open items" in tex and "Every numeric and symbolic check" not in tex
+    code, out = run("memo", path, "-o", tmp_path / "memo-json", "--no-pdf", "--json")
+    data = json.loads(out)
+    assert code == 1 and data["passed"] is False and data["pdf"] is False
+    assert data["requirements"]["open_items"] == list(table.open_items)
+    assert any(f.endswith(".md") for f in data["files"])
 
 
 def test_slow_estimator_is_an_open_item(write_design):
