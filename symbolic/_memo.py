@@ -385,28 +385,11 @@ def _shipped_gains(d: Derivation, ctrl) -> list[_Math]:
 
 
 def _requirements_context(table) -> dict:
-    rows = [
-        {
-            "number": r.number,
-            "label": r.label,
-            "requested": r.requested,
-            "achieved": r.achieved,
-            "passed": r.passed,
-            "shortfall": r.shortfall,
-            "basis": r.basis,
-            "source": r.source,
-        }
-        for r in table.rows
-    ]
-    return {
-        "controller": table.controller,
-        "rows": rows,
-        "open_items": list(table.open_items),
-        "passed": table.passed,
-        "count": len(rows),
-        "failed": sum(not r.passed for r in table.rows),
-        "verdict": table.verdict,
-    }
+    """The requirements table for the templates: its JSON form plus two counts."""
+    ctx = table.to_json()
+    ctx["count"] = len(ctx["rows"])
+    ctx["failed"] = sum(not r["passed"] for r in ctx["rows"])
+    return ctx
 
 
 def build_context(
