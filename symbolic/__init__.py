@@ -28,7 +28,7 @@ from __future__ import annotations
 import importlib
 from typing import TYPE_CHECKING
 
-from ._errors import (
+from .runtime.errors import (
     BudgetExceeded,
     DesignFileError,
     ExpressionError,
@@ -41,27 +41,27 @@ from ._errors import (
 
 #: Public names loaded on first use (PEP 562), so that ``import symbolic`` and the
 #: command line start at once: SymPy and SciPy load when a name needs them, and the
-#: command line can start its SciPy sidecar first (:mod:`symbolic._sidecar`).
+#: command line can start its SciPy sidecar first (:mod:`symbolic.runtime.sidecar`).
 _LAZY = {
-    "Check": "_derive",
-    "CompensatorResult": "_derive",
-    "Derivation": "_derive",
-    "GainResult": "_derive",
-    "PoleChoice": "_derive",
-    "ReferenceGainResult": "_derive",
-    "SeparatedLoop": "_derive",
-    "StructureReport": "_derive",
-    "derive": "_derive",
-    "Design": "_design",
-    "Parameter": "_design",
-    "Plant": "_design",
-    "Signal": "_design",
-    "load_design": "_design",
-    "parse_design": "_design",
+    "Check": "derivation.pipeline",
+    "CompensatorResult": "derivation.pipeline",
+    "Derivation": "derivation.pipeline",
+    "GainResult": "derivation.pipeline",
+    "PoleChoice": "derivation.pipeline",
+    "ReferenceGainResult": "derivation.pipeline",
+    "SeparatedLoop": "derivation.pipeline",
+    "StructureReport": "derivation.pipeline",
+    "derive": "derivation.pipeline",
+    "Design": "input.design",
+    "Parameter": "input.design",
+    "Plant": "input.design",
+    "Signal": "input.design",
+    "load_design": "input.design",
+    "parse_design": "input.design",
 }
 
 if TYPE_CHECKING:  # pragma: no cover
-    from ._derive import (
+    from .derivation.pipeline import (
         Check,
         CompensatorResult,
         Derivation,
@@ -72,7 +72,7 @@ if TYPE_CHECKING:  # pragma: no cover
         StructureReport,
         derive,
     )
-    from ._design import Design, Parameter, Plant, Signal, load_design, parse_design
+    from .input.design import Design, Parameter, Plant, Signal, load_design, parse_design
 
 
 def __getattr__(name: str):
@@ -88,7 +88,7 @@ def __dir__() -> list[str]:
     return sorted(set(globals()) | set(_LAZY))
 
 
-__version__ = "0.1.0"
+from .runtime.version import __version__  # noqa: E402
 
 __all__ = [
     "BudgetExceeded",

@@ -12,13 +12,13 @@ import os
 import sys
 from collections.abc import Sequence
 
-from ._errors import GainsmithError
+from .runtime.errors import GainsmithError
 
 __all__ = ["main", "run"]
 
 EXIT_OK, EXIT_FAILED_CHECK, EXIT_BAD_INPUT, EXIT_BUG = 0, 1, 2, 3
 
-#: Commands that get the SciPy sidecar (symbolic._sidecar): those whose main process
+#: Commands that get the SciPy sidecar (symbolic.runtime.sidecar): those whose main process
 #: need not load ``scipy.signal`` (the slowest part of SciPy to import).  The memo loads
 #: the rest of SciPy for its simulation, but leaves ``place_poles``, ``ss2tf`` and
 #: ``freqresp`` to the sidecar, which loads them while the memo loads SymPy and
@@ -28,7 +28,7 @@ SIDECAR_COMMANDS = frozenset({"derive", "export", "memo"})
 
 
 def _overrides(pairs: Sequence[str] | None, design: str) -> dict[str, str]:
-    from ._errors import DesignFileError
+    from .runtime.errors import DesignFileError
 
     out: dict[str, str] = {}
     for item in pairs or ():
@@ -41,14 +41,14 @@ def _overrides(pairs: Sequence[str] | None, design: str) -> dict[str, str]:
 
 
 def _load(args):
-    from ._design import load_design
+    from .input.design import load_design
 
     return load_design(args.design, _overrides(args.set, args.design))
 
 
 def _cmd_derive(args) -> int:
-    from ._derive import derive
-    from ._report import derivation_json, derivation_summary, dumps
+    from .derivation.pipeline import derive
+    from .render.report import derivation_json, derivation_summary, dumps
 
     d = derive(_load(args))
     if args.json:
@@ -59,25 +59,25 @@ def _cmd_derive(args) -> int:
 
 
 def _cmd_memo(args) -> int:
-    from ._memo import write_memo
+    from .render.memo import write_memo
 
     return write_memo(_load(args), args.output, pdf=not args.no_pdf, as_json=args.json)
 
 
 def _cmd_simulate(args) -> int:
-    from ._simreport import run_simulate
+    from .analysis.study import run_simulate
 
     return run_simulate(_load(args), as_json=args.json)
 
 
 def _cmd_check(args) -> int:
-    from ._claims import run_check
+    from .analysis.claims import run_check
 
     return run_check(_load(args), tolerance=args.tolerance, as_json=args.json)
 
 
 def _cmd_export(args) -> int:
-    from ._export import run_export
+    from .render.export import run_export
 
     return run_export(
         _load(args), lang=args.lang, out_dir=args.output, digital=args.digital, form=args.form
@@ -85,7 +85,7 @@ def _cmd_export(args) -> int:
 
 
 def _cmd_schedule(args) -> int:
-    from ._schedule import run_schedule
+    from .analysis.schedule import run_schedule
 
     return run_schedule(
         _load(args), out_dir=args.output, points=args.points, vary=args.vary, as_json=args.json
@@ -93,7 +93,7 @@ def _cmd_schedule(args) -> int:
 
 
 def _cmd_robustness(args) -> int:
-    from ._robust import run_robustness
+    from .analysis.robust import run_robustness
 
     return run_robustness(_load(args), points=args.points, as_json=args.json)
 
@@ -106,7 +106,7 @@ def build_parser() -> argparse.ArgumentParser:
             " SciPy cross-checks, simulation and a review memo."
         ),
     )
-    from . import __version__
+    from .runtime.version import __version__
 
     parser.add_argument("--version", action="version", version=f"gainsmith {__version__}")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
@@ -202,11 +202,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     if args.command in SIDECAR_COMMANDS and os.environ.get("GAINSMITH_SIDECAR", "1") != "0":
-        from . import _sidecar
+        from .runtime import sidecar as _sidecar
 
         _sidecar.start()  # SciPy loads there while SymPy loads here
     if args.command == "memo" and os.environ.get("GAINSMITH_FIGURE_SERVER", "1") != "0":
-        from . import _figures
+        from .render import figures as _figures
 
         _figures.start_server()  # matplotlib loads and warms up there; figures are drawn there
     try:

@@ -24,11 +24,11 @@ from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 from scipy.signal import place_poles
 
-from symbolic._claims import ClaimReport, ClaimVerdict, check_claims
-from symbolic._derive import derive
-from symbolic._design import Claims, parse_design
-from symbolic._errors import DesignFileError
+from symbolic.analysis.claims import ClaimReport, ClaimVerdict, check_claims
 from symbolic.cli import main
+from symbolic.derivation.pipeline import derive
+from symbolic.input.design import Claims, parse_design
+from symbolic.runtime.errors import DesignFileError
 
 from .conftest import ROOT
 
@@ -736,7 +736,7 @@ def test_a_pole_error_just_over_its_tolerance_reads_differently_from_it():
     b=st.floats(allow_nan=False, allow_infinity=False, width=64),
 )
 def test_distinct_numbers_tells_different_doubles_apart(a, b):
-    from symbolic._claims import distinct_numbers
+    from symbolic.analysis.claims import distinct_numbers
 
     ta, tb = distinct_numbers(a, b)
     assert (ta == tb) == (a == b)

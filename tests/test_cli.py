@@ -35,8 +35,10 @@ import sympy as sp
 from scipy.optimize import linear_sum_assignment
 
 import symbolic
-from symbolic import _derive, _numeric, load_design
+from symbolic import load_design
 from symbolic.cli import main
+from symbolic.derivation import numeric as _numeric
+from symbolic.derivation import pipeline as _derive
 
 from .conftest import ROOT, WORKED_FILES
 

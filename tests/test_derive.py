@@ -15,8 +15,8 @@ from scipy.optimize import linear_sum_assignment
 from scipy.signal import place_poles
 
 import symbolic
-from symbolic._derive import derive
-from symbolic._design import parse_design
+from symbolic.derivation.pipeline import derive
+from symbolic.input.design import parse_design
 
 from .conftest import WORKED_FILES
 
@@ -257,8 +257,8 @@ def test_factors_without_real_zeros_are_not_conditions():
     ],
 )
 def test_has_no_real_zero(factor, real_zero):
-    from symbolic._derive import has_no_real_zero
-    from symbolic._expressions import parse_expression
+    from symbolic.derivation.pipeline import has_no_real_zero
+    from symbolic.input.expressions import parse_expression
 
     names = {n: sp.Symbol(n, real=True) for n in "ab"}
     assert has_no_real_zero(sp.expand(parse_expression(factor, names))) is (not real_zero)
@@ -382,7 +382,7 @@ def test_budget_fallback_gives_numeric_results_with_a_note():
     design = parse_design(MASS_SPRING.encode(), "t.toml")
     import time
 
-    from symbolic import _closed_form
+    from symbolic.derivation import closed_form as _closed_form
 
     original = _closed_form.closed_forms
 
@@ -494,7 +494,7 @@ def test_slow_separated_loop_keeps_the_closed_gains(monkeypatch):
     second runs past the budget (run_bounded_steps keeps each finished step)."""
     import time
 
-    from symbolic import _closed_form
+    from symbolic.derivation import closed_form as _closed_form
 
     original = _closed_form.separated_forms
 
@@ -515,8 +515,8 @@ def test_slow_separated_loop_keeps_the_closed_gains(monkeypatch):
 
 
 def test_run_bounded_steps_reraises_our_errors_and_reports_a_crash():
-    from symbolic._budget import run_bounded_steps
-    from symbolic._errors import StructureError
+    from symbolic.runtime.budget import run_bounded_steps
+    from symbolic.runtime.errors import StructureError
 
     def steps(fail: str):
         yield 1
@@ -544,8 +544,8 @@ def test_bounded_children_run_side_by_side_and_keep_their_budgets():
     import multiprocessing as mp
     import time
 
-    from symbolic._budget import BoundedChild
-    from symbolic._errors import BudgetExceeded
+    from symbolic.runtime.budget import BoundedChild
+    from symbolic.runtime.errors import BudgetExceeded
 
     t = time.perf_counter()
     first = BoundedChild(_sleep_then, (1.0, "a"), seconds=20)
@@ -568,9 +568,9 @@ def test_extensions_started_beside_the_main_stage_equal_those_derived_afterwards
     """derive starts the closed forms of integral action and of the digital controller in
     children beside its own, and runs the reduced observer's in its own child after K; the
     results are those of the extension functions called afterwards on the same design."""
-    from symbolic._discrete import digital_controller
-    from symbolic._integral import integral_action
-    from symbolic._reduced import reduced_observer
+    from symbolic.derivation.digital import digital_controller
+    from symbolic.derivation.integral import integral_action
+    from symbolic.derivation.reduced import reduced_observer
 
     d = derive(symbolic.load_design(WINCH))
     assert d.passed and d.integral is not None and d.discrete is not None
@@ -591,8 +591,8 @@ def test_a_failing_derivation_leaves_no_extension_child_behind(monkeypatch):
     import multiprocessing as mp
     import time
 
-    from symbolic import _discrete
-    from symbolic._errors import StructureError
+    from symbolic.derivation import digital as _discrete
+    from symbolic.runtime.errors import StructureError
 
     def slow(*args):
         time.sleep(60)
@@ -612,7 +612,7 @@ def test_reduced_observer_step_past_the_budget_is_noted_and_numeric(monkeypatch)
     did not run (and why) and gives numbers, which still pass their checks."""
     import time
 
-    from symbolic import _closed_form
+    from symbolic.derivation import closed_form as _closed_form
 
     original = _closed_form.separated_forms
 

@@ -22,7 +22,8 @@ import sympy as sp
 from scipy.signal import place_poles
 
 from symbolic import derive, parse_design
-from symbolic._discrete import (
+from symbolic.cli import main
+from symbolic.derivation.digital import (
     ControllerRunner,
     c_controller_files,
     digital_controller,
@@ -31,13 +32,12 @@ from symbolic._discrete import (
     python_controller_source,
     sampled_data_study,
 )
-from symbolic._discrete import (
+from symbolic.derivation.digital import (
     loop_matrices as _sampled_loop,
 )
-from symbolic._errors import RenderError
-from symbolic._export import c_identifier_prefix, c_sources, gain_formulas, python_source
-from symbolic._numeric import eigenvalue_tolerance, pole_residual
-from symbolic.cli import main
+from symbolic.derivation.numeric import eigenvalue_tolerance, pole_residual
+from symbolic.render.export import c_identifier_prefix, c_sources, gain_formulas, python_source
+from symbolic.runtime.errors import RenderError
 
 GCC = shutil.which("gcc")
 needs_gcc = pytest.mark.skipif(GCC is None, reason="gcc is not installed (CI has it)")
@@ -512,7 +512,7 @@ def test_command_bad_input_is_one_line_and_writes_nothing(tmp_path, capsys, text
 
 
 def test_command_writes_nothing_when_the_self_check_fails(tmp_path, capsys, monkeypatch):
-    import symbolic._export as export
+    import symbolic.render.export as export
 
     monkeypatch.setattr(export, "DIGITAL_SELF_CHECK_TOLERANCE", -1.0)
     path = _write(tmp_path, _pan_text())
@@ -539,7 +539,7 @@ def test_continuous_design_is_drawn_next_to_the_sampled_loop(pan):
 # The memo sections
 # --------------------------------------------------------------------------------------------
 def test_memo_sections_carry_the_extended_figures_and_tables(pan_limited):
-    from symbolic._memo import memo_extended_sections
+    from symbolic.render.memo import memo_extended_sections
 
     ctx, files = memo_extended_sections(pan_limited)
     slug = pan_limited.design.slug
@@ -568,7 +568,7 @@ def test_json_of_the_digital_controller_places_the_mapped_poles(capsys):
     T = dc["sample_time"]
     Phi, Gamma = np.array(dc["Phi"]), np.array(dc["Gamma"])
     from symbolic import load_design
-    from symbolic._numeric import evaluate_matrix
+    from symbolic.derivation.numeric import evaluate_matrix
 
     design = load_design(path)
     C, D = (evaluate_matrix(M, design.values) for M in (design.plant.C, design.plant.D))

@@ -19,7 +19,7 @@ from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
 from symbolic import DesignFileError, GainsmithWarning, StructureError, derive, parse_design
-from symbolic._discrete import (
+from symbolic.derivation.digital import (
     ControllerRunner,
     c_controller_files,
     closed_loop_bandwidth,
@@ -29,8 +29,8 @@ from symbolic._discrete import (
     sampled_data_study,
     zero_order_hold,
 )
-from symbolic._numeric import scipy_placement
-from symbolic._report import derivation_json, derivation_summary
+from symbolic.derivation.numeric import scipy_placement
+from symbolic.render.report import derivation_json, derivation_summary
 
 T = sp.Symbol("T", positive=True)
 
@@ -111,7 +111,7 @@ def test_zoh_by_interpolation_matches_scipy(rates, coupling, value, sample):
     Putzer's closed form evaluated at c equals ``scipy.linalg.expm`` of the augmented matrix."""
     import scipy.linalg
 
-    from symbolic._discrete import _split_roots
+    from symbolic.derivation.digital import _split_roots
 
     c = sp.Symbol("c", positive=True)
     n = len(rates)
@@ -137,7 +137,11 @@ def test_zoh_by_interpolation_matches_scipy(rates, coupling, value, sample):
 def test_zoh_of_an_oscillator_falls_back_to_the_jordan_form():
     """Complex poles do not split over the parameters: SymPy's exponential is used, and its
     closed form still agrees with SciPy."""
-    from symbolic._discrete import ZOH_BY_JORDAN_FORM, _split_roots, _zero_order_hold_and_method
+    from symbolic.derivation.digital import (
+        ZOH_BY_JORDAN_FORM,
+        _split_roots,
+        _zero_order_hold_and_method,
+    )
 
     k = sp.Symbol("k", positive=True)
     A, B = sp.Matrix([[0, 1], [-k, 0]]), sp.Matrix([0, 1])

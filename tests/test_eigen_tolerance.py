@@ -18,16 +18,16 @@ import numpy as np
 import pytest
 import sympy as sp
 
-from symbolic import _numeric
-from symbolic._derive import derive
-from symbolic._design import parse_design
-from symbolic._numeric import (
+from symbolic.derivation import numeric as _numeric
+from symbolic.derivation.numeric import (
     DOUBLE_PRECISION_CEILING,
     EIGENVECTOR_CONDITION_LIMIT,
     check_eigenvalues,
     eigenvalue_tolerance,
     pole_residual,
 )
+from symbolic.derivation.pipeline import derive
+from symbolic.input.design import parse_design
 
 #: The tolerance of the eigenvalue check before this change (simple poles).
 OLD_TOLERANCE = 1e-6

@@ -23,10 +23,11 @@ import pytest
 import sympy as sp
 from scipy.signal import place_poles
 
-from symbolic._derive import derive
-from symbolic._design import load_design, parse_design
-from symbolic._errors import DesignFileError
-from symbolic._export import (
+from symbolic.cli import main
+from symbolic.derivation.numeric import eigenvalue_tolerance, evaluate_matrix, pole_residual
+from symbolic.derivation.pipeline import derive
+from symbolic.input.design import load_design, parse_design
+from symbolic.render.export import (
     CODE_NOT_FINITE,
     CODE_OK,
     CODE_UNCONTROLLABLE,
@@ -42,8 +43,7 @@ from symbolic._export import (
     python_source,
     run_export,
 )
-from symbolic._numeric import eigenvalue_tolerance, evaluate_matrix, pole_residual
-from symbolic.cli import main
+from symbolic.runtime.errors import DesignFileError
 
 from .conftest import WORKED, WORKED_FILES
 
@@ -399,7 +399,7 @@ def test_files_carry_sha256_poles_conventions_and_caution(worked, name):
     d, formulas = worked[name]
     files = {**c_sources(formulas), **python_source(formulas)}
     assert set(files) == {f"{name}_gains.h", f"{name}_gains.c", f"{name}_gains.py"}
-    from symbolic import __version__
+    from symbolic.runtime.version import __version__
 
     for fname, content in files.items():
         text = content.decode("ascii")
@@ -702,7 +702,7 @@ def test_command_writes_the_files(tmp_path, capsys, lang, suffixes):
 
 
 def test_nothing_is_written_when_a_check_fails(tmp_path, monkeypatch, capsys):
-    import symbolic._export as export
+    import symbolic.render.export as export
 
     monkeypatch.setattr(export, "_self_check", lambda d, formulas: 1e-3)
     out = tmp_path / "export"
@@ -774,7 +774,7 @@ def test_design_without_parameters(tmp_path):
 def test_docstring_examples():
     import doctest
 
-    import symbolic._export as module
+    import symbolic.render.export as module
 
     result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
     assert result.attempted >= 4 and result.failed == 0

@@ -1,4 +1,4 @@
-"""Tests of the safe expression parser, ``symbolic._expressions``.
+"""Tests of the safe expression parser, ``symbolic.input.expressions``.
 
 External references used below (the parser's job is to read text the way the
 Python language defines it, and to refuse everything else):
@@ -31,9 +31,8 @@ import numpy as np
 import pytest
 import sympy
 
-from symbolic import _expressions
-from symbolic._errors import ExpressionError, GainsmithError
-from symbolic._expressions import (
+from symbolic.input import expressions as _expressions
+from symbolic.input.expressions import (
     ALLOWED_CONSTANTS,
     ALLOWED_FUNCTIONS,
     NAME_PATTERN,
@@ -43,6 +42,7 @@ from symbolic._expressions import (
     parse_number,
     parse_pole,
 )
+from symbolic.runtime.errors import ExpressionError, GainsmithError
 
 NAMES = ("m", "c", "k1", "k2", "g", "l", "f0", "a", "T", "R", "kf", "r", "x", "m_c", "J")
 SYMBOLS = {name: sympy.Symbol(name, real=True, positive=True) for name in NAMES}

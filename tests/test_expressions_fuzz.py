@@ -28,8 +28,8 @@ import sympy
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from symbolic._errors import ExpressionError
-from symbolic._expressions import parse_expression, parse_number, parse_pole
+from symbolic.input.expressions import parse_expression, parse_number, parse_pole
+from symbolic.runtime.errors import ExpressionError
 
 FUZZ = settings(
     max_examples=int(os.environ.get("GAINSMITH_FUZZ_EXAMPLES", "300")),

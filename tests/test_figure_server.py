@@ -17,7 +17,7 @@ from pathlib import Path
 
 import pytest
 
-from symbolic import _figures
+from symbolic.render import figures as _figures
 
 ROOT = Path(__file__).resolve().parents[1]
 WORKED = ROOT / "worked_designs"
@@ -30,7 +30,7 @@ def _memo_in_fresh_interpreter(out: Path, **env: str) -> dict:
         with contextlib.redirect_stdout(io.StringIO()):
             code = cli.main(["memo", {str(WORKED / "hoist_winch.toml")!r}, "-o", {str(out)!r},
                              "--no-pdf"])
-        from symbolic import _figures
+        from symbolic.render import figures as _figures
         print(json.dumps({{"code": code, "server": _figures.server_running(),
                           "matplotlib_here": "matplotlib" in sys.modules}}))
     """
@@ -66,7 +66,7 @@ def _line_figure(values):
 
 
 def _run_in_child(body: str) -> dict:
-    code = "import json\nfrom symbolic import _figures\n" + textwrap.dedent(body)
+    code = "import json\nfrom symbolic.render import figures as _figures\n" + textwrap.dedent(body)
     done = subprocess.run(
         [sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, timeout=120
     )
@@ -148,13 +148,13 @@ def test_records_travel_as_plain_namespaces(tmp_path):
 
     import numpy as np
 
-    from symbolic._margins import MarginReport
+    from symbolic.analysis.margins import MarginReport
 
     response = _run_in_child(
         """
         import pickle, sys
         from symbolic import derive, load_design
-        from symbolic._simreport import simulation_study
+        from symbolic.analysis.study import simulation_study
         d = derive(load_design("worked_designs/belt_drive.toml"), budget=0)
         case = simulation_study(d).cases[0].response
         payload = pickle.dumps(_figures._portable([case, {"k": (case, 2.0)}]))

@@ -450,7 +450,7 @@ def test_blow_up_falls_back_to_numbers_with_a_note(make):
     derivation alone) to stay fast; the whole ``gainsmith memo`` run is timed in
     ``tests/benchmarks/bench_blowup.py`` and in the slow test below.
     """
-    from symbolic._memo import build_memo
+    from symbolic.render.memo import build_memo
 
     design = symbolic.parse_design(make(budget=1.0))
     d = symbolic.derive(design)
@@ -470,7 +470,7 @@ def test_blow_up_falls_back_to_numbers_with_a_note(make):
 
 @pytest.mark.slow
 def test_blow_up_whole_memo_carries_the_note(tmp_path, capsys):
-    from symbolic._memo import write_memo
+    from symbolic.render.memo import write_memo
 
     design = symbolic.parse_design(fully_symbolic_plant(budget=1.0), str(tmp_path / "blowup.toml"))
     write_memo(design, tmp_path / "memo", pdf=False)
@@ -503,8 +503,8 @@ def test_numerically_rank_deficient_is_not_called_uncontrollable():
 def test_gain_tolerance_widens_only_with_the_spread_of_two_numeric_methods():
     """Well conditioned: exactly GAIN_TOLERANCE.  Condition number 1e12: wider, yet a gain
     1e-4 off still fails (the closed form is checked, not waved through)."""
-    from symbolic._derive import GAIN_TOLERANCE, gain_tolerance
-    from symbolic._numeric import numeric_ackermann, relative_difference
+    from symbolic.derivation.numeric import numeric_ackermann, relative_difference
+    from symbolic.derivation.pipeline import GAIN_TOLERANCE, gain_tolerance
 
     for plant, wide in ((weak_chain(3, 0.1), False), (weak_chain(4, 1e-4), True)):
         A, B = plant.numeric("A"), plant.numeric("B")
@@ -521,7 +521,7 @@ def test_gain_tolerance_widens_only_with_the_spread_of_two_numeric_methods():
 def test_compensator_check_is_by_frequency_response():
     """Stiff plant: coefficients of the compensator span many decades, its values on
     s = jω do not; a numerator 1e-5 off fails the check."""
-    from symbolic._derive import COMPENSATOR_TOLERANCE, frequency_response_difference
+    from symbolic.derivation.pipeline import COMPENSATOR_TOLERANCE, frequency_response_difference
 
     stiff = next(p for p in OTHER_HARD if p.name.startswith("time constants"))
     d = symbolic.derive(symbolic.parse_design(stiff.toml()), budget=10)
@@ -594,7 +594,7 @@ def test_radicals_do_not_fail_a_correct_design(text):
 def test_frequency_response_check_of_a_zero_compensator():
     """K = 0 (the plant already has the requested poles): the compensator is zero; the
     check compares absolutely instead of dividing by zero (found by a random plant)."""
-    from symbolic._derive import frequency_response_difference
+    from symbolic.derivation.pipeline import frequency_response_difference
 
     F, L, K = np.array([[-3.0]]), np.array([[2.0]]), np.zeros((1, 1))
     assert frequency_response_difference(np.array([0.0]), np.array([1.0, 3.0]), F, L, K) == 0.0

@@ -13,14 +13,18 @@ from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
 from symbolic import DesignFileError, StructureError, derive, parse_design
-from symbolic._closed_form import ackermann, characteristic_coefficients, desired_coefficients
-from symbolic._integral import (
+from symbolic.derivation.closed_form import (
+    ackermann,
+    characteristic_coefficients,
+    desired_coefficients,
+)
+from symbolic.derivation.integral import (
     augmented_pair,
     default_integral_pole,
     integral_study,
     mismatch_cases,
 )
-from symbolic._report import derivation_json
+from symbolic.render.report import derivation_json
 
 
 def run(text: str):

@@ -330,9 +330,9 @@ def test_kill_during_memo_forked(tmp_path, request):
     run calls first.
     """
     # import what the memo needs before forking, so each child starts at once
-    import symbolic._memo  # noqa: F401
-    import symbolic._simreport  # noqa: F401
-    from symbolic._publish import publish
+    import symbolic.analysis.study  # noqa: F401
+    import symbolic.render.memo  # noqa: F401
+    from symbolic.runtime.publish import publish
 
     out = tmp_path / "memo"
     complete_forked(out, [])
@@ -364,7 +364,7 @@ def test_symbolic_child_dies_with_its_parent():
     budget; the helper is SIGKILLed; the stage must be gone within 3 s
     (``PR_SET_PDEATHSIG``, Linux man-pages prctl(2)).
     """
-    from symbolic._budget import run_bounded
+    from symbolic.runtime.budget import run_bounded
 
     ready_r, ready_w = os.pipe()
     pid = os.fork()

@@ -1,4 +1,4 @@
-"""One name per gain entry in every output (symbolic._labels.gain_label).
+"""One name per gain entry in every output (symbolic.model.labels.gain_label).
 
 The convention is the one control texts use for vectors and matrices,
 counted from 1 (common practice, no source): K_2 for the second entry of a
@@ -17,13 +17,13 @@ import re
 import pytest
 
 from symbolic import derive, load_design, parse_design
-from symbolic._claims import check_claims, format_claims
-from symbolic._design import Claims
-from symbolic._labels import gain_label
-from symbolic._memo import _gain_block
-from symbolic._report import derivation_summary
-from symbolic._robust import memo_robustness
+from symbolic.analysis.claims import check_claims, format_claims
+from symbolic.analysis.robust import memo_robustness
 from symbolic.cli import main
+from symbolic.input.design import Claims
+from symbolic.model.labels import gain_label
+from symbolic.render.memo import _gain_block
+from symbolic.render.report import derivation_summary
 
 from .conftest import WORKED
 

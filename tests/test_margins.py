@@ -1,4 +1,4 @@
-"""Stability margins of loops broken at the plant input (symbolic._margins).
+"""Stability margins of loops broken at the plant input (symbolic.analysis.margins).
 
 External checks: textbook loops whose gain and phase margins are known in
 closed form.  Each test names the published source of the loop; where the
@@ -16,8 +16,7 @@ import pytest
 import scipy.signal
 
 from symbolic import derive, load_design
-from symbolic._figures import figure_files
-from symbolic._margins import (
+from symbolic.analysis.margins import (
     BrokenLoop,
     _gain_range,
     broken_loop_margins,
@@ -29,8 +28,9 @@ from symbolic._margins import (
     observer_loop,
     state_feedback_loop,
 )
-from symbolic._numeric import pole_residual
-from symbolic._robust_figures import loop_magnitude_phase_figure, loop_polar_figure
+from symbolic.derivation.numeric import pole_residual
+from symbolic.render.figures import figure_files
+from symbolic.render.robust_figures import loop_magnitude_phase_figure, loop_polar_figure
 
 from .conftest import WORKED
 

@@ -14,12 +14,12 @@ import numpy as np
 import pytest
 
 import symbolic
-from symbolic import _memo
-from symbolic._derive import derive
-from symbolic._mathtex import pole_latex
-from symbolic._memo import assemble_memo, build_memo, write_memo
-from symbolic._numbers import format_pole
-from symbolic._report import format_number
+from symbolic.derivation.pipeline import derive
+from symbolic.model.numbers import format_pole
+from symbolic.render import memo as _memo
+from symbolic.render.mathtex import pole_latex
+from symbolic.render.memo import assemble_memo, build_memo, write_memo
+from symbolic.render.report import format_number
 
 from .conftest import ROOT, WORKED, WORKED_FILES, require_tex, tex_available
 
@@ -188,7 +188,7 @@ def test_hostile_text_appears_literally_and_reads_nothing(tmp_path):
 
 
 def test_pdf_skipped_without_tex_engine(tmp_path, monkeypatch, capsys):
-    monkeypatch.setattr("symbolic._pdf.find_tex_engine", lambda: None)
+    monkeypatch.setattr("symbolic.render.pdf.find_tex_engine", lambda: None)
     design = symbolic.load_design(WORKED / "focus_actuator.toml")
     assert write_memo(design, tmp_path, pdf=True) == 0
     err = capsys.readouterr().err
@@ -206,8 +206,8 @@ def test_failed_compile_keeps_the_previous_memo(tmp_path, monkeypatch):
     def broken(*args, **kwargs):
         raise symbolic.RenderError("! Undefined control sequence. (memo.tex l.4)")
 
-    monkeypatch.setattr("symbolic._pdf.find_tex_engine", lambda: "/usr/bin/pdflatex")
-    monkeypatch.setattr("symbolic._pdf.compile_pdf", broken)
+    monkeypatch.setattr("symbolic.render.pdf.find_tex_engine", lambda: "/usr/bin/pdflatex")
+    monkeypatch.setattr("symbolic.render.pdf.compile_pdf", broken)
     with pytest.raises(symbolic.RenderError, match="l.4"):
         write_memo(design, tmp_path, pdf=True)
     assert (tmp_path / "focus_actuator.tex").read_text() == "previous memo"

@@ -1,8 +1,8 @@
-"""Numbers and poles printed the way a design file writes them, ``symbolic._numbers``.
+"""Numbers and poles printed the way a design file writes them, ``symbolic.model.numbers``.
 
 The notation is Python's for complex numbers (Python Software Foundation, *The
 Python Language Reference*, release 3.11, section 2.4.7 "Imaginary literals"),
-which is also what a design file accepts (:func:`symbolic._expressions.parse_pole`).
+which is also what a design file accepts (:func:`symbolic.input.expressions.parse_pole`).
 The property checked is that the printed text reads back, with gainsmith's own
 pole parser, as the pole to the printed precision: rounding a number to ``d``
 significant figures moves it by at most half a unit in the last figure, i.e. by
@@ -22,10 +22,10 @@ import numpy as np
 import pytest
 import sympy as sp
 
-from symbolic._expressions import parse_pole
-from symbolic._mathtex import pole_latex
-from symbolic._numbers import format_number, format_pole, format_poles, pole_parts
-from symbolic._texsafe import tex_number
+from symbolic.input.expressions import parse_pole
+from symbolic.model.numbers import format_number, format_pole, format_poles, pole_parts
+from symbolic.render.mathtex import pole_latex
+from symbolic.render.texsafe import tex_number
 
 
 @pytest.mark.parametrize(

@@ -1,8 +1,8 @@
-"""Tests of symbolic._pdf: hostile text compiles and shows literally, and the compile is locked.
+"""Tests of symbolic.render.pdf: hostile text compiles and shows literally, and the compile is locked.
 
 The corpus is rendered through ``templates/_selftest.tex.j2`` into one document, compiled
 once, and read back with pdftotext.  Expected text follows the escaping rules documented in
-:func:`symbolic._texsafe.escape_latex` (characters it replaces are compared in their
+:func:`symbolic.render.texsafe.escape_latex` (characters it replaces are compared in their
 replaced form).  The lock checks do not rely on escaping: they compile hostile TeX directly.
 
 Sources for what the lock must block: the kpathsea manual (K. Berry, O. Weber, *Kpathsea
@@ -25,9 +25,9 @@ from pathlib import Path
 
 import pytest
 
-from symbolic._errors import RenderError
-from symbolic._pdf import compile_pdf, find_tex_engine
-from symbolic._texsafe import _LATEX_COMMANDS, _LATEX_KEPT, make_environment
+from symbolic.render.pdf import compile_pdf, find_tex_engine
+from symbolic.render.texsafe import _LATEX_COMMANDS, _LATEX_KEPT, make_environment
+from symbolic.runtime.errors import RenderError
 
 
 def _require_tex() -> None:
@@ -432,7 +432,7 @@ def test_pdflatex_alone_reruns_for_references(
 ) -> None:
     pdflatex = shutil.which("pdflatex")
     assert pdflatex is not None
-    monkeypatch.setattr("symbolic._pdf.find_tex_engine", lambda: pdflatex)
+    monkeypatch.setattr("symbolic.render.pdf.find_tex_engine", lambda: pdflatex)
     source = (
         "\\documentclass{article}\\begin{document}"
         "\\section{Gains}\\label{s:gains} See section REF\\ref{s:gains}FER.\\end{document}"
@@ -460,6 +460,7 @@ def test_find_tex_engine_prefers_latexmk_and_never_lualatex(
     monkeypatch: pytest.MonkeyPatch, installed: set[str], expected: str | None
 ) -> None:
     monkeypatch.setattr(
-        "symbolic._pdf.shutil.which", lambda name: f"/bin/{name}" if name in installed else None
+        "symbolic.render.pdf.shutil.which",
+        lambda name: f"/bin/{name}" if name in installed else None,
     )
     assert find_tex_engine() == expected

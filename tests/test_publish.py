@@ -1,4 +1,4 @@
-"""Tests of symbolic._publish: atomic replacement of a set of output files.
+"""Tests of symbolic.runtime.publish: atomic replacement of a set of output files.
 
 The defining property (each final name holds one complete version, old or new, whatever
 moment the writer dies) rests on POSIX ``rename``: "If newpath already exists, it will be
@@ -20,8 +20,8 @@ from pathlib import Path
 
 import pytest
 
-from symbolic._errors import RenderError
-from symbolic._publish import STAGING_PREFIX, check_file_name, publish
+from symbolic.runtime.errors import RenderError
+from symbolic.runtime.publish import STAGING_PREFIX, check_file_name, publish
 
 ROOT = Path(__file__).resolve().parent.parent
 NAMES = ["memo.pdf", "memo.md", "design.json", "figures/step.png", "figures/poles.png"]
@@ -148,7 +148,7 @@ def test_stale_staging_of_a_dead_process_is_removed(tmp_path: Path) -> None:
 # SIGKILL
 # --------------------------------------------------------------------------------------
 
-# The writer loads symbolic._publish without running symbolic/__init__.py (which imports
+# The writer loads symbolic.runtime.publish without running symbolic/__init__.py (which imports
 # SymPy and would make every start take seconds): it registers a bare package object.
 WRITER = r"""
 import os, signal, sys, types
@@ -157,7 +157,7 @@ package = types.ModuleType("symbolic")
 package.__path__ = [os.path.join(root, "symbolic")]
 sys.modules["symbolic"] = package
 from pathlib import Path
-from symbolic import _publish
+from symbolic.runtime import publish as _publish
 
 NAMES = NAMES_PLACEHOLDER
 

@@ -11,8 +11,8 @@ import scipy.integrate
 import sympy as sp
 
 from symbolic import DesignFileError, StructureError, derive, parse_design
-from symbolic._reduced import coordinate_change, reduced_observer_poles
-from symbolic._report import derivation_json, derivation_summary
+from symbolic.derivation.reduced import coordinate_change, reduced_observer_poles
+from symbolic.render.report import derivation_json, derivation_summary
 
 
 def run(text: str):

@@ -1,4 +1,4 @@
-"""Robustness study (symbolic._robust): mismatch, Routh–Hurwitz, sensitivities, output.
+"""Robustness study (symbolic.analysis.robust): mismatch, Routh–Hurwitz, sensitivities, output.
 
 The designs written here are invented demo scenarios (values plausible, not
 from any source).  External references: the separation principle (D. G.
@@ -22,10 +22,7 @@ import scipy.signal
 import sympy as sp
 
 from symbolic import DesignFileError, derive, load_design
-from symbolic._closed_form import characteristic_coefficients
-from symbolic._figures import figure_files
-from symbolic._numeric import evaluate_matrix, pole_residual
-from symbolic._robust import (
+from symbolic.analysis.robust import (
     MAX_GRID_POINTS,
     _Assembler,
     evaluate_on_grid,
@@ -40,8 +37,11 @@ from symbolic._robust import (
     run_robustness,
     state_feedback_stability,
 )
-from symbolic._robust_figures import mismatch_pole_figure
 from symbolic.cli import main
+from symbolic.derivation.closed_form import characteristic_coefficients
+from symbolic.derivation.numeric import evaluate_matrix, pole_residual
+from symbolic.render.figures import figure_files
+from symbolic.render.robust_figures import mismatch_pole_figure
 
 from .conftest import WORKED
 
@@ -547,7 +547,7 @@ def test_memo_sensitivities_are_the_robustness_commands(worked, capsys):
 
 
 def test_mismatch_figure_subsamples_large_grids(monkeypatch):
-    import symbolic._robust_figures as rf
+    import symbolic.render.robust_figures as rf
 
     monkeypatch.setattr(rf, "MAX_SCATTER", 500)
     rng = np.random.default_rng(0)

@@ -17,11 +17,7 @@ import numpy as np
 import pytest
 from scipy.signal import place_poles
 
-from symbolic._derive import derive
-from symbolic._design import load_design, parse_design
-from symbolic._errors import DesignFileError
-from symbolic._numeric import evaluate_matrix
-from symbolic._schedule import (
+from symbolic.analysis.schedule import (
     MAX_SCIPY_CHECKS,
     _check_indices,
     gain_schedule,
@@ -30,6 +26,10 @@ from symbolic._schedule import (
     schedule_summary,
 )
 from symbolic.cli import main
+from symbolic.derivation.numeric import evaluate_matrix
+from symbolic.derivation.pipeline import derive
+from symbolic.input.design import load_design, parse_design
+from symbolic.runtime.errors import DesignFileError
 
 from .conftest import WORKED
 
@@ -40,7 +40,7 @@ PNG = b"\x89PNG\r\n\x1a\n"
 def quick_figures(monkeypatch):
     """Skip rendering the figure where a test is about the table or the summary
     (matplotlib takes seconds on a busy machine; one test renders it for real)."""
-    import symbolic._schedule as schedule
+    import symbolic.analysis.schedule as schedule
 
     monkeypatch.setattr(
         schedule,
@@ -179,7 +179,7 @@ def test_singularity_between_grid_points_is_flagged(tmp_path, capsys):
 
 
 def test_disagreement_with_scipy_is_flagged(focus, monkeypatch):
-    import symbolic._schedule as schedule
+    import symbolic.analysis.schedule as schedule
 
     real = schedule.scipy_placement
 
@@ -283,7 +283,7 @@ def test_no_parameter_with_a_range(write_design):
 
 
 def test_command_bad_request_exits_2_before_deriving(tmp_path, capsys, monkeypatch):
-    import symbolic._schedule as schedule
+    import symbolic.analysis.schedule as schedule
 
     def no_derivation(*_a, **_k):  # the request is refused before any symbolic work
         raise AssertionError("derived anyway")

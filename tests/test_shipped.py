@@ -26,15 +26,15 @@ import scipy.linalg
 from scipy.optimize import linear_sum_assignment
 
 import symbolic
-from symbolic._derive import derive
-from symbolic._shipped import (
+from symbolic.analysis.study import simulation_study
+from symbolic.derivation.pipeline import derive
+from symbolic.verification.shipped import (
     build_controller,
     closed_loop,
     shipped_controller,
     simulate_controller,
     state_feedback_reference,
 )
-from symbolic._simreport import simulation_study
 
 from .conftest import WORKED_FILES
 

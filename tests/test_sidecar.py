@@ -35,10 +35,10 @@ def _python(code: str, **env: str) -> dict:
 
 DERIVE = """
     import json, os, sys, warnings
-    from symbolic import _sidecar
+    from symbolic.runtime import sidecar as _sidecar
     started = _sidecar.start() if os.environ.get("START") == "1" else False
     from symbolic import derive, load_design
-    from symbolic._report import derivation_json
+    from symbolic.render.report import derivation_json
     d = derive(load_design({path!r}))
     out = derivation_json(d)
     out.pop("timings", None)
@@ -71,8 +71,8 @@ def test_calls_run_in_the_sidecar_and_fall_back_when_it_dies():
         """
         import json, os, signal
         import numpy as np
-        from symbolic import _sidecar
-        from symbolic._numeric import pole_residual, scipy_placement
+        from symbolic.runtime import sidecar as _sidecar
+        from symbolic.derivation.numeric import pole_residual, scipy_placement
         assert _sidecar.start()
         there = _sidecar.call(os.getpid)
         A = np.array([[0.0, 1.0], [-2.0, -0.5]]); B = np.array([[0.0], [1.0]])
@@ -107,9 +107,9 @@ def test_errors_and_warnings_from_the_sidecar_are_those_of_a_local_call():
     out = _python(
         """
         import json, sys, warnings
-        from symbolic import _sidecar
-        from symbolic._errors import GainsmithWarning, SpecificationError
-        from symbolic._specs import Specifications, dominant_pair
+        from symbolic.runtime import sidecar as _sidecar
+        from symbolic.runtime.errors import GainsmithWarning, SpecificationError
+        from symbolic.derivation.specs import Specifications, dominant_pair
         assert _sidecar.start()
         # overshoot so large that the damping ratio leaves the rise-time fit: a warning
         with warnings.catch_warnings(record=True) as caught:

@@ -10,11 +10,11 @@ import numpy as np
 import pytest
 
 import symbolic
-from symbolic._derive import derive
-from symbolic._simreport import SPEED_FACTORS, simulation_json, simulation_study
-from symbolic._simulate import step_metrics
-from symbolic._specs import second_order_step_metrics
+from symbolic.analysis.study import SPEED_FACTORS, simulation_json, simulation_study
 from symbolic.cli import main
+from symbolic.derivation.pipeline import derive
+from symbolic.derivation.specs import second_order_step_metrics
+from symbolic.verification.stepping import step_metrics
 
 from .conftest import WORKED
 

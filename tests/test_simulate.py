@@ -31,8 +31,8 @@ import scipy.linalg
 import scipy.signal
 from scipy.optimize import brentq
 
-from symbolic._errors import DesignFileError, GainsmithError, GainsmithWarning
-from symbolic._simulate import (
+from symbolic.runtime.errors import DesignFileError, GainsmithError, GainsmithWarning
+from symbolic.verification.stepping import (
     STATE_LIMIT,
     LoopModel,
     Response,
@@ -669,7 +669,7 @@ def test_benchmark_three_cases_and_study(capsys):
 
 
 def test_spent_budget_keeps_the_part_already_done(monkeypatch):
-    import symbolic._simulate as simulate_module
+    import symbolic.verification.stepping as simulate_module
 
     monkeypatch.setattr(simulate_module, "SATURATED_BUDGET", 300)
     model = conveyor_loop()

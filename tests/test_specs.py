@@ -1,4 +1,4 @@
-"""Tests of symbolic._specs: time-domain specifications -> closed-loop poles.
+"""Tests of symbolic.derivation.specs: time-domain specifications -> closed-loop poles.
 
 External values and their sources
 ---------------------------------
@@ -26,9 +26,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import signal
 
-from symbolic import _specs
-from symbolic._errors import GainsmithWarning, SpecificationError
-from symbolic._specs import (
+from symbolic.derivation import specs as _specs
+from symbolic.derivation.specs import (
     DEFAULT_DAMPING_RATIO,
     DominantPair,
     Specifications,
@@ -41,6 +40,7 @@ from symbolic._specs import (
     second_order_step_metrics,
     settling_real_part,
 )
+from symbolic.runtime.errors import GainsmithWarning, SpecificationError
 
 
 def test_all_names_exist():

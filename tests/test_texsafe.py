@@ -1,4 +1,4 @@
-"""Tests of symbolic._texsafe: the escapers, the trust marks and the template environments.
+"""Tests of symbolic.render.texsafe: the escapers, the trust marks and the template environments.
 
 External sources behind the expected values:
 
@@ -22,8 +22,7 @@ import markupsafe
 import numpy as np
 import pytest
 
-from symbolic._errors import RenderError
-from symbolic._texsafe import (
+from symbolic.render.texsafe import (
     LATEX_PREAMBLE_LINES,
     MISSING_VALUE,
     TrustedLatex,
@@ -36,6 +35,7 @@ from symbolic._texsafe import (
     templates_dir,
     tex_number,
 )
+from symbolic.runtime.errors import RenderError
 
 # --------------------------------------------------------------------------------------
 # escape_latex

@@ -19,11 +19,9 @@ import numpy as np
 import pytest
 
 import symbolic
-from symbolic._derive import derive
-from symbolic._margins import compare_margins
-from symbolic._shipped import shipped_controller
-from symbolic._simreport import simulation_study
-from symbolic._verdict import (
+from symbolic.analysis.margins import compare_margins
+from symbolic.analysis.study import simulation_study
+from symbolic.analysis.verdict import (
     ESTIMATOR_SPEED_RATIO,
     range_stability,
     requirement_table,
@@ -31,6 +29,8 @@ from symbolic._verdict import (
     shipped_margins,
 )
 from symbolic.cli import main
+from symbolic.derivation.pipeline import derive
+from symbolic.verification.shipped import shipped_controller
 
 from .conftest import WORKED, WORKED_FILES
 
@@ -203,7 +203,7 @@ def test_continuous_margins_agree_with_the_observer_loop_built_elsewhere():
     d = derive(symbolic.load_design(WORKED / "focus_actuator.toml"))
     mine, why = shipped_margins(shipped_controller(d))
     assert why == ""
-    other = compare_margins(d).observer_based  # C(s)G(s) of symbolic._margins.observer_loop
+    other = compare_margins(d).observer_based  # C(s)G(s) of symbolic.analysis.margins.observer_loop
     assert mine.phase_margin_deg == pytest.approx(other.phase_margin_deg, rel=1e-6)
     for a, b in (
         (mine.gain_margin_db_upper, other.gain_margin_db_upper),

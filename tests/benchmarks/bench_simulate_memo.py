@@ -22,9 +22,9 @@ import time
 import pytest
 
 import symbolic
-from symbolic._shipped import shipped_controller
-from symbolic._simreport import SPEED_FACTORS, _speed_study, loop_model, simulation_study
-from symbolic._simulate import simulate_cases
+from symbolic.analysis.study import SPEED_FACTORS, _speed_study, loop_model, simulation_study
+from symbolic.verification.shipped import shipped_controller
+from symbolic.verification.stepping import simulate_cases
 
 from ..conftest import ROOT, WORKED
 

@@ -1,0 +1,1 @@
+"""derivation layer."""

@@ -1,0 +1,821 @@
+"""Safe rendering of user text into LaTeX and Markdown, and the template environments.
+
+Every string a design file supplies (title, author, parameter descriptions, units, state
+names) reaches the memo through one of the two Jinja2 environments built by
+:func:`make_environment`.  Their ``finalize`` hook escapes every value printed by a
+template unless our own code marked it as already safe with :class:`TrustedLatex` (for the
+LaTeX memo) or :class:`TrustedMarkdown` (for the Markdown memo); each mark is honoured only
+by its own format.  Nobody has to remember to apply an escape filter.
+
+The escapers are single-pass character maps (``str.translate``), so an escape sequence is
+never escaped a second time, and TeX's ``^^5c`` notation cannot be formed because ``^`` is
+itself escaped.
+
+Notes
+-----
+Template authors, please note:
+
+* LaTeX templates use ``\\VAR{...}`` for values, ``\\BLOCK{...}`` for statements and
+  ``\\#{...}`` for comments; a line starting with ``%%`` is a statement and one starting
+  with ``%#`` is a comment.  Write a literal ``%%`` TeX comment as ``% %`` instead.
+* A value printed with ``\\VAR{...}`` is escaped unless it is a :class:`TrustedLatex`.  The
+  result of a filter such as ``upper`` or of ``~`` concatenation is a plain ``str`` and is
+  escaped again, so trust never leaks into derived strings.
+* Text a template produces itself (the output of a macro, of ``caller()``, of a
+  ``set``/``endset`` or ``filter`` block) is layout whose values were already escaped; the
+  environment marks it as such, so ``\\VAR{row(x)}`` prints a macro's LaTeX as is.  The
+  mark belongs to the environment kind that produced the text.
+* Escaped text is for text mode.  Inside math, wrap a value in ``\\text{...}`` (amsmath),
+  or pass a :class:`TrustedLatex` built for math, such as :func:`tex_number`'s output.
+* Values printed inside a Markdown code span are shown with their backslashes; keep
+  values out of code spans.
+* The LaTeX preamble must contain the lines of :data:`LATEX_PREAMBLE_LINES`; the escaper
+  relies on the T1 font encoding, Latin Modern and the ``textcomp`` symbols.
+"""
+
+from __future__ import annotations
+
+import importlib.resources
+import math
+import numbers
+import re
+import unicodedata
+from collections.abc import Callable, Iterable, Mapping
+from functools import lru_cache
+from pathlib import Path
+from typing import Any, Literal
+
+import jinja2
+
+from symbolic.model.numbers import format_pole, pole_parts
+from symbolic.runtime.errors import RenderError
+
+__all__ = [
+    "LATEX_PREAMBLE_LINES",
+    "MISSING_VALUE",
+    "TrustedLatex",
+    "TrustedMarkdown",
+    "escape_latex",
+    "escape_markdown",
+    "make_environment",
+    "md_number",
+    "render_template",
+    "templates_dir",
+    "tex_number",
+]
+
+#: Preamble lines every LaTeX memo template must contain for :func:`escape_latex` output to
+#: compile and to show up literally (UTF-8 input, T1 fonts, Latin Modern, TS1 symbols).
+LATEX_PREAMBLE_LINES: tuple[str, ...] = (
+    r"\usepackage[utf8]{inputenc}",
+    r"\usepackage[T1]{fontenc}",
+    r"\usepackage{lmodern}",
+    r"\usepackage{textcomp}",
+)
+
+#: What the environments print for ``None``: an em dash, so that a missing value is
+#: visible to the reviewer instead of silently blank.
+MISSING_VALUE = "\N{EM DASH}"
+
+
+# --------------------------------------------------------------------------------------
+# Trust marks
+# --------------------------------------------------------------------------------------
+
+# Control words that never belong in LaTeX our own code generates (formulas from
+# ``sympy.latex``, numbers, tables).  Finding one means unescaped user text slipped into a
+# TrustedLatex; refusing it is a second line of defence behind the locked compile.
+_FORBIDDEN_CONTROL_WORDS = frozenset(
+    {
+        "input", "include", "includeonly", "InputIfFileExists", "IfFileExists", "endinput",
+        "openin", "openout", "read", "readline", "write", "immediate", "closein",
+        "closeout", "catcode", "lccode", "uccode", "csname", "endcsname", "def", "edef",
+        "gdef", "xdef", "let", "futurelet", "expandafter", "scantokens", "everyeof",
+        "special", "directlua", "latelua", "usepackage", "RequirePackage",
+        "documentclass", "newcommand", "renewcommand", "providecommand", "verb",
+        "lowercase", "uppercase", "jobname", "shipout", "output", "everypar", "errhelp",
+        "newread", "newwrite", "verbatiminput", "lstinputlisting",
+    }
+)  # fmt: skip
+_CONTROL_WORD = re.compile(r"\\([A-Za-z@]+)")
+_DOCUMENT_OR_VERBATIM = re.compile(r"\\(?:begin|end)\s*\{\s*(?:document|verbatim\*?)\s*\}")
+
+
+class TrustedLatex(str):
+    """LaTeX produced by gainsmith's own code, printed by the "tex" environment as is.
+
+    This is the only way to print LaTeX without escaping.  Wrap only text our own code
+    built (``sympy.latex`` of an expression over validated identifiers, numbers formatted
+    by :func:`tex_number`), never text that came from a design file.
+
+    Parameters
+    ----------
+    value : str
+        The LaTeX source.
+
+    Raises
+    ------
+    RenderError
+        If the text contains ``^^`` or a control word that reads or writes files, runs
+        commands, changes category codes or defines macros (``\\input``, ``\\openin``,
+        ``\\write``, ``\\catcode``, ``\\csname``, ``\\def``, ``\\usepackage``,
+        ``\\directlua``, ``\\pdf...`` primitives, ...).  Such text is a bug: user text
+        reached a trusted value without escaping.
+
+    Notes
+    -----
+    Operations on the value (``+``, ``%``, ``upper()``, slicing) return a plain ``str``,
+    which the environment escapes again: trust does not carry over to derived text.
+    A ``TrustedLatex`` printed by the "md" environment is escaped like any other string.
+
+    Examples
+    --------
+    >>> TrustedLatex(r"\\frac{1}{s+2}")
+    '\\\\frac{1}{s+2}'
+    """
+
+    __slots__ = ()
+
+    def __new__(cls, value: str = "") -> TrustedLatex:
+        if not isinstance(value, str):
+            raise TypeError(f"TrustedLatex expects a str, got {type(value).__name__}")
+        problems = sorted(
+            {
+                word
+                for word in _CONTROL_WORD.findall(value)
+                if word in _FORBIDDEN_CONTROL_WORDS or word.startswith("pdf")
+            }
+        )
+        if "^^" in value:
+            problems.append("^^")
+        problems.extend(_DOCUMENT_OR_VERBATIM.findall(value))
+        if problems:
+            raise RenderError(
+                "refusing to trust LaTeX that contains "
+                + ", ".join(p if p == "^^" or p.startswith("\\") else "\\" + p for p in problems)
+                + "; escape user text with escape_latex instead"
+            )
+        return super().__new__(cls, value)
+
+
+class TrustedMarkdown(str):
+    """Markdown produced by gainsmith's own code, printed by the "md" environment as is.
+
+    Parameters
+    ----------
+    value : str
+        The Markdown source.
+
+    Notes
+    -----
+    As with :class:`TrustedLatex`, derived strings are plain ``str`` and get escaped, and a
+    ``TrustedMarkdown`` printed by the "tex" environment is escaped like any other string.
+    No content check is made; wrap only text our own code built.
+    """
+
+    __slots__ = ()
+
+    def __new__(cls, value: str = "") -> TrustedMarkdown:
+        if not isinstance(value, str):
+            raise TypeError(f"TrustedMarkdown expects a str, got {type(value).__name__}")
+        return super().__new__(cls, value)
+
+
+# --------------------------------------------------------------------------------------
+# Character classes shared by both escapers
+# --------------------------------------------------------------------------------------
+
+# Invisible characters that can reorder or hide text: bidirectional embeddings, overrides
+# and isolates, zero-width spaces and joiners, marks, the byte-order mark, the soft hyphen.
+_INVISIBLE = frozenset(
+    [*range(0x200B, 0x2010), *range(0x202A, 0x202F), *range(0x2060, 0x2065)]
+    + [*range(0x2066, 0x206A), 0xFEFF, 0x061C, 0x180E, 0x00AD]
+)
+# Characters that separate words or lines; each becomes one plain space.
+_SPACES = frozenset(
+    [0x09, 0x0A, 0x0B, 0x0C, 0x0D, 0x1C, 0x1D, 0x1E, 0x1F, 0x85, 0x1680, 0x2028, 0x2029]
+    + [*range(0x2000, 0x200B), 0x202F, 0x205F, 0x3000]
+)
+_SURROGATES = re.compile("[\ud800-\udfff]")
+
+
+def _prepare(text: str, function: str) -> str:
+    """Replace lone surrogates by U+FFFD and compose to NFC (é as one character)."""
+    if not isinstance(text, str):
+        raise TypeError(f"{function} expects a str, got {type(text).__name__}")
+    return unicodedata.normalize("NFC", _SURROGATES.sub("\ufffd", text))
+
+
+def _is_dropped(codepoint: int) -> bool:
+    return codepoint in _INVISIBLE or unicodedata.category(chr(codepoint)) == "Cc"
+
+
+# --------------------------------------------------------------------------------------
+# LaTeX
+# --------------------------------------------------------------------------------------
+
+_LATEX_SPECIALS = {
+    "\\": r"\textbackslash{}",
+    "{": r"\{",
+    "}": r"\}",
+    "$": r"\$",
+    "&": r"\&",
+    "#": r"\#",
+    "^": r"\textasciicircum{}",
+    "_": r"\_",
+    "%": r"\%",
+    "~": r"\textasciitilde{}",
+    # OT1 prints < > | as other glyphs, and T1 forms guillemets from << and >>.
+    "<": r"\textless{}",
+    ">": r"\textgreater{}",
+    "|": r"\textbar{}",
+    # A bracket right after \item or \\ would be read as an optional argument.
+    "[": "{[}",
+    "]": "{]}",
+    # T1 ligatures: -- and --- become dashes, ,, a low quote, '' `` curly quotes, and
+    # !` ?` inverted marks.  Braces break the ligatures; the text commands give the
+    # straight ASCII glyphs.
+    "-": "{-}",
+    ",": "{,}",
+    "'": r"\textquotesingle{}",
+    "`": r"\textasciigrave{}",
+    '"': r"\textquotedbl{}",
+}
+
+# Non-ASCII characters kept as they are: pdfLaTeX's utf8 input with T1 + Latin Modern +
+# textcomp typesets them, and pdftotext gives them back unchanged or in an equivalent
+# Unicode normal form.  Measured on TeX Live 2022 with poppler's pdftotext; characters of
+# Latin Extended-A that came back as a different letter (Đ came back as the lookalike Ð)
+# or as a letter plus a loose accent (the cedillas) are left out.
+_LATEX_KEPT = frozenset(
+    "".join(chr(c) for c in range(0xA0, 0x100) if c != 0xAD)
+    + "ĀāĂăĄąĆćĈĉĊċČčĎďđĒēĔĕĖėĘęĚěĜĝĞğĠġĤĥĨĪĬİıĲĳĴĹĺĽľŁłŃńŇňŊŋŌōŎŏŐőŒœŔŕŘřŚśŜŝŞşŠšŢţŤť"
+    + "ŨũŪūŬŭŮůŰűŴŵŶŷŸŹźŻżŽž"
+    + "–—‘’‚“”„†‡•…‰‹›€™℃№←↑→↓"
+)
+
+# Characters typeset by a command, mostly Greek letters in math.  Greek capitals that look
+# like Latin ones (Α, Β, Ε, ...) and omicron have no LaTeX command and fall through to the
+# code point replacement, which also exposes lookalike spoofing.  ε/ϵ and φ/ϕ follow
+# Unicode: U+03B5 is \varepsilon and U+03F5 is \epsilon, U+03C6 is \varphi and U+03D5 \phi.
+_LATEX_MATH_NAMES = {
+    "α": "alpha", "β": "beta", "γ": "gamma", "δ": "delta", "ε": "varepsilon",
+    "ϵ": "epsilon", "ζ": "zeta", "η": "eta", "θ": "theta", "ϑ": "vartheta", "ι": "iota",
+    "κ": "kappa", "λ": "lambda", "μ": "mu", "ν": "nu", "ξ": "xi", "π": "pi", "ϖ": "varpi",
+    "ρ": "rho", "ϱ": "varrho", "σ": "sigma", "ς": "varsigma", "τ": "tau", "υ": "upsilon",
+    "φ": "varphi", "ϕ": "phi", "χ": "chi", "ψ": "psi", "ω": "omega",
+    "Γ": "Gamma", "Δ": "Delta", "Θ": "Theta", "Λ": "Lambda", "Ξ": "Xi", "Π": "Pi",
+    "Σ": "Sigma", "Υ": "Upsilon", "Φ": "Phi", "Ψ": "Psi", "Ω": "Omega",
+    "≤": "leq", "≥": "geq", "≠": "neq", "≈": "approx", "∞": "infty", "∂": "partial",
+    "∓": "mp", "≪": "ll", "≫": "gg", "≡": "equiv", "∝": "propto", "∇": "nabla",
+    "∈": "in", "⇒": "Rightarrow", "′": "prime", "∪": "cup", "∩": "cap",
+}  # fmt: skip
+_LATEX_COMMANDS = {ch: rf"\ensuremath{{\{name}}}" for ch, name in _LATEX_MATH_NAMES.items()}
+_LATEX_COMMANDS["\N{MINUS SIGN}"] = r"\textminus{}"
+_LATEX_COMMANDS["″"] = r"\ensuremath{\prime\prime}"
+# Superscripts of our own labels (Lᵀ, (sI − F)⁻¹): set as superscripts, not as code points.
+_LATEX_COMMANDS["ᵀ"] = r"\ensuremath{^{\mathsf{T}}}"
+_LATEX_COMMANDS["⁻"] = r"\ensuremath{^{-}}"
+
+# A run of more than _RUN_LIMIT characters without a space gets a break point every
+# _RUN_CHUNK characters, so that a long token (a path, a hash) wraps instead of running off
+# the page, where a reader (and pdftotext) would not see it.
+_RUN_LIMIT = 20
+_RUN_CHUNK = 16
+_LONG_RUN = re.compile(rf"\S{{{_RUN_LIMIT + 1},}}")
+_LATEX_BREAK = r"\allowbreak{}"
+
+
+def _codepoint_latex(codepoint: int) -> str:
+    return rf"\texttt{{[U+{codepoint:04X}]}}\allowbreak{{}}"
+
+
+@lru_cache(maxsize=4096)
+def _latex_for(codepoint: int) -> str:
+    """The LaTeX for one code point; the single source of the LaTeX character map."""
+    char = chr(codepoint)
+    if char in _LATEX_SPECIALS:
+        return _LATEX_SPECIALS[char]
+    if codepoint in _SPACES:
+        return " "
+    if _is_dropped(codepoint):
+        return ""
+    if 0x20 <= codepoint < 0x7F or char in _LATEX_KEPT:
+        return char
+    if char in _LATEX_COMMANDS:
+        return _LATEX_COMMANDS[char]
+    return _codepoint_latex(codepoint)
+
+
+class _CharMap:
+    """A read-only mapping for ``str.translate`` that computes each entry on demand."""
+
+    __slots__ = ("_function",)
+
+    def __init__(self, function: Callable[[int], str]) -> None:
+        self._function = function
+
+    def __getitem__(self, codepoint: int) -> str:
+        return self._function(codepoint)
+
+
+_LATEX_MAP = _CharMap(_latex_for)
+
+
+def escape_latex(text: str) -> str:
+    """Escape text so that pdfLaTeX prints it literally and runs none of it.
+
+    Parameters
+    ----------
+    text : str
+        Any text, e.g. a title or a parameter description from a design file.
+
+    Returns
+    -------
+    str
+        LaTeX for text mode (paragraphs, table cells, ``\\section`` and ``\\title``
+        arguments).  It needs the preamble lines of :data:`LATEX_PREAMBLE_LINES`.
+
+    Raises
+    ------
+    TypeError
+        If `text` is not a ``str``.
+
+    Notes
+    -----
+    One pass of ``str.translate`` maps each character once, so an escape is never escaped
+    again and ``^^5c`` (TeX's code for a backslash) cannot be formed:
+
+    * the ten specials ``\\ { } $ & # ^ _ % ~`` become ``\\textbackslash{}``, ``\\{``,
+      ``\\}``, ``\\$``, ``\\&``, ``\\#``, ``\\textasciicircum{}``, ``\\_``, ``\\%``,
+      ``\\textasciitilde{}``; ``< > |`` become ``\\textless{}``, ``\\textgreater{}``,
+      ``\\textbar{}``;
+    * ``[ ]`` are braced so that they are never read as an optional argument, and
+      ``- , ' ` "`` are braced or spelled as text commands so that T1 forms no ligature
+      (``--`` stays two hyphens, quotes stay straight);
+    * newlines, tabs and other separators become a space; control characters,
+      bidirectional overrides and isolates, zero-width characters, the byte-order mark
+      and the soft hyphen are dropped;
+    * the text is composed to Unicode NFC first and lone surrogates become U+FFFD;
+    * Latin-1 letters and symbols, most letters of Latin Extended-A and common
+      typographic characters (dashes, curly quotes, €, ™, arrows) are kept; Greek letters
+      and a few relations (≤ ≥ ≈ ≠ ∞ ...) become ``\\ensuremath{\\alpha}`` etc.;
+    * every other character becomes its code point in typewriter type, ``[U+0416]``.
+      This covers Cyrillic, CJK, emoji, Greek capitals that look like Latin letters, and
+      characters that could not be typeset without extra fonts;
+    * a run of more than 20 characters without a space gets a break point
+      (``\\allowbreak{}``) every 16 characters, and each code point replacement is
+      followed by one, so that long tokens wrap at the margin.
+
+    References
+    ----------
+    .. [1] D. E. Knuth, *The TeXbook*, Addison-Wesley, 1984, ch. 7 (category codes) and
+       ch. 8 (the ``^^`` convention).
+    .. [2] LaTeX Project, *LaTeX font encodings* (fntguide/encguide), section on the T1
+       encoding and its ligatures.
+
+    Examples
+    --------
+    >>> escape_latex("50% of $x_1$")
+    '50\\\\% of \\\\$x\\\\_1\\\\$'
+    >>> escape_latex("\\\\{")
+    '\\\\textbackslash{}\\\\{'
+    >>> escape_latex("ω = 2π f")
+    '\\\\ensuremath{\\\\omega} = 2\\\\ensuremath{\\\\pi} f'
+    """
+    text = _prepare(text, "escape_latex")
+    if not _LONG_RUN.search(text):
+        return text.translate(_LATEX_MAP)
+    pieces: list[str] = []
+    position = 0
+    for match in _LONG_RUN.finditer(text):
+        pieces.append(text[position : match.start()].translate(_LATEX_MAP))
+        run = match.group()
+        chunks = (run[i : i + _RUN_CHUNK] for i in range(0, len(run), _RUN_CHUNK))
+        pieces.append(_LATEX_BREAK.join(chunk.translate(_LATEX_MAP) for chunk in chunks))
+        position = match.end()
+    pieces.append(text[position:].translate(_LATEX_MAP))
+    return "".join(pieces)
+
+
+# --------------------------------------------------------------------------------------
+# Markdown
+# --------------------------------------------------------------------------------------
+
+# CommonMark lets a backslash escape any ASCII punctuation (spec 0.31.2, section 2.4).  We
+# escape the characters that start Markdown syntax (emphasis, links, images, headings,
+# lists, tables, code, block quotes, GitHub math, strikethrough, setext underlines) and
+# ``: @`` that trigger GitHub's autolinks and mentions; < > & become HTML entities so that
+# no HTML tag can form.
+_MARKDOWN_BACKSLASHED = "\\`*_{}[]()#+-.!|$~=:@"
+_MARKDOWN_ENTITIES = {"<": "&lt;", ">": "&gt;", "&": "&amp;"}
+
+
+@lru_cache(maxsize=4096)
+def _markdown_for(codepoint: int) -> str:
+    """The Markdown for one code point; the single source of the Markdown character map."""
+    char = chr(codepoint)
+    if char in _MARKDOWN_ENTITIES:
+        return _MARKDOWN_ENTITIES[char]
+    if char in _MARKDOWN_BACKSLASHED:
+        return "\\" + char
+    if codepoint in _SPACES:
+        return " "
+    if _is_dropped(codepoint):
+        return ""
+    category = unicodedata.category(char)
+    if category in ("Cf", "Co", "Cn", "Cs"):
+        # Other format characters (e.g. the invisible tag characters), private-use and
+        # unassigned code points are shown by number.
+        return rf"\[U\+{codepoint:04X}\]"
+    return char
+
+
+_MARKDOWN_MAP = _CharMap(_markdown_for)
+_SPACE_RUNS = re.compile(" {2,}")
+
+
+def escape_markdown(text: str) -> str:
+    """Escape text so that a Markdown renderer (GitHub's) shows it literally and inertly.
+
+    Parameters
+    ----------
+    text : str
+        Any text, e.g. a title or a parameter description from a design file.
+
+    Returns
+    -------
+    str
+        Markdown for a paragraph or a table cell (not for a code span, where the
+        backslashes would show).
+
+    Raises
+    ------
+    TypeError
+        If `text` is not a ``str``.
+
+    Notes
+    -----
+    One pass of ``str.translate``:
+
+    * ``\\ ` * _ { } [ ] ( ) # + - . ! | $ ~ = : @`` get a backslash, so no emphasis, link,
+      image, heading, list, table, code span, math or autolink can start;
+    * ``< > &`` become ``&lt; &gt; &amp;``, so no HTML tag or entity can form;
+    * newlines, tabs and other separators become a space, runs of spaces become one
+      space and the ends are trimmed (no indented code block, no hard line break);
+    * control characters, bidirectional overrides and isolates, zero-width characters,
+      the byte-order mark and the soft hyphen are dropped; other invisible format
+      characters, private-use and unassigned code points become ``[U+XXXX]``;
+    * the text is composed to NFC first and lone surrogates become U+FFFD.
+
+    Other Unicode text (Cyrillic, CJK, emoji) is kept: Markdown is UTF-8.
+
+    References
+    ----------
+    .. [1] J. MacFarlane, *CommonMark Spec*, version 0.31.2, 2024, section 2.4 "Backslash
+       escapes" and section 2.5 "Entity and numeric character references".
+    .. [2] GitHub, *GitHub Flavored Markdown Spec*, version 0.29-gfm, 2019, sections 6.5
+       (strikethrough) and 6.9 (autolinks, extension).
+
+    Examples
+    --------
+    >>> escape_markdown("[x](javascript:alert(1))")
+    '\\\\[x\\\\]\\\\(javascript\\\\:alert\\\\(1\\\\)\\\\)'
+    >>> escape_markdown("<b>bold</b>")
+    '&lt;b&gt;bold&lt;/b&gt;'
+    """
+    text = _prepare(text, "escape_markdown").translate(_MARKDOWN_MAP)
+    return _SPACE_RUNS.sub(" ", text).strip(" ")
+
+
+# --------------------------------------------------------------------------------------
+# Numbers
+# --------------------------------------------------------------------------------------
+
+
+def _split_number(value: object, digits: int, function: str) -> tuple[complex | float, int]:
+    if isinstance(digits, bool) or not isinstance(digits, int) or digits < 1:
+        raise RenderError(f"{function}: digits must be a positive integer, got {digits!r}")
+    if isinstance(value, bool) or not isinstance(value, numbers.Number):
+        raise RenderError(f"{function} expects a number, got {type(value).__name__}")
+    if isinstance(value, numbers.Real):
+        return float(value), digits
+    if isinstance(value, numbers.Complex):
+        return complex(value), digits
+    raise RenderError(f"{function} cannot format {type(value).__name__}")
+
+
+def _real_parts(x: float, digits: int) -> tuple[str, str, str | None]:
+    """Sign, mantissa and decimal exponent (None when not in scientific form) of x."""
+    if math.isnan(x):
+        return "", "nan", None
+    if math.isinf(x):
+        return ("-" if x < 0 else ""), "inf", None
+    text = f"{x:.{digits}g}"
+    sign = ""
+    if text.startswith("-"):
+        sign, text = "-", text[1:]
+    if text.strip("0.") == "":
+        sign = ""  # no "-0"
+    mantissa, _, exponent = text.partition("e")
+    return sign, mantissa, (str(int(exponent)) if exponent else None)
+
+
+def _tex_real(x: float, digits: int) -> str:
+    sign, mantissa, exponent = _real_parts(x, digits)
+    if mantissa == "nan":
+        return r"\mathrm{NaN}"
+    if mantissa == "inf":
+        return sign + r"\infty"
+    if exponent is None:
+        return sign + mantissa
+    return rf"{sign}{mantissa}\times10^{{{exponent}}}"
+
+
+def _tex_text(text: str) -> str:
+    """A number printed by :func:`symbolic.model.numbers.format_number`, for math mode."""
+    sign = ""
+    if text.startswith("-"):
+        sign, text = "-", text[1:]
+    if text == "nan":
+        return r"\mathrm{NaN}"
+    if text == "inf":
+        return sign + r"\infty"
+    mantissa, _, exponent = text.partition("e")
+    if not exponent:
+        return sign + mantissa
+    return rf"{sign}{mantissa}\times10^{{{int(exponent)}}}"
+
+
+def tex_number(x: object, digits: int = 6) -> TrustedLatex:
+    """Format a number for LaTeX math mode.
+
+    Parameters
+    ----------
+    x : real or complex number
+        Python, NumPy or SymPy number.
+    digits : int, optional
+        Significant digits (``format(x, ".{digits}g")``), by default 6.
+
+    Returns
+    -------
+    TrustedLatex
+        For math mode, e.g. ``1.23\\times10^{-5}``; ``\\infty``, ``-\\infty``,
+        ``\\mathrm{NaN}``; a complex number (a pole) ``a + b\\,\\mathrm{j}`` (``j`` for the
+        imaginary unit as in control engineering), with the parts of
+        :func:`symbolic.model.numbers.format_pole`: a part too small to show at ``digits``
+        figures is left out (``-4`` for ``-4 + 1e-17j``, ``3\\,\\mathrm{j}`` for ``3j``).
+
+    Raises
+    ------
+    RenderError
+        If `x` is not a number or `digits` is not a positive integer.
+
+    Examples
+    --------
+    >>> tex_number(1.23e-05)
+    '1.23\\\\times10^{-5}'
+    >>> tex_number(-2.5 + 1j, digits=3)
+    '-2.5 + 1\\\\,\\\\mathrm{j}'
+    """
+    value, digits = _split_number(x, digits, "tex_number")
+    if isinstance(value, float):
+        return TrustedLatex(_tex_real(value, digits))
+    real, imag = pole_parts(value, digits)
+    if imag is None:
+        return TrustedLatex(_tex_text(real or "0"))
+    negative = imag.startswith("-")
+    imag_text = _tex_text(imag.removeprefix("-")) + r"\,\mathrm{j}"
+    if real is None:
+        return TrustedLatex(("-" if negative else "") + imag_text)
+    return TrustedLatex(_tex_text(real) + (" - " if negative else " + ") + imag_text)
+
+
+_SUPERSCRIPT = str.maketrans("0123456789-", "⁰¹²³⁴⁵⁶⁷⁸⁹⁻")
+
+
+def _md_real(x: float, digits: int) -> str:
+    sign, mantissa, exponent = _real_parts(x, digits)
+    minus = "\N{MINUS SIGN}" if sign else ""
+    if mantissa == "nan":
+        return "NaN"
+    if mantissa == "inf":
+        return minus + "∞"
+    if exponent is None:
+        return minus + mantissa
+    return f"{minus}{mantissa}×10{exponent.translate(_SUPERSCRIPT)}"
+
+
+def md_number(x: object, digits: int = 6) -> TrustedMarkdown:
+    """Format a number for Markdown in plain Unicode, e.g. ``1.23×10⁻⁵``.
+
+    Parameters
+    ----------
+    x : real or complex number
+        Python, NumPy or SymPy number.
+    digits : int, optional
+        Significant digits, by default 6.
+
+    Returns
+    -------
+    TrustedMarkdown
+        Digits, ``.``, the minus sign U+2212, ``×`` and superscript digits only, so no
+        Markdown syntax can form; ``∞``, ``NaN``.  A complex number (a pole) is written
+        as a design file writes it, by :func:`symbolic.model.numbers.format_pole`: ``-2+3j``,
+        ``-4`` (digits, ``.``, ``e``, ASCII ``+`` and ``-`` and ``j``, with no space, so
+        again no Markdown syntax can form).
+
+    Raises
+    ------
+    RenderError
+        If `x` is not a number or `digits` is not a positive integer.
+
+    Examples
+    --------
+    >>> md_number(1.23e-05)
+    '1.23×10⁻⁵'
+    >>> md_number(-4.0)
+    '−4'
+    >>> md_number(-2 - 3j)
+    '-2-3j'
+    """
+    value, digits = _split_number(x, digits, "md_number")
+    if isinstance(value, float):
+        return TrustedMarkdown(_md_real(value, digits))
+    return TrustedMarkdown(format_pole(value, digits))
+
+
+# --------------------------------------------------------------------------------------
+# Environments
+# --------------------------------------------------------------------------------------
+
+
+def templates_dir() -> Path:
+    """The folder holding the memo templates.
+
+    Returns
+    -------
+    pathlib.Path
+        ``symbolic/templates`` inside an installed package (found with
+        ``importlib.resources``), else ``templates/`` beside the ``symbolic`` folder of a
+        source checkout.
+
+    Raises
+    ------
+    RenderError
+        If neither folder exists.
+    """
+    try:
+        resource = importlib.resources.files("symbolic.templates")
+    except (ModuleNotFoundError, TypeError, ValueError):
+        resource = None
+    if resource is not None:
+        candidate = Path(str(resource))
+        if candidate.is_dir():
+            return candidate
+    checkout = Path(__file__).resolve().parents[2] / "templates"
+    if checkout.is_dir():
+        return checkout
+    raise RenderError(f"cannot find the templates folder (looked for {checkout})")
+
+
+class _LatexLayout(str):
+    """Text produced by a "tex" template itself (literal layout plus escaped values)."""
+
+    __slots__ = ()
+
+
+class _MarkdownLayout(str):
+    """Text produced by a "md" template itself (literal layout plus escaped values)."""
+
+    __slots__ = ()
+
+
+class _LatexEnvironment(jinja2.Environment):
+    # Jinja2 joins a template's own output with ``environment.concat``: the whole render,
+    # macro bodies, ``caller()``, set and filter blocks.  Every piece is template text or a
+    # value that went through ``finalize``, so the joined text is marked as layout.  The
+    # ``~`` operator and filters do not use it and yield plain (escaped) strings.
+    @staticmethod
+    def concat(parts: Iterable[str]) -> str:
+        return _LatexLayout("".join(parts))
+
+
+class _MarkdownEnvironment(jinja2.Environment):
+    @staticmethod
+    def concat(parts: Iterable[str]) -> str:
+        return _MarkdownLayout("".join(parts))
+
+
+def _finalize_tex(value: object) -> str:
+    if isinstance(value, (TrustedLatex, _LatexLayout)):
+        return str.__str__(value)
+    if value is None:
+        return r"\textemdash{}"
+    return escape_latex(value if isinstance(value, str) else str(value))
+
+
+def _finalize_md(value: object) -> str:
+    if isinstance(value, (TrustedMarkdown, _MarkdownLayout)):
+        return str.__str__(value)
+    if value is None:
+        return MISSING_VALUE
+    return escape_markdown(value if isinstance(value, str) else str(value))
+
+
+def make_environment(kind: Literal["tex", "md"]) -> jinja2.Environment:
+    """Build the Jinja2 environment for LaTeX ("tex") or Markdown ("md") templates.
+
+    Parameters
+    ----------
+    kind : {"tex", "md"}
+        The output format.
+
+    Returns
+    -------
+    jinja2.Environment
+        Loading templates from :func:`templates_dir`, with ``StrictUndefined`` (a missing
+        variable raises), ``autoescape=False``, ``keep_trailing_newline``, ``trim_blocks``
+        and ``lstrip_blocks``.  A ``finalize`` hook escapes every printed value with
+        :func:`escape_latex` / :func:`escape_markdown` unless it is a
+        :class:`TrustedLatex` ("tex") / :class:`TrustedMarkdown` ("md"); other values are
+        converted with ``str()`` first, and ``None`` prints as an em dash.  "tex" uses the
+        delimiters ``\\VAR{ }``, ``\\BLOCK{ }``, ``\\#{ }`` with line statements ``%%`` and
+        line comments ``%#``; "md" uses Jinja2's usual ``{{ }}``, ``{% %}``, ``{# #}``.
+        Filters: ``tex_number`` ("tex") and ``md_number`` ("md").
+
+    Raises
+    ------
+    ValueError
+        If `kind` is neither "tex" nor "md".
+    RenderError
+        If the templates folder cannot be found.
+
+    Examples
+    --------
+    >>> env = make_environment("tex")
+    >>> env.from_string(r"\\textbf{\\VAR{title}}").render(title="P&ID #3")
+    '\\\\textbf{P\\\\&ID \\\\#3}'
+    """
+    common: dict[str, Any] = {
+        "loader": jinja2.FileSystemLoader(str(templates_dir())),
+        "undefined": jinja2.StrictUndefined,
+        "autoescape": False,
+        "keep_trailing_newline": True,
+        "trim_blocks": True,
+        "lstrip_blocks": True,
+    }
+    if kind == "tex":
+        env: jinja2.Environment = _LatexEnvironment(
+            block_start_string=r"\BLOCK{",
+            block_end_string="}",
+            variable_start_string=r"\VAR{",
+            variable_end_string="}",
+            comment_start_string=r"\#{",
+            comment_end_string="}",
+            line_statement_prefix="%%",
+            line_comment_prefix="%#",
+            finalize=_finalize_tex,
+            **common,
+        )
+        env.filters["tex_number"] = tex_number
+        return env
+    if kind == "md":
+        env = _MarkdownEnvironment(finalize=_finalize_md, **common)
+        env.filters["md_number"] = md_number
+        return env
+    raise ValueError(f'kind must be "tex" or "md", got {kind!r}')
+
+
+def render_template(kind: Literal["tex", "md"], name: str, context: Mapping[str, object]) -> str:
+    """Render one template of the templates folder.
+
+    Parameters
+    ----------
+    kind : {"tex", "md"}
+        The environment to use (see :func:`make_environment`).
+    name : str
+        Template file name inside the templates folder, e.g. ``"memo.tex.j2"``.
+    context : Mapping[str, object]
+        The template variables.
+
+    Returns
+    -------
+    str
+        The rendered document.
+
+    Raises
+    ------
+    RenderError
+        If the template is missing, has a syntax error, or uses a variable or attribute
+        that the context does not supply.
+    """
+    env = make_environment(kind)
+    try:
+        return str.__str__(env.get_template(name).render(**context))
+    except jinja2.TemplateNotFound as error:
+        raise RenderError(f"template not found: {name}") from error
+    except jinja2.TemplateSyntaxError as error:
+        raise RenderError(f"template {name}, line {error.lineno}: {error.message}") from error
+    except jinja2.UndefinedError as error:
+        raise RenderError(f"template {name}: {error.message}") from error
