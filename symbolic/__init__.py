@@ -43,25 +43,28 @@ from .runtime.errors import (
 #: command line start at once: SymPy and SciPy load when a name needs them, and the
 #: command line can start its SciPy sidecar first (:mod:`symbolic.runtime.sidecar`).
 _LAZY = {
-    "Check": "derivation.pipeline",
-    "CompensatorResult": "derivation.pipeline",
-    "Derivation": "derivation.pipeline",
-    "GainResult": "derivation.pipeline",
-    "PoleChoice": "derivation.pipeline",
-    "ReferenceGainResult": "derivation.pipeline",
-    "SeparatedLoop": "derivation.pipeline",
-    "StructureReport": "derivation.pipeline",
+    "Check": "model.results",
+    "CompensatorResult": "model.results",
+    "Derivation": "model.results",
+    "GainResult": "model.results",
+    "PoleChoice": "model.results",
+    "ReferenceGainResult": "model.results",
+    "SeparatedLoop": "model.results",
+    "StructureReport": "model.results",
     "derive": "derivation.pipeline",
-    "Design": "input.design",
-    "Parameter": "input.design",
-    "Plant": "input.design",
-    "Signal": "input.design",
+    "Design": "model.design",
+    "Parameter": "model.design",
+    "Plant": "model.design",
+    "Signal": "model.design",
     "load_design": "input.design",
     "parse_design": "input.design",
 }
 
 if TYPE_CHECKING:  # pragma: no cover
-    from .derivation.pipeline import (
+    from .derivation.pipeline import derive
+    from .input.design import load_design, parse_design
+    from .model.design import Design, Parameter, Plant, Signal
+    from .model.results import (
         Check,
         CompensatorResult,
         Derivation,
@@ -70,9 +73,7 @@ if TYPE_CHECKING:  # pragma: no cover
         ReferenceGainResult,
         SeparatedLoop,
         StructureReport,
-        derive,
     )
-    from .input.design import Design, Parameter, Plant, Signal, load_design, parse_design
 
 
 def __getattr__(name: str):

@@ -504,7 +504,8 @@ def test_gain_tolerance_widens_only_with_the_spread_of_two_numeric_methods():
     """Well conditioned: exactly GAIN_TOLERANCE.  Condition number 1e12: wider, yet a gain
     1e-4 off still fails (the closed form is checked, not waved through)."""
     from symbolic.derivation.numeric import numeric_ackermann, relative_difference
-    from symbolic.derivation.pipeline import GAIN_TOLERANCE, gain_tolerance
+    from symbolic.derivation.pipeline import gain_tolerance
+    from symbolic.model.tolerances import GAIN_TOLERANCE
 
     for plant, wide in ((weak_chain(3, 0.1), False), (weak_chain(4, 1e-4), True)):
         A, B = plant.numeric("A"), plant.numeric("B")
@@ -521,7 +522,8 @@ def test_gain_tolerance_widens_only_with_the_spread_of_two_numeric_methods():
 def test_compensator_check_is_by_frequency_response():
     """Stiff plant: coefficients of the compensator span many decades, its values on
     s = jω do not; a numerator 1e-5 off fails the check."""
-    from symbolic.derivation.pipeline import COMPENSATOR_TOLERANCE, frequency_response_difference
+    from symbolic.derivation.pipeline import frequency_response_difference
+    from symbolic.model.tolerances import COMPENSATOR_TOLERANCE
 
     stiff = next(p for p in OTHER_HARD if p.name.startswith("time constants"))
     d = symbolic.derive(symbolic.parse_design(stiff.toml()), budget=10)

@@ -20,7 +20,7 @@ from symbolic import derive, load_design, parse_design
 from symbolic.analysis.claims import check_claims, format_claims
 from symbolic.analysis.robust import memo_robustness
 from symbolic.cli import main
-from symbolic.input.design import Claims
+from symbolic.model.design import Claims
 from symbolic.model.labels import gain_label
 from symbolic.render.memo import _gain_block
 from symbolic.render.report import derivation_summary

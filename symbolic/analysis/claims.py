@@ -9,7 +9,7 @@ computes the steady-state gain from the reference to the tracked output that
 the claimed N gives together with gainsmith's K.
 
 One direction of flow: this module consumes a finished
-:class:`~symbolic.derivation.pipeline.Derivation` and derives nothing itself; the
+:class:`~symbolic.model.results.Derivation` and derives nothing itself; the
 renderers :func:`format_claims` (terminal) and :func:`claims_json` consume a
 finished :class:`ClaimReport`.
 
@@ -32,10 +32,11 @@ import numpy as np
 from scipy.optimize import linear_sum_assignment
 
 from ..derivation.numeric import check_eigenvalues
-from ..derivation.pipeline import Derivation, derive
-from ..input.design import Claims, Design
+from ..derivation.pipeline import derive
+from ..model.design import Claims, Design
 from ..model.labels import gain_label
 from ..model.numbers import format_number, format_pole
+from ..model.results import Derivation
 from ..render.report import complex_pairs, dumps
 from ..runtime.errors import DesignFileError
 

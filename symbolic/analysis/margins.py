@@ -85,7 +85,8 @@ import numpy as np
 from scipy.optimize import brentq
 
 from ..derivation.numeric import frequency_response
-from ..derivation.pipeline import Check, Derivation, eigenvalue_check
+from ..derivation.pipeline import eigenvalue_check
+from ..model.results import Check, Derivation
 
 __all__ = [
     "BrokenLoop",

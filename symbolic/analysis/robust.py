@@ -70,10 +70,11 @@ import sympy as sp
 
 from ..derivation.closed_form import characteristic_coefficients
 from ..derivation.numeric import evaluate_matrix, numeric_ackermann
-from ..derivation.pipeline import Check, Derivation, derive, eigenvalue_check
-from ..input.design import Design
+from ..derivation.pipeline import derive, eigenvalue_check
+from ..model.design import Design
 from ..model.labels import gain_label
 from ..model.numbers import format_pole, format_poles
+from ..model.results import Check, Derivation
 from ..runtime.budget import run_bounded
 from ..runtime.errors import BudgetExceeded, DesignFileError
 from .margins import MarginComparison, MarginReport, compare_margins

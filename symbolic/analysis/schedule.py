@@ -47,14 +47,16 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
 from ..derivation.numeric import check_eigenvalues, scipy_placement
-from ..derivation.pipeline import GAIN_TOLERANCE, Derivation, derive
-from ..input.design import Design
+from ..derivation.pipeline import derive
+from ..model.design import Design
 from ..model.labels import gain_label
+from ..model.results import Derivation
+from ..model.tolerances import GAIN_TOLERANCE
 from ..render.export import (
     CODE_OK,
     CODE_WORDS,
     GainFormulas,
-    _PythonPrinter,
+    PythonPrinter,
     gain_evaluator,
     gain_formulas,
 )
@@ -229,7 +231,7 @@ def _plant_stacks(design: Design, values: dict[str, np.ndarray], count: int):
     mats = [sp.Matrix(getattr(design.plant, name)) for name in ("A", "B", "C", "D")]
     entries = [e for M in mats for e in M]
     f = sp.lambdify(
-        symbols, entries, "numpy", printer=_PythonPrinter(), dummify=True, docstring_limit=0
+        symbols, entries, "numpy", printer=PythonPrinter(), dummify=True, docstring_limit=0
     )
     with np.errstate(all="ignore"):
         got = f(*args)

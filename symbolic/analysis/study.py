@@ -1,6 +1,6 @@
 """Simulation study of a finished design: cases, spec verdicts, saturation, observer speed.
 
-Consumes a :class:`~symbolic.derivation.pipeline.Derivation` (never re-derives the
+Consumes a :class:`~symbolic.model.results.Derivation` (never re-derives the
 gains) and the simulator of :mod:`symbolic.verification.stepping`; feeds the
 ``gainsmith simulate`` command, its JSON, and the memo's response section.
 """
@@ -13,8 +13,8 @@ from functools import partial
 
 import numpy as np
 
-from ..derivation.pipeline import Derivation
 from ..model.numbers import format_poles
+from ..model.results import Derivation
 from ..runtime.errors import GainsmithError
 from ..verification.shipped import (
     ShippedController,

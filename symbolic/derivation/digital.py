@@ -56,6 +56,8 @@ import numpy as np
 import sympy as sp
 
 from ..model.numbers import format_pole
+from ..model.results import Check, Derivation
+from ..model.tolerances import GAIN_TOLERANCE
 from ..runtime.budget import BoundedChild
 from ..runtime.errors import GainsmithWarning, RenderError, StructureError
 from . import closed_form as cf
@@ -67,7 +69,7 @@ from .numeric import (
     sampled_plant,
     scipy_placement,
 )
-from .pipeline import GAIN_TOLERANCE, Check, Derivation, eigenvalue_check
+from .pipeline import eigenvalue_check
 
 __all__ = [
     "CLOSED_FORM_SECONDS",

@@ -68,6 +68,8 @@ import numpy as np
 import sympy as sp
 from sympy.polys.matrices import DomainMatrix
 
+from ..model.results import Check, Derivation
+from ..model.tolerances import GAIN_TOLERANCE
 from ..runtime.budget import BoundedChild
 from ..runtime.errors import BudgetExceeded, GainsmithWarning, StructureError
 from . import closed_form as cf
@@ -77,7 +79,7 @@ from .numeric import (
     relative_difference,
     scipy_placement,
 )
-from .pipeline import GAIN_TOLERANCE, Check, Derivation, conditions_of, eigenvalue_check
+from .pipeline import conditions_of, eigenvalue_check
 
 __all__ = [
     "DEFAULT_INTEGRAL_POLE_FACTOR",

@@ -16,13 +16,28 @@ import math
 import time
 import warnings
 from collections.abc import Sequence
-from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import sympy as sp
 
-from ..input.design import Design, Signal
+from ..model.design import Design
+from ..model.results import (
+    Check,
+    CompensatorResult,
+    Derivation,
+    GainResult,
+    NumericPlant,
+    PoleChoice,
+    ReferenceGainResult,
+    SeparatedLoop,
+    StructureReport,
+)
+from ..model.tolerances import (
+    COMPENSATOR_TOLERANCE,
+    GAIN_TOLERANCE,
+    ILL_CONDITIONED,
+    POLYNOMIAL_TOLERANCE,
+)
 from ..runtime import sidecar as _sidecar
 from ..runtime.budget import Outcome, run_bounded_steps
 from ..runtime.errors import BudgetExceeded, DesignFileError, GainsmithWarning, StructureError
@@ -38,11 +53,6 @@ from .numeric import (
     transfer_function,
 )
 from .specs import DominantPair, dominant_pair, remaining_poles
-
-if TYPE_CHECKING:
-    from .digital import DigitalController
-    from .integral import IntegralAction
-    from .reduced import ReducedObserver
 
 __all__ = [
     "Check",
@@ -62,37 +72,15 @@ __all__ = [
 
 s = cf.s
 
-#: Relative tolerance of gain comparisons against SciPy.
-GAIN_TOLERANCE = 1e-8
-#: Relative tolerance of characteristic-polynomial coefficient checks.
-POLYNOMIAL_TOLERANCE = 1e-8
-#: Condition number of the controllability/observability matrix above which a warning is given.
-ILL_CONDITIONED = 1e8
 #: Expressions with more operations than this are not factored outside the budgeted child.
 FACTOR_LIMIT = 400
 #: Closed-form transfer function of the compensator up to this order.
 COMPENSATOR_CLOSED_FORM_MAX_ORDER = 3
-#: Relative tolerance of the compensator's frequency-response check.
-COMPENSATOR_TOLERANCE = 1e-7
 
 
 # --------------------------------------------------------------------------
 # Result objects
 # --------------------------------------------------------------------------
-@dataclass(frozen=True)
-class Check:
-    """One numeric or exact verification.
-
-    ``passed`` is None for a check that could not be run (``note`` says why).
-    """
-
-    name: str
-    value: float | None
-    tolerance: float | None
-    passed: bool | None
-    note: str = ""
-
-
 def eigenvalue_check(
     name: str,
     matrix: np.ndarray,
@@ -111,157 +99,6 @@ def eigenvalue_check(
     """
     verdict = check_eigenvalues(matrix, poles, terms=terms, weights=weights, achieved=achieved)
     return Check(name, verdict.residual, verdict.tolerance, verdict.passed, verdict.explanation)
-
-
-@dataclass(frozen=True)
-class PoleChoice:
-    """Requested poles and how they were chosen."""
-
-    poles: tuple[sp.Expr, ...]
-    origin: str  # "given", "specifications", "speed factor"
-    rule: str  # one sentence for the reader
-    coefficients: tuple[sp.Expr, ...]  # [1, a_{n-1}, …, a_0]
-    dominant: DominantPair | None = None
-
-    @property
-    def values(self) -> np.ndarray:
-        return np.array([complex(p) for p in self.poles])
-
-    @property
-    def polynomial(self) -> sp.Expr:
-        n = len(self.coefficients) - 1
-        return sp.Add(*[c * s ** (n - i) for i, c in enumerate(self.coefficients)])
-
-
-@dataclass(frozen=True)
-class StructureReport:
-    """Controllability or observability of the plant."""
-
-    kind: str  # "controllability" or "observability"
-    matrix: sp.Matrix | None  # closed form (None if over budget)
-    determinant: sp.Expr | None  # factored, single input / single output only
-    conditions: tuple[str, ...]  # e.g. ("kf = 0",): where the property is lost
-    numeric_rank: int
-    order: int
-    condition_number: float
-    value: np.ndarray  # numeric matrix at the evaluated values
-
-    @property
-    def full_rank(self) -> bool:
-        return self.numeric_rank == self.order
-
-    @property
-    def adjective(self) -> str:
-        return "uncontrollable" if self.kind == "controllability" else "unobservable"
-
-
-@dataclass(frozen=True)
-class GainResult:
-    """A feedback gain (K) or observer gain (L)."""
-
-    name: str  # "K" or "L"
-    value: np.ndarray  # numeric, at the evaluated parameter values
-    closed_form: sp.Matrix | None
-    method: str
-    unique: bool
-    steps: cf.AckermannSteps | None = None  # of the dual pair for L
-    charpoly: tuple[sp.Expr, ...] | None = None  # det(sI − closed-loop matrix), closed form
-
-
-@dataclass(frozen=True)
-class ReferenceGainResult:
-    """Feed-forward gain N in u = −K x̂ + N r for zero steady-state step error."""
-
-    value: np.ndarray  # (m, 1)
-    closed_form: sp.Expr | None
-    zero_polynomial: (
-        tuple[sp.Expr, ...] | None
-    )  # numerator of the tracked output's transfer function
-    tracked: Signal
-    tracked_index: int
-    method: str
-
-
-@dataclass(frozen=True)
-class SeparatedLoop:
-    """The 2n closed loop in (state x, estimation error e = x − x̂) coordinates."""
-
-    value: np.ndarray
-    closed_form: sp.Matrix | None
-    charpoly: tuple[sp.Expr, ...] | None
-    factors_as_expected: bool | None
-    poles: np.ndarray  # eigenvalues, computed
-
-
-@dataclass(frozen=True)
-class CompensatorResult:
-    """Observer plus feedback seen as a transfer function from y to u.
-
-    U(s)/Y(s) = −num(s)/den(s) (negative feedback convention: u = −C(s) y
-    with C(s) = num/den).  Single-input, single-output plants only.
-    """
-
-    numerator: np.ndarray | None
-    denominator: np.ndarray | None
-    numerator_closed_form: tuple[sp.Expr, ...] | None
-    denominator_closed_form: tuple[sp.Expr, ...] | None
-    state_matrix: np.ndarray  # F = A − BK − LC + LDK
-
-
-@dataclass(frozen=True)
-class NumericPlant:
-    """The plant at the evaluated parameter values."""
-
-    A: np.ndarray
-    B: np.ndarray
-    C: np.ndarray
-    D: np.ndarray
-
-
-@dataclass(frozen=True)
-class Derivation:
-    """Everything :func:`derive` found, ready for the renderers."""
-
-    design: Design
-    plant: NumericPlant
-    controller_poles: PoleChoice
-    observer_poles: PoleChoice
-    controllability: StructureReport
-    observability: StructureReport
-    K: GainResult
-    L: GainResult
-    reference: ReferenceGainResult | None
-    separated: SeparatedLoop
-    compensator: CompensatorResult | None
-    checks: tuple[Check, ...]
-    notes: tuple[str, ...]
-    closed_form: bool
-    plant_charpoly: tuple[sp.Expr, ...] | None
-    timings: dict[str, float] = field(default_factory=dict, compare=False)
-    integral: IntegralAction | None = None  # [tracking] method = "integral"
-    reduced_observer: ReducedObserver | None = None  # [observer] kind = "reduced"
-    discrete: DigitalController | None = None  # [discrete] sample_time
-    #: how the specification-based poles were checked and refined on the simulated step of the
-    #: shipped loop (:class:`symbolic.verification.refine.Refinement`); None for given poles
-    refinement: Any = None
-
-    @property
-    def passed(self) -> bool:
-        """True when no check failed (checks that could not run do not fail)."""
-        return all(c.passed is not False for c in self.checks)
-
-    @property
-    def parameter_values(self) -> dict[str, float]:
-        return {p.name: float(p.value) for p in self.design.parameters}
-
-    def _repr_markdown_(self) -> str:  # Jupyter
-        lines = [f"**{self.design.title}** — K = {np.array2string(self.K.value, precision=6)}"]
-        if self.K.closed_form is not None:
-            lines.append(f"$$K = {sp.latex(self.K.closed_form)}$$")
-        if self.L.closed_form is not None:
-            lines.append(f"$$L = {sp.latex(self.L.closed_form)}$$")
-        lines.append("checks: " + ("all passed" if self.passed else "**some failed**"))
-        return "\n\n".join(lines)
 
 
 # --------------------------------------------------------------------------
@@ -363,7 +200,7 @@ def select_observer_poles(design: Design, controller: PoleChoice) -> PoleChoice:
 # --------------------------------------------------------------------------
 # Structure
 # --------------------------------------------------------------------------
-def _describe_zero(f: sp.Expr) -> str:
+def describe_zero(f: sp.Expr) -> str:
     """'kf = 0' or 'k = c*m/b' for a factor f that must not vanish."""
     if f.is_Symbol:
         return f"{f} = 0"
@@ -489,7 +326,7 @@ def conditions_of(determinant: sp.Expr | None) -> tuple[str, ...]:
     except sp.PolynomialError:
         return (f"{num} = 0",) if num.free_symbols else ()
     return tuple(
-        _describe_zero(f) for f, _mult in factors if f.free_symbols and not has_no_real_zero(f)
+        describe_zero(f) for f, _mult in factors if f.free_symbols and not has_no_real_zero(f)
     )
 
 

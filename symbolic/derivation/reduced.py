@@ -46,6 +46,8 @@ import numpy as np
 import sympy as sp
 from sympy.polys.matrices import DomainMatrix
 
+from ..model.results import Check, Derivation
+from ..model.tolerances import GAIN_TOLERANCE
 from ..runtime.budget import BoundedChild, Outcome
 from ..runtime.errors import BudgetExceeded, GainsmithError, StructureError
 from . import closed_form as cf
@@ -55,7 +57,7 @@ from .numeric import (
     relative_difference,
     scipy_placement,
 )
-from .pipeline import GAIN_TOLERANCE, Check, Derivation, eigenvalue_check
+from .pipeline import eigenvalue_check
 
 __all__ = [
     "ReducedObserver",

@@ -44,7 +44,8 @@ from numbers import Real
 
 import numpy as np
 
-from symbolic.runtime.errors import GainsmithWarning, SpecificationError
+from ..model.specifications import SPECIFICATION_KEYS, Specifications
+from ..runtime.errors import GainsmithWarning, SpecificationError
 
 __all__ = [
     "Specifications",
@@ -104,86 +105,12 @@ _MAX_DAMPING_RATIO = 0.9999
 
 _REL_TOL = 1e-9
 _MAX_ROUNDING_STEPS = 2000
-_KEYS = ("overshoot_percent", "settling_time", "settling_band", "rise_time", "peak_time")
+_KEYS = SPECIFICATION_KEYS
 
 
 # --------------------------------------------------------------------------
 # Result and input types
 # --------------------------------------------------------------------------
-@dataclass(frozen=True)
-class Specifications:
-    """Time-domain step-response specifications of the closed loop.
-
-    Every field is optional but at least one of ``overshoot_percent``,
-    ``settling_time``, ``rise_time`` and ``peak_time`` must be given.
-
-    Parameters
-    ----------
-    overshoot_percent : float, optional
-        Largest allowed percent overshoot, ``0 < OS < 100``.
-    settling_time : float, optional
-        Largest allowed settling time in seconds.
-    settling_band : float, default 0.02
-        Settling band as a fraction of the final value: 0.02 or 0.01.
-    rise_time : float, optional
-        Largest allowed 10-90 % rise time in seconds.
-    peak_time : float, optional
-        Latest allowed time of the first peak in seconds ("peak no later
-        than").
-
-    Raises
-    ------
-    SpecificationError
-        With ``key`` set to the design-file key at fault (or ``"controller"``
-        when several keys are at fault or none is given); the message lists
-        every problem found.
-    """
-
-    overshoot_percent: float | None = None
-    settling_time: float | None = None
-    settling_band: float = 0.02
-    rise_time: float | None = None
-    peak_time: float | None = None
-
-    def __post_init__(self) -> None:
-        problems: list[tuple[str, str]] = []
-        for key in _KEYS:
-            value = getattr(self, key)
-            if value is None and key != "settling_band":
-                continue
-            if isinstance(value, bool) or not isinstance(value, Real):
-                problems.append((key, f"expected a number, got {value!r}"))
-                continue
-            value = float(value)
-            object.__setattr__(self, key, value)
-            if not math.isfinite(value):
-                problems.append((key, f"expected a finite number, got {value!r}"))
-            elif key == "overshoot_percent":
-                if not 0.0 < value < 100.0:
-                    problems.append(
-                        (key, f"expected a percentage with 0 < OS < 100, got {value!r}")
-                    )
-            elif key == "settling_band":
-                if value not in _SETTLING_CONSTANT:
-                    hint = " (a fraction, not a percentage)" if value in (1.0, 2.0) else ""
-                    problems.append((key, f"expected 0.02 or 0.01{hint}, got {value!r}"))
-            elif value <= 0.0:
-                problems.append((key, f"expected a positive time in seconds, got {value!r}"))
-        if all(getattr(self, k) is None for k in _KEYS if k != "settling_band"):
-            problems.append(
-                (
-                    "controller",
-                    "give at least one of overshoot_percent, settling_time, rise_time, peak_time",
-                )
-            )
-        if len(problems) == 1:
-            key, problem = problems[0]
-            raise SpecificationError(problem, key=key)
-        if problems:
-            text = "; ".join(f"{key}: {problem}" for key, problem in problems)
-            raise SpecificationError(text, key="controller")
-
-
 @dataclass(frozen=True)
 class SpecFormula:
     """How one specification became a bound on the dominant pair.
@@ -549,7 +476,7 @@ def _sig3_parts(value: float, rounding: str) -> tuple[int, Decimal]:
     return count, quantum
 
 
-def _round_sig3(value: float, *, up: bool) -> float:
+def round_sig3(value: float, *, up: bool) -> float:
     """Round a positive float to 3 significant figures, up or down."""
     count, quantum = _sig3_parts(value, ROUND_CEILING if up else ROUND_FLOOR)
     return float(count * quantum)
@@ -564,7 +491,7 @@ def _step_sig3(value: float) -> float:
 # --------------------------------------------------------------------------
 # Choosing the dominant pair
 # --------------------------------------------------------------------------
-def _predictions(spec: Specifications, sigma: float, omega_d: float) -> dict[str, float]:
+def step_predictions(spec: Specifications, sigma: float, omega_d: float) -> dict[str, float]:
     """Second-order predictions of the pair ``-sigma +/- j*omega_d`` for each given spec."""
     omega_n = math.hypot(sigma, omega_d)
     zeta = sigma / omega_n
@@ -734,12 +661,12 @@ def dominant_pair(spec: Specifications) -> DominantPair:
     binding = tuple(key for key in _KEYS if key in binding_set)
 
     # 3. round outward to three significant figures, then verify and repair
-    sigma = _round_sig3(zeta * omega_n, up=True)
-    omega_d = _round_sig3(root * omega_n, up=False)
+    sigma = round_sig3(zeta * omega_n, up=True)
+    omega_d = round_sig3(root * omega_n, up=False)
     for _ in range(_MAX_ROUNDING_STEPS):
         if omega_d <= 0.0:  # cannot happen for zeta <= 0.9999, kept as a guard
-            omega_d = _round_sig3(root * omega_n, up=True)
-        predicted = _predictions(spec, sigma, omega_d)
+            omega_d = round_sig3(root * omega_n, up=True)
+        predicted = step_predictions(spec, sigma, omega_d)
         failed = _failures(spec, predicted, zeta)
         if not failed:
             break
@@ -904,7 +831,7 @@ def remaining_poles(pair: DominantPair, count: int, factor: float = 5.0) -> tupl
         raise ValueError(f"factor must be a finite number >= 1, got {factor!r}")
     # p_k = -factor * sigma * (1 + 0.1 k)   (common practice, no source)
     return tuple(
-        complex(-_round_sig3(float(factor) * pair.real_part * (1.0 + 0.1 * k), up=True), 0.0)
+        complex(-round_sig3(float(factor) * pair.real_part * (1.0 + 0.1 * k), up=True), 0.0)
         for k in range(count)
     )
 

@@ -17,46 +17,33 @@ import re
 import reprlib
 import tomllib
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, NoReturn
 
 import sympy as sp
 from sympy.polys.matrices import DomainMatrix
 
-from ..derivation.specs import Specifications
+from ..model.design import (
+    DEFAULT_REMAINING_POLE_FACTOR,
+    OBSERVER_KINDS,
+    TRACKING_METHODS,
+    Claims,
+    ControllerRequest,
+    Design,
+    DiscreteRequest,
+    ObserverRequest,
+    Parameter,
+    Plant,
+    Signal,
+    SimulationRequest,
+    TrackingRequest,
+)
 from ..model.numbers import format_pole
+from ..model.specifications import Specifications
 from ..runtime.errors import DesignFileError, ExpressionError, SpecificationError, StructureError
 from .expressions import check_name, parse_expression, parse_number, parse_pole
 
-__all__ = [
-    "Claims",
-    "ControllerRequest",
-    "Design",
-    "DiscreteRequest",
-    "ObserverRequest",
-    "Parameter",
-    "Plant",
-    "Signal",
-    "SimulationRequest",
-    "TrackingRequest",
-    "load_design",
-    "parse_design",
-    "DEFAULT_OBSERVER_SPEED_FACTOR",
-    "DEFAULT_REMAINING_POLE_FACTOR",
-    "OBSERVER_KINDS",
-    "TRACKING_METHODS",
-]
-
-#: Observer poles this many times faster than the controller poles unless the
-#: file says otherwise.  Common practice, no source: 2 to 6 times is the range
-#: usually quoted; 4 keeps the estimator well ahead of the loop without making
-#: the observer gain (and its noise amplification) needlessly large.
-DEFAULT_OBSERVER_SPEED_FACTOR = 4.0
-
-#: Non-dominant controller poles sit this many times farther left than the
-#: dominant pair (common practice, no source).
-DEFAULT_REMAINING_POLE_FACTOR = 5.0
+__all__ = ["load_design", "parse_design"]
 
 MAX_FILE_BYTES = 1_000_000
 MAX_PARAMETERS = 64
@@ -95,11 +82,6 @@ _OBSERVER_KEYS = ("poles", "speed_factor", "kind")
 _TRACKING_KEYS = ("output", "method", "integral_pole")
 _DISCRETE_KEYS = ("sample_time",)
 
-#: ``[tracking] method``: a feed-forward reference gain N, or integral action on the error.
-TRACKING_METHODS = ("reference_gain", "integral")
-#: ``[observer] kind``: the full-order observer (n states) or Luenberger's reduced-order one
-#: (n - p states).
-OBSERVER_KINDS = ("full", "reduced")
 _SIMULATION_KEYS = (
     "initial_state",
     "initial_estimate",
@@ -115,177 +97,6 @@ _OPTIONS_KEYS = ("symbolic_budget_seconds",)
 # --------------------------------------------------------------------------
 # Result objects
 # --------------------------------------------------------------------------
-@dataclass(frozen=True)
-class Parameter:
-    """A named plant parameter with its nominal (evaluated) value."""
-
-    name: str
-    symbol: sp.Symbol
-    value: sp.Rational
-    unit: str = ""
-    description: str = ""
-    range: tuple[sp.Rational, sp.Rational] | None = None
-
-
-@dataclass(frozen=True)
-class Signal:
-    """A named state, input or output with its unit."""
-
-    name: str
-    unit: str = ""
-    description: str = ""
-
-
-@dataclass(frozen=True)
-class Plant:
-    """The linear plant x' = A x + B u, y = C x + D u (SymPy matrices)."""
-
-    A: sp.ImmutableMatrix
-    B: sp.ImmutableMatrix
-    C: sp.ImmutableMatrix
-    D: sp.ImmutableMatrix
-    states: tuple[Signal, ...]
-    inputs: tuple[Signal, ...]
-    outputs: tuple[Signal, ...]
-
-    @property
-    def order(self) -> int:
-        return self.A.shape[0]
-
-    @property
-    def n_inputs(self) -> int:
-        return self.B.shape[1]
-
-    @property
-    def n_outputs(self) -> int:
-        return self.C.shape[0]
-
-    @property
-    def free_symbols(self) -> set[sp.Symbol]:
-        out: set[sp.Symbol] = set()
-        for M in (self.A, self.B, self.C, self.D):
-            out |= M.free_symbols
-        return out
-
-
-@dataclass(frozen=True)
-class ControllerRequest:
-    """Either explicit poles or specifications (then the rule for the rest)."""
-
-    poles: tuple[sp.Expr, ...] | None = None
-    specifications: Specifications | None = None
-    remaining_pole_factor: float = DEFAULT_REMAINING_POLE_FACTOR
-    remaining_poles: tuple[sp.Expr, ...] | None = None
-    #: Refine the dominant pair on the simulated step of the shipped loop (symbolic.verification.refine);
-    #: ``[controller] refine = false`` keeps the second-order pair as it is.
-    refine: bool = True
-
-
-@dataclass(frozen=True)
-class ObserverRequest:
-    """Either explicit observer poles or a speed factor.
-
-    ``kind = "reduced"`` asks, besides the full-order observer, for Luenberger's
-    reduced-order observer of n - p states (:mod:`symbolic.derivation.reduced`); its poles
-    are ``reduced_poles`` when ``observer.poles`` lists exactly n - p of them,
-    otherwise they are taken from the full-order observer poles by the rule of
-    :func:`symbolic.derivation.reduced.reduced_observer_poles`.
-    """
-
-    poles: tuple[sp.Expr, ...] | None = None
-    speed_factor: float = DEFAULT_OBSERVER_SPEED_FACTOR
-    speed_factor_is_default: bool = True
-    kind: str = "full"
-    reduced_poles: tuple[sp.Expr, ...] | None = None
-
-
-@dataclass(frozen=True)
-class TrackingRequest:
-    """Which output the reference acts on, and how its steady-state error is removed.
-
-    ``method = "integral"`` adds integral action (:mod:`symbolic.derivation.integral`);
-    ``integral_pole`` (real, negative) overrides the default rule for the extra pole.
-    """
-
-    output: int = 0
-    method: str = "reference_gain"
-    integral_pole: sp.Expr | None = None
-
-
-@dataclass(frozen=True)
-class DiscreteRequest:
-    """A digital implementation at a fixed sample time (``[discrete] sample_time``, seconds)."""
-
-    sample_time: sp.Rational
-
-    @property
-    def seconds(self) -> float:
-        return float(self.sample_time)
-
-
-@dataclass(frozen=True)
-class SimulationRequest:
-    """Settings of the step-response simulation (all optional)."""
-
-    initial_state: tuple[float, ...] | None = None
-    initial_estimate: tuple[float, ...] | None = None
-    horizon: float | None = None
-    samples: int = 2001
-    u_max: float | None = None
-    reference: float = 1.0
-
-
-@dataclass(frozen=True)
-class Claims:
-    """An engineer's hand-calculated gains to be checked."""
-
-    K: tuple[tuple[float, ...], ...] | None = None
-    L: tuple[tuple[float, ...], ...] | None = None
-    reference_gain: float | None = None
-    tolerance: float = 1e-3
-
-
-@dataclass(frozen=True)
-class Design:
-    """A validated design file."""
-
-    path: str
-    sha256: str
-    title: str
-    author: str
-    revision: str
-    parameters: tuple[Parameter, ...]
-    plant: Plant
-    controller: ControllerRequest
-    observer: ObserverRequest
-    tracking: TrackingRequest = TrackingRequest()
-    simulation: SimulationRequest = SimulationRequest()
-    claims: Claims | None = None
-    symbolic_budget_seconds: float = 10.0
-    overrides: tuple[str, ...] = field(default=())
-    discrete: DiscreteRequest | None = None
-
-    @property
-    def name(self) -> str:
-        """The file's stem, used to name outputs."""
-        return Path(self.path).stem
-
-    @property
-    def slug(self) -> str:
-        """A file-name-safe form of :attr:`name` (letters, digits, "_" and "-") for outputs."""
-        text = re.sub(r"[^A-Za-z0-9_]+", "-", self.name).strip("-_")
-        return text[:80] or "design"
-
-    @property
-    def values(self) -> dict[sp.Symbol, sp.Rational]:
-        """Substitution map symbol -> evaluated value."""
-        return {p.symbol: p.value for p in self.parameters}
-
-    @property
-    def symbols(self) -> dict[str, sp.Symbol]:
-        return {p.name: p.symbol for p in self.parameters}
-
-
 # --------------------------------------------------------------------------
 # Loading
 # --------------------------------------------------------------------------

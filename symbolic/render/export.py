@@ -1,7 +1,7 @@
 """The gain formulas as code: C99 and standalone NumPy modules (``gainsmith export``).
 
 One direction of flow: :func:`gain_formulas` takes a finished
-:class:`~symbolic.derivation.pipeline.Derivation`, keeps its closed forms of K, L and the
+:class:`~symbolic.model.results.Derivation`, keeps its closed forms of K, L and the
 reference gain N, and lists the *validity factors*: the factors of the
 controllability and observability determinants, of z(0) (the steady-state
 numerator of the tracked output) and of every denominator, each of which must
@@ -66,9 +66,10 @@ from sympy.printing.numpy import NumPyPrinter
 from sympy.printing.precedence import PRECEDENCE
 
 from ..derivation.numeric import relative_difference
-from ..derivation.pipeline import Derivation, _describe_zero, derive
-from ..input.design import Design, Parameter
+from ..derivation.pipeline import derive, describe_zero
+from ..model.design import Design, Parameter
 from ..model.numbers import format_pole, format_poles
+from ..model.results import Derivation
 from ..runtime.errors import DesignFileError
 
 __all__ = [
@@ -407,7 +408,7 @@ def gain_formulas(d: Derivation) -> GainFormulas:
             if any(sp.expand(f - g) == 0 or sp.expand(f + g) == 0 for g in seen):
                 continue
             seen.append(f)
-            factors.append(ValidityFactor(code, f, _scale(f), _describe_zero(f), origin))
+            factors.append(ValidityFactor(code, f, _scale(f), describe_zero(f), origin))
 
     num_c, den_c = _split(det_c)
     num_o, den_o = _split(det_o)
@@ -684,7 +685,7 @@ class _CPrinter(C99CodePrinter):
         return super()._print_Pow(expr)
 
 
-class _PythonPrinter(NumPyPrinter):
+class PythonPrinter(NumPyPrinter):
     """NumPy printer: names mapped, small integer powers as products, 1/x for x**-1."""
 
     def __init__(self, names: Mapping[sp.Symbol, str] | None = None):
@@ -1089,7 +1090,7 @@ def python_source(formulas: GainFormulas) -> dict[str, bytes]:
     symbol_names = {prm.symbol: local[prm.name] for prm in design.parameters}
     entries = formulas.entries()
     reps, reduced = common_subexpressions(entries)
-    printer = _PythonPrinter(symbol_names)
+    printer = PythonPrinter(symbol_names)
 
     doc = _header_lines(formulas, "python", file_name)
     doc += [
@@ -1302,7 +1303,7 @@ def gain_evaluator(
         symbols,
         all_exprs,
         modules="numpy",
-        printer=_PythonPrinter(),
+        printer=PythonPrinter(),
         cse=cse,
         dummify=True,
         docstring_limit=0,

@@ -23,7 +23,7 @@ import numpy as np
 if TYPE_CHECKING:
     from matplotlib.figure import Figure
 
-from .figures import _plain, blank_figure
+from .figures import blank_figure, plain_label
 
 __all__ = ["anti_windup_figure", "integral_action_figure", "sampled_data_figure"]
 
@@ -41,7 +41,7 @@ def _figure(rows: int, height: float = 5.2) -> tuple[Figure, list]:
 
 
 def _label(name: str, unit: str) -> str:
-    return _plain(f"{name} [{unit}]" if unit else name)
+    return plain_label(f"{name} [{unit}]" if unit else name)
 
 
 def sampled_data_figure(
@@ -86,7 +86,7 @@ def sampled_data_figure(
         study.tracked_output,
         color=_BLACK,
         linewidth=1.3,
-        label=f"sampled-data loop ({_plain(study.form)}), between samples",
+        label=f"sampled-data loop ({plain_label(study.form)}), between samples",
     )
     keep = study.sample_times <= t_end
     top.plot(
@@ -141,7 +141,7 @@ def integral_action_figure(study, output_name: str, output_unit: str) -> Figure:
                     color=colour,
                     linestyle=style,
                     linewidth=1.4,
-                    label=_plain(f"{loop}, {plant}" if ax is bottom else loop),
+                    label=plain_label(f"{loop}, {plant}" if ax is bottom else loop),
                 )
         ax.axhline(study.reference, color="#888888", linewidth=0.8, linestyle=(0, (1, 3)))
         ax.axvline(study.disturbance_time, color=_PURPLE, linewidth=0.8, linestyle=(0, (4, 2)))

@@ -73,7 +73,7 @@ def _style(r) -> tuple[str, object]:
 
 
 def _name(r) -> str:
-    return _plain(r.name + (" (limited)" if getattr(r, "saturated", False) else ""))
+    return plain_label(r.name + (" (limited)" if getattr(r, "saturated", False) else ""))
 
 
 _WIDTH = (6.4, 3.4)
@@ -101,7 +101,7 @@ def _label(name: str, unit: str) -> str:
     return f"{name} [{unit}]" if unit else name
 
 
-def _plain(text: str) -> str:
+def plain_label(text: str) -> str:
     """Keep matplotlib from reading $...$ in user text as mathtext."""
     return text.replace("$", r"\$")
 
@@ -153,7 +153,7 @@ def step_response_figure(
     t = responses[0].time
     ax.axhline(reference, color="#888888", linewidth=0.8, linestyle=(0, (1, 3)), label="reference")
     ax.set_xlabel("time [s]")
-    ax.set_ylabel(_plain(_label(output_name, output_unit)))
+    ax.set_ylabel(plain_label(_label(output_name, output_unit)))
     ax.set_xlim(t[0], t[-1])
     ax.legend(loc="best", fontsize=8, frameon=True)
     return fig
@@ -215,7 +215,7 @@ def control_effort_figure(
                 label="actuator limit" if sign == 1 else None,
             )
     ax.set_xlabel("time [s]")
-    ax.set_ylabel(_plain(_label(input_name, input_unit)))
+    ax.set_ylabel(plain_label(_label(input_name, input_unit)))
     ax.set_xlim(responses[0].time[0], responses[0].time[-1])
     ax.legend(loc="best", fontsize=8)
     return fig
@@ -289,7 +289,7 @@ def observer_study_figure(
         (
             axes[2],
             peak_u,
-            _plain(f"peak |{input_name}|" + (f" [{input_unit}]" if input_unit else "")),
+            plain_label(f"peak |{input_name}|" + (f" [{input_unit}]" if input_unit else "")),
             "^",
         ),
     ):

@@ -1,6 +1,6 @@
 """The design memo: LaTeX/PDF and Markdown from one finished derivation.
 
-Flow: :func:`build_memo` takes a :class:`~symbolic.derivation.pipeline.Derivation` and
+Flow: :func:`build_memo` takes a :class:`~symbolic.model.results.Derivation` and
 the simulation study, assembles a template context (plain strings are
 escaped by the template environment itself; only formulas that our own
 code typeset are marked trusted, in :func:`_math`), renders
@@ -25,9 +25,10 @@ from typing import Any
 import numpy as np
 import sympy as sp
 
-from ..derivation.pipeline import Derivation, derive
-from ..input.design import Design
+from ..derivation.pipeline import derive
+from ..model.design import Design
 from ..model.labels import gain_label
+from ..model.results import Derivation
 from ..runtime.errors import RenderError
 from ..runtime.version import __version__
 from .mathtex import (

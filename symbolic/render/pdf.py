@@ -40,8 +40,8 @@ import time
 from collections.abc import Mapping
 from pathlib import Path
 
-from symbolic.runtime.errors import RenderError
-from symbolic.runtime.publish import check_file_name
+from ..runtime.errors import RenderError
+from ..runtime.publish import check_file_name
 
 __all__ = ["compile_pdf", "find_tex_engine"]
 

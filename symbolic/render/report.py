@@ -1,4 +1,4 @@
-"""Plain renderers of a :class:`~symbolic.derivation.pipeline.Derivation`: JSON and the terminal summary.
+"""Plain renderers of a :class:`~symbolic.model.results.Derivation`: JSON and the terminal summary.
 
 Both consume finished result objects; nothing here derives or checks.
 The JSON keys are a public interface (tested in ``tests/test_cli.py``).
@@ -13,9 +13,9 @@ from typing import Any
 import numpy as np
 import sympy as sp
 
-from ..derivation.pipeline import Check, Derivation
 from ..model.labels import gain_label
 from ..model.numbers import format_number, format_pole, format_poles
+from ..model.results import Check, Derivation
 
 __all__ = ["derivation_json", "derivation_summary", "complex_pairs", "format_number"]
 

@@ -24,7 +24,7 @@ if TYPE_CHECKING:
 
     from ..analysis.margins import MarginReport
 
-from .figures import _plain, blank_figure, plot_design_poles
+from .figures import blank_figure, plain_label, plot_design_poles
 
 __all__ = ["loop_magnitude_phase_figure", "loop_polar_figure", "mismatch_pole_figure"]
 
@@ -77,7 +77,7 @@ def loop_magnitude_phase_figure(loops: Sequence[MarginReport]) -> Figure:
             continue
         mag = 20 * np.log10(np.abs(L))
         phase = _unwrapped_phase_deg(L)
-        label = _plain(r.name)
+        label = plain_label(r.name)
         ax_mag.semilogx(w, mag, color=colour, linestyle=style, linewidth=1.5, label=label)
         ax_ph.semilogx(w, phase, color=colour, linestyle=style, linewidth=1.5, label=label)
         lows.append(w[0])
@@ -118,7 +118,9 @@ def loop_magnitude_phase_figure(loops: Sequence[MarginReport]) -> Figure:
         gm_up = "∞" if r.gain_margin_db_upper is None else f"{r.gain_margin_db_upper:.3g} dB"
         gm_lo = "∞" if r.gain_margin_db_lower is None else f"{r.gain_margin_db_lower:.3g} dB"
         pm = "none" if r.phase_margin_deg is None else f"{r.phase_margin_deg:.3g}°"
-        text.append(_plain(f"{r.name}: gain may grow {gm_up}, shrink {gm_lo}; phase margin {pm}"))
+        text.append(
+            plain_label(f"{r.name}: gain may grow {gm_up}, shrink {gm_lo}; phase margin {pm}")
+        )
     handles, labels = ax_mag.get_legend_handles_labels()
     fig.legend(
         handles,
@@ -165,7 +167,12 @@ def loop_polar_figure(loops: Sequence[MarginReport], zoom: float = 2.0) -> Figur
                 continue
             z = _compressed(L) if compressed else L
             ax.plot(
-                z.real, z.imag, color=colour, linestyle=style, linewidth=1.5, label=_plain(r.name)
+                z.real,
+                z.imag,
+                color=colour,
+                linestyle=style,
+                linewidth=1.5,
+                label=plain_label(r.name),
             )
             ax.plot(z.real, -z.imag, color=colour, linestyle=style, linewidth=0.6)
             box = 1.0e9 if compressed else zoom

@@ -47,8 +47,8 @@ from typing import Any, Literal
 
 import jinja2
 
-from symbolic.model.numbers import format_pole, pole_parts
-from symbolic.runtime.errors import RenderError
+from ..model.numbers import format_pole, pole_parts
+from ..runtime.errors import RenderError
 
 __all__ = [
     "LATEX_PREAMBLE_LINES",

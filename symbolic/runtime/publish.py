@@ -32,7 +32,7 @@ import shutil
 from collections.abc import Mapping
 from pathlib import Path
 
-from symbolic.runtime.errors import RenderError
+from .errors import RenderError
 
 __all__ = ["STAGING_PREFIX", "check_file_name", "publish"]
 

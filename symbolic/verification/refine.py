@@ -138,7 +138,7 @@ def _misses(spec, measured: dict | None) -> dict[str, float]:
 
 
 def _corrected(spec, sigma: float, omega_d: float, measured: dict, misses: dict):
-    from ..derivation.specs import _round_sig3, damping_ratio_from_overshoot
+    from ..derivation.specs import damping_ratio_from_overshoot, round_sig3
 
     wn = math.hypot(sigma, omega_d)
     zeta = sigma / wn
@@ -158,10 +158,10 @@ def _corrected(spec, sigma: float, omega_d: float, measured: dict, misses: dict)
             ratio = TIME_MARGIN * (got / want) if got is not None and math.isfinite(got) else 1.5
             scale = max(scale, min(ratio, 3.0))
     wn *= scale
-    sigma_new = _round_sig3(zeta * wn, up=True)
-    omega_new = _round_sig3(wn * math.sqrt(max(0.0, 1.0 - zeta * zeta)), up=False)
+    sigma_new = round_sig3(zeta * wn, up=True)
+    omega_new = round_sig3(wn * math.sqrt(max(0.0, 1.0 - zeta * zeta)), up=False)
     if sigma_new <= sigma and omega_new == omega_d:  # rounding undid the step: force one
-        sigma_new = _round_sig3(sigma * 1.01, up=True)
+        sigma_new = round_sig3(sigma * 1.01, up=True)
     return sigma_new, max(omega_new, 0.0)
 
 
@@ -184,7 +184,7 @@ def _text(spec, measured: dict | None) -> str:
 
 
 def refine_controller_poles(design, ctrl, num, pole_sets):
-    """Refine a specification-based :class:`~symbolic.derivation.pipeline.PoleChoice`.
+    """Refine a specification-based :class:`~symbolic.model.results.PoleChoice`.
 
     Parameters
     ----------
@@ -265,9 +265,9 @@ def refine_controller_poles(design, ctrl, num, pole_sets):
 
 def refined_pair(spec, pair, sigma: float, omega_d: float):
     """The dominant pair record at the refined place, its predictions recomputed."""
-    from ..derivation.specs import _predictions
+    from ..derivation.specs import step_predictions
 
-    predicted = _sidecar.call(_predictions, spec, sigma, omega_d)  # root finding: SciPy
+    predicted = _sidecar.call(step_predictions, spec, sigma, omega_d)  # root finding: SciPy
     rows = tuple(
         dataclasses.replace(
             f,

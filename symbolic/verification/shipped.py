@@ -20,7 +20,7 @@ with ``solve_ivp`` (see :func:`symbolic.verification.stepping.integrate_saturate
 
 Two ways to obtain a controller:
 
-* :func:`shipped_controller` assembles it from a finished :class:`~symbolic.derivation.pipeline.Derivation`
+* :func:`shipped_controller` assembles it from a finished :class:`~symbolic.model.results.Derivation`
   (its checked gains: those that are exported and reported);
 * :func:`build_controller` computes it numerically for any choice of poles (used to refine the
   poles against the simulated response and for the observer-speed study); at the derivation's
@@ -57,8 +57,8 @@ from ..derivation.digital import (
     numeric_zero_order_hold,
 )
 from ..derivation.numeric import numeric_ackermann, scipy_placement
-from ..derivation.pipeline import Derivation, NumericPlant
 from ..derivation.reduced import coordinate_change, observer_matrices
+from ..model.results import Derivation, NumericPlant
 from ..runtime.errors import StructureError
 
 if TYPE_CHECKING:  # the simulator loads SciPy: imported where a run needs it

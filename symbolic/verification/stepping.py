@@ -51,7 +51,7 @@ import numpy as np
 import scipy.integrate
 import scipy.linalg
 
-from symbolic.runtime.errors import DesignFileError, GainsmithWarning
+from ..runtime.errors import DesignFileError, GainsmithWarning
 
 __all__ = [
     "CASE_NAMES",
