@@ -862,7 +862,7 @@ def run_check(design: Design, tolerance: float | None = None, as_json: bool = Fa
 
 def memo_claims(derivation: Derivation, claims: Claims) -> dict[str, Any]:
     """Context of the memo's "hand calculation check" section (formatted, not re-derived)."""
-    from ..render.memo import _math, _num, _numeric_matrix
+    from ..render.mathvalues import latex_matrix, latex_number, own_math
 
     report = check_claims(derivation, claims)
     rows = []
@@ -870,11 +870,11 @@ def memo_claims(derivation: Derivation, claims: Claims) -> dict[str, Any]:
         rows.append(
             {
                 "name": v.name,
-                "claimed": _math(_numeric_matrix(np.atleast_2d(v.claimed), 6)),
-                "derived": _math(_numeric_matrix(np.atleast_2d(v.derived), 6))
+                "claimed": own_math(latex_matrix(np.atleast_2d(v.claimed), 6)),
+                "derived": own_math(latex_matrix(np.atleast_2d(v.derived), 6))
                 if v.derived is not None and np.all(np.isfinite(v.derived))
-                else _math("\\text{none}"),
-                "error": _math(_num(v.relative_error, 2)),
+                else own_math("\\text{none}"),
+                "error": own_math(latex_number(v.relative_error, 2)),
                 "holds": v.holds,
                 "explanation": v.explanation,
             }

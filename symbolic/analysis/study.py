@@ -572,7 +572,7 @@ def memo_simulation(
 ) -> tuple[dict, dict[str, bytes]]:
     """Context of the memo's response section, and its figures (PDF and PNG)."""
     from ..render import figures as fig
-    from ..render.memo import _math, _num  # formatting shared with the memo
+    from ..render.mathvalues import latex_number, own_math
 
     s = simulation_study(d) if study is None else study
     ctrl = s.controller
@@ -639,9 +639,9 @@ def memo_simulation(
         summary.append(
             {
                 "spec": v.label,
-                "requested": _math("\\le " + _num(v.requested, 4)),
-                "measured": _math(
-                    _num(v.measured, 4) if v.measured is not None else "\\text{none}"
+                "requested": own_math("\\le " + latex_number(v.requested, 4)),
+                "measured": own_math(
+                    latex_number(v.measured, 4) if v.measured is not None else "\\text{none}"
                 ),
                 "case": "shipped controller, matched estimate",
                 "passed": v.passed,
@@ -672,19 +672,19 @@ def memo_simulation(
             v = getattr(c.metrics, key)
             if v is not None and key == "steady_state_error" and abs(v) < 1e-9 * abs(s.reference):
                 v = 0.0  # round-off of an exact zero: keep the memo reproducible
-            vals.append(_math("\\text{--}" if v is None else _num(v, 4)))
+            vals.append(own_math("\\text{--}" if v is None else latex_number(v, 4)))
         table.append({"label": label, "cells": vals})
     captions = [
         {
-            "stem": _math("step"),
+            "stem": own_math("step"),
             "caption": f"Step response of {out_sig.name}: state feedback with the true state (reference), and the shipped controller ({ctrl.description}) with a matched and with a mismatched initial estimate.",
         },
         {
-            "stem": _math("estimation-error"),
+            "stem": own_math("estimation-error"),
             "caption": "Norm of the estimation error (log scale); the dotted line is 2 % of its initial value.",
         },
         {
-            "stem": _math("control"),
+            "stem": own_math("control"),
             "caption": f"Control input {in_sig.name}"
             + (
                 " with the actuator limit; the dash-dotted curve is the limited (saturated) run."
@@ -696,7 +696,7 @@ def memo_simulation(
     if s.saturated:
         captions.append(
             {
-                "stem": _math("saturation"),
+                "stem": own_math("saturation"),
                 "caption": "Shipped controller, mismatched estimate, without and with the actuator limit (nonlinear simulation).",
             }
         )
@@ -711,15 +711,15 @@ def memo_simulation(
             ),
             "rows": [
                 {
-                    "factor": _math(_num(f, 3)),
-                    "overshoot": _math(_num(m.overshoot_percent or 0.0, 3)),
-                    "settling": _math(
+                    "factor": own_math(latex_number(f, 3)),
+                    "overshoot": own_math(latex_number(m.overshoot_percent or 0.0, 3)),
+                    "settling": own_math(
                         "\\text{--}"
                         if m.settling_time_2pct is None
-                        else _num(m.settling_time_2pct, 3)
+                        else latex_number(m.settling_time_2pct, 3)
                     ),
-                    "peak": _math(
-                        "\\text{--}" if m.peak_control is None else _num(m.peak_control, 4)
+                    "peak": own_math(
+                        "\\text{--}" if m.peak_control is None else latex_number(m.peak_control, 4)
                     ),
                 }
                 for f, m in s.speed_study
@@ -727,7 +727,7 @@ def memo_simulation(
         }
         captions.append(
             {
-                "stem": _math("observer-study"),
+                "stem": own_math("observer-study"),
                 "caption": "Observer-speed study: overshoot, settling time and peak input against the speed factor (mismatched estimate).",
             }
         )
@@ -741,7 +741,7 @@ def memo_simulation(
         "method": method,
         "summary": summary,
         "cases": cases_ctx,
-        "colspec": _math("@{}p{0.3\\textwidth}" + "r" * len(cases_ctx) + "@{}"),
+        "colspec": own_math("@{}p{0.3\\textwidth}" + "r" * len(cases_ctx) + "@{}"),
         "table": table,
         "remarks": list(s.remarks),
         "figures": captions,

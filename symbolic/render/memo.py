@@ -39,6 +39,7 @@ from .mathtex import (
     polynomial_latex,
     symbol_latex,
 )
+from .mathvalues import OwnMath, latex_matrix, latex_number, own_math
 from .texsafe import TrustedLatex, TrustedMarkdown, render_template
 
 __all__ = ["MemoDocument", "assemble_memo", "build_memo", "write_memo", "memo_date"]
@@ -58,18 +59,8 @@ def _factored(expr: sp.Expr) -> sp.Expr:
     return sp.factor(expr)
 
 
-class _Math(str):
-    """LaTeX math produced by our own code; becomes trusted in either format."""
-
-    __slots__ = ()
-
-
-def _math(latex: str) -> _Math:
-    return _Math(latex)
-
-
 def _for_kind(obj: Any, kind: str) -> Any:
-    if isinstance(obj, _Math):
+    if isinstance(obj, OwnMath):
         return TrustedLatex(str(obj)) if kind == "tex" else TrustedMarkdown(str(obj))
     if isinstance(obj, dict):
         return {k: _for_kind(v, kind) for k, v in obj.items()}
@@ -105,36 +96,18 @@ def memo_date() -> str:
 # --------------------------------------------------------------------------
 # Formatting helpers
 # --------------------------------------------------------------------------
-def _num(x: float, digits: int = 6) -> str:
-    x = float(x)
-    if x == 0:
-        return "0"
-    if not np.isfinite(x):
-        return "\\infty" if x > 0 else "-\\infty"
-    text = f"{x:.{digits}g}"
-    if "e" in text:
-        mant, exp = text.split("e")
-        return f"{mant}\\times 10^{{{int(exp)}}}"
-    return text
-
-
-def _numeric_matrix(M: np.ndarray, digits: int = 5) -> str:
-    rows = [" & ".join(_num(x, digits) for x in row) for row in np.atleast_2d(M)]
-    return "\\begin{bmatrix} " + " \\\\ ".join(rows) + " \\end{bmatrix}"
-
-
-def _matrix_or_numeric(M: sp.Matrix | None, value: np.ndarray) -> tuple[_Math, bool]:
+def _matrix_or_numeric(M: sp.Matrix | None, value: np.ndarray) -> tuple[OwnMath, bool]:
     if M is not None:
         tex = matrix_latex(M, MATRIX_LIMIT)
         if tex is not None:
-            return _math(tex), True
-    return _math(_numeric_matrix(value)), False
+            return own_math(tex), True
+    return own_math(latex_matrix(value)), False
 
 
 def _gain_block(name: str, closed: sp.Matrix | None, value: np.ndarray) -> dict:
     """One gain: its closed-form entries broken over lines, and numbers."""
     rows, cols = value.shape
-    lines: list[_Math] = []
+    lines: list[OwnMath] = []
     too_long: list[str] = []
     if closed is not None:
         for i in range(closed.shape[0]):
@@ -145,11 +118,11 @@ def _gain_block(name: str, closed: sp.Matrix | None, value: np.ndarray) -> dict:
                     too_long.append(label)
                     continue
                 for ln in equation_lines(label, entry):
-                    lines.append(_math(ln))
+                    lines.append(own_math(ln))
     entries = [
         {
-            "label": _math(gain_label(name, i, j, (rows, cols), "tex")),
-            "value": _math(_num(value[i, j])),
+            "label": own_math(gain_label(name, i, j, (rows, cols), "tex")),
+            "value": own_math(latex_number(value[i, j])),
         }
         for i in range(rows)
         for j in range(cols)
@@ -157,10 +130,10 @@ def _gain_block(name: str, closed: sp.Matrix | None, value: np.ndarray) -> dict:
     return {
         "name": name,
         "lines": lines,
-        "numeric": _math(f"{name} = " + _numeric_matrix(value, 6)),
+        "numeric": own_math(f"{name} = " + latex_matrix(value, 6)),
         "entries": entries,
         "closed": closed is not None,
-        "too_long": [_math(x) for x in too_long],
+        "too_long": [own_math(x) for x in too_long],
     }
 
 
@@ -172,14 +145,16 @@ def _parameters(design: Design) -> list[dict]:
     for p in design.parameters:
         out.append(
             {
-                "symbol": _math(symbol_latex(p.name)),
+                "symbol": own_math(symbol_latex(p.name)),
                 "name": p.name,
-                "value": _math(_num(float(p.value))),
+                "value": own_math(latex_number(float(p.value))),
                 "unit": p.unit,
                 "description": p.description,
                 "range": None
                 if p.range is None
-                else _math(f"[{_num(float(p.range[0]))},\\ {_num(float(p.range[1]))}]"),
+                else own_math(
+                    f"[{latex_number(float(p.range[0]))},\\ {latex_number(float(p.range[1]))}]"
+                ),
             }
         )
     return out
@@ -193,7 +168,7 @@ def _signals(design: Design) -> list[dict]:
             out.append(
                 {
                     "kind": kind,
-                    "symbol": _math(f"{'x' if kind == 'state' else kind[0]}_{{{i + 1}}}"),
+                    "symbol": own_math(f"{'x' if kind == 'state' else kind[0]}_{{{i + 1}}}"),
                     "name": s.name,
                     "unit": s.unit,
                     "description": s.description,
@@ -206,18 +181,18 @@ def _structure(rep, n: int, symbol: str) -> dict:
     matrix, closed = _matrix_or_numeric(rep.matrix, rep.value)
     det = None
     if rep.determinant is not None:
-        det = _math(f"\\det {symbol} = " + expr_latex(rep.determinant))
+        det = own_math(f"\\det {symbol} = " + expr_latex(rep.determinant))
     return {
         "kind": rep.kind,
-        "symbol": _math(symbol),
+        "symbol": own_math(symbol),
         "matrix": matrix,
         "closed": closed,
         "determinant": det,
-        "conditions": [_math(_condition_latex(c)) for c in rep.conditions],
+        "conditions": [own_math(_condition_latex(c)) for c in rep.conditions],
         "condition_text": list(rep.conditions),
         "rank": rep.numeric_rank,
         "order": n,
-        "condition_number": _math(_num(rep.condition_number, 3)),
+        "condition_number": own_math(latex_number(rep.condition_number, 3)),
         "adjective": rep.adjective,
     }
 
@@ -276,10 +251,12 @@ def _spec_rows(d: Derivation) -> list[dict]:
         rows.append(
             {
                 "spec": f.spec.replace("_", " "),
-                "requested": _math(_num(f.requested, 4)),
-                "formula": _math(f.formula_latex),
-                "bound": _math(_BOUND_SYMBOL.get(f.spec, "x") + " \\ge " + _num(f.bound_value, 4)),
-                "predicted": _math(_num(f.predicted, 4)),
+                "requested": own_math(latex_number(f.requested, 4)),
+                "formula": own_math(f.formula_latex),
+                "bound": own_math(
+                    _BOUND_SYMBOL.get(f.spec, "x") + " \\ge " + latex_number(f.bound_value, 4)
+                ),
+                "predicted": own_math(latex_number(f.predicted, 4)),
                 "binding": f.binding,
                 "passed": f.passed,
                 "source": f.source,
@@ -288,8 +265,8 @@ def _spec_rows(d: Derivation) -> list[dict]:
     return rows
 
 
-def _poles(values: np.ndarray) -> _Math:
-    return _math(poles_latex(values, 4))
+def _poles(values: np.ndarray) -> OwnMath:
+    return own_math(poles_latex(values, 4))
 
 
 def _references(d: Derivation) -> list[str]:
@@ -351,7 +328,7 @@ def _references(d: Derivation) -> list[str]:
     return refs
 
 
-def _shipped_gains(d: Derivation, ctrl) -> list[_Math]:
+def _shipped_gains(d: Derivation, ctrl) -> list[OwnMath]:
     """The gains of the controller the memo ships, numerically (one line each)."""
     lines = []
     dc = d.discrete if ctrl is not None and ctrl.digital else None
@@ -359,30 +336,30 @@ def _shipped_gains(d: Derivation, ctrl) -> list[_Math]:
     reduced = d.design.observer.kind == "reduced" and d.reduced_observer is not None
     if dc is None:
         if integral:
-            lines.append(r"[K\;\, k_i] = " + _numeric_matrix(d.integral.K_augmented, 6))
+            lines.append(r"[K\;\, k_i] = " + latex_matrix(d.integral.K_augmented, 6))
         else:
-            lines.append("K = " + _numeric_matrix(d.K.value, 6))
+            lines.append("K = " + latex_matrix(d.K.value, 6))
         if reduced:
-            lines.append("K_e = " + _numeric_matrix(d.reduced_observer.Ke, 6))
+            lines.append("K_e = " + latex_matrix(d.reduced_observer.Ke, 6))
         else:
-            lines.append("L = " + _numeric_matrix(d.L.value, 6))
+            lines.append("L = " + latex_matrix(d.L.value, 6))
         if not integral and d.reference is not None:
-            lines.append("N = " + _numeric_matrix(d.reference.value, 6))
-        return [_math(x) for x in lines]
+            lines.append("N = " + latex_matrix(d.reference.value, 6))
+        return [own_math(x) for x in lines]
     form = ctrl.form
     if dc.integral is not None:
-        lines.append(r"[K_d\;\, k_{i,d}] = " + _numeric_matrix(dc.integral.K_augmented, 6))
+        lines.append(r"[K_d\;\, k_{i,d}] = " + latex_matrix(dc.integral.K_augmented, 6))
     else:
-        lines.append("K_d = " + _numeric_matrix(dc.K, 6))
+        lines.append("K_d = " + latex_matrix(dc.K, 6))
     if form == "reduced" and dc.reduced is not None:
-        lines.append("L_r = " + _numeric_matrix(dc.reduced.L, 6))
+        lines.append("L_r = " + latex_matrix(dc.reduced.L, 6))
     elif form == "current":
-        lines.append("L_c = " + _numeric_matrix(dc.L_current, 6))
+        lines.append("L_c = " + latex_matrix(dc.L_current, 6))
     else:
-        lines.append("L_p = " + _numeric_matrix(dc.L_predictor, 6))
+        lines.append("L_p = " + latex_matrix(dc.L_predictor, 6))
     if dc.integral is None and dc.reference_gain is not None:
-        lines.append("N_d = " + _numeric_matrix(dc.reference_gain, 6))
-    return [_math(x) for x in lines]
+        lines.append("N_d = " + latex_matrix(dc.reference_gain, 6))
+    return [own_math(x) for x in lines]
 
 
 def _requirements_context(table) -> dict:
@@ -421,7 +398,7 @@ def build_context(
     for name in ("A", "B", "C", "D"):
         M = getattr(plant, name)
         tex = matrix_latex(M, MATRIX_LIMIT)
-        matrices[name] = _math(tex if tex is not None else _numeric_matrix(getattr(d.plant, name)))
+        matrices[name] = own_math(tex if tex is not None else latex_matrix(getattr(d.plant, name)))
     K, L = d.K, d.L
     ack = K.steps
     ackermann = None
@@ -429,15 +406,15 @@ def build_context(
         w = matrix_latex(ack.last_row_of_inverse, MATRIX_LIMIT)
         phi = matrix_latex(ack.polynomial_of_A, MATRIX_LIMIT)
         ackermann = {
-            "row": _math(w) if w is not None else None,
-            "phi": _math(phi) if phi is not None else None,
+            "row": own_math(w) if w is not None else None,
+            "phi": own_math(phi) if phi is not None else None,
         }
     ref = d.reference
     reference = None
     if ref is not None:
         zero_poly = None
         if ref.zero_polynomial is not None:
-            zero_poly = _math(
+            zero_poly = own_math(
                 "z(s) = "
                 + expr_latex(
                     _factored(
@@ -450,11 +427,11 @@ def build_context(
             )
         reference = {
             "output": ref.tracked.name,
-            "closed": _math("N = " + expr_latex(ref.closed_form))
+            "closed": own_math("N = " + expr_latex(ref.closed_form))
             if ref.closed_form is not None and len(sp.latex(ref.closed_form)) <= FORMULA_LIMIT
             else None,
             "zero_polynomial": zero_poly,
-            "value": _math("N = " + _numeric_matrix(ref.value, 6)),
+            "value": own_math("N = " + latex_matrix(ref.value, 6)),
             "method": ref.method,
         }
     comp = None
@@ -462,7 +439,7 @@ def build_context(
         c = d.compensator
         s = sp.Symbol("s")
         comp = {
-            "numeric": _math(
+            "numeric": own_math(
                 "\\frac{U(s)}{Y(s)} = -\\frac{"
                 + polynomial_latex(c.numerator, digits=6)
                 + "}{"
@@ -487,20 +464,20 @@ def build_context(
             )
             for i, co in enumerate(c.numerator_closed_form):
                 lines += [
-                    _math(x)
+                    own_math(x)
                     for x in equation_lines(
                         f"b_{{{len(c.numerator_closed_form) - 1 - i}}}", _factored(co)
                     )
                 ]
             for i, co in enumerate(c.denominator_closed_form[1:]):
                 lines += [
-                    _math(x)
+                    own_math(x)
                     for x in equation_lines(
                         f"a_{{{len(c.denominator_closed_form) - 2 - i}}}", _factored(co)
                     )
                 ]
             comp["closed_lines"] = lines
-            comp["closed_shape"] = _math(
+            comp["closed_shape"] = own_math(
                 "\\frac{U(s)}{Y(s)} = -\\frac{"
                 + " + ".join(
                     f"b_{{{k}}} s^{{{k}}}"
@@ -526,8 +503,10 @@ def build_context(
             # residuals under 1e-12 are round-off: shown as a bound so the memo is reproducible
             "value": None
             if chk.value is None
-            else _math("< 10^{-12}" if chk.value < 1e-12 else _num(chk.value, 2)),
-            "tolerance": None if chk.tolerance is None else _math(_num(chk.tolerance, 1)),
+            else own_math("< 10^{-12}" if chk.value < 1e-12 else latex_number(chk.value, 2)),
+            "tolerance": None
+            if chk.tolerance is None
+            else own_math(latex_number(chk.tolerance, 1)),
             "status": {True: "pass", False: "FAIL", None: "not run"}[chk.passed],
             "note": chk.note,
         }
@@ -538,7 +517,7 @@ def build_context(
     if sep.charpoly is not None:
         s = sp.Symbol("s")
         poly = sp.Add(*[c * s ** (2 * n - i) for i, c in enumerate(sep.charpoly)])
-        sep_poly = _math("\\det(sI - M) = " + sp.latex(sp.factor(poly)))
+        sep_poly = own_math("\\det(sI - M) = " + sp.latex(sp.factor(poly)))
     pair = ctrl.dominant
     context = {
         "title": des.title,
@@ -563,10 +542,10 @@ def build_context(
         "pair": None
         if pair is None
         else {
-            "zeta": _math(_num(pair.damping_ratio, 4)),
-            "wn": _math(_num(pair.natural_frequency, 4)),
-            "sigma": _math(_num(pair.real_part, 4)),
-            "wd": _math(_num(pair.damped_frequency, 4)),
+            "zeta": own_math(latex_number(pair.damping_ratio, 4)),
+            "wn": own_math(latex_number(pair.natural_frequency, 4)),
+            "sigma": own_math(latex_number(pair.real_part, 4)),
+            "wd": own_math(latex_number(pair.damped_frequency, 4)),
             "binding": ", ".join(b.replace("_", " ") for b in pair.binding),
             "defaults": list(pair.defaults_used),
         },
@@ -574,9 +553,9 @@ def build_context(
         "observer_poles": _poles(obs.values),
         "controller_rule": ctrl.rule,
         "observer_rule": obs.rule,
-        "controller_polynomial": _math("\\alpha_c(s) = " + polynomial_latex(ctrl.coefficients)),
-        "observer_polynomial": _math("\\alpha_o(s) = " + polynomial_latex(obs.coefficients)),
-        "speed_ratio": _math(_num(slow_o / slow_c, 3)),
+        "controller_polynomial": own_math("\\alpha_c(s) = " + polynomial_latex(ctrl.coefficients)),
+        "observer_polynomial": own_math("\\alpha_o(s) = " + polynomial_latex(obs.coefficients)),
+        "speed_ratio": own_math(latex_number(slow_o / slow_c, 3)),
         "K": _gain_block("K", K.closed_form, K.value),
         "L": _gain_block("L", L.closed_form, L.value),
         "K_method": K.method,
@@ -585,7 +564,7 @@ def build_context(
         "closed_form": d.closed_form,
         "reference": reference,
         "compensator": comp,
-        "separated_matrix": _math(_numeric_matrix(sep.value, 4)) if 2 * n <= 8 else None,
+        "separated_matrix": own_math(latex_matrix(sep.value, 4)) if 2 * n <= 8 else None,
         "separated_polynomial": sep_poly,
         "separated_ok": sep.factors_as_expected,
         "closed_loop_poles": _poles(np.array(sorted(sep.poles, key=lambda z: (z.real, z.imag)))),
@@ -596,7 +575,7 @@ def build_context(
         "shipped_controller_poles": _poles(controller.controller_poles),
         "shipped_observer_poles": _poles(controller.observer_poles)
         if controller.observer_poles.size
-        else _math("\\text{none}"),
+        else own_math("\\text{none}"),
         "notes": list(d.notes),
         "references": _references(d),
         "simulation": study,
@@ -605,13 +584,13 @@ def build_context(
     return context
 
 
-def _matrix_math(name: str, closed: sp.Matrix | None, value: np.ndarray) -> _Math:
+def _matrix_math(name: str, closed: sp.Matrix | None, value: np.ndarray) -> OwnMath:
     """``name = [closed form]`` when short, else the numbers."""
     if closed is not None:
         tex = matrix_latex(closed, MATRIX_LIMIT)
         if tex is not None:
-            return _math(f"{name} = {tex}")
-    return _math(f"{name} = " + _numeric_matrix(np.atleast_2d(value), 6))
+            return own_math(f"{name} = {tex}")
+    return own_math(f"{name} = " + latex_matrix(np.atleast_2d(value), 6))
 
 
 _UNICODE_MATH = {
@@ -643,8 +622,8 @@ def extended_sections(d: Derivation) -> dict:
     return memo_extended_sections(d, figures=False)[0]
 
 
-def _metric(x) -> _Math:
-    return _math("\\text{--}" if x is None else _num(x, 4))
+def _metric(x) -> OwnMath:
+    return own_math("\\text{--}" if x is None else latex_number(x, 4))
 
 
 def memo_extended_sections(d: Derivation, *, figures: bool = True) -> tuple[dict, dict[str, bytes]]:
@@ -670,7 +649,7 @@ def memo_extended_sections(d: Derivation, *, figures: bool = True) -> tuple[dict
         study = integral_study(d, ia)
         captions = [
             {
-                "stem": _math("integral-action"),
+                "stem": own_math("integral-action"),
                 "caption": (
                     f"Reference step of {study.reference:g}, then a step input disturbance of"
                     f" {study.disturbance:.3g} at t = {study.disturbance_time:.3g} s: the reference-gain"
@@ -685,7 +664,7 @@ def memo_extended_sections(d: Derivation, *, figures: bool = True) -> tuple[dict
         if study.windup:
             captions.append(
                 {
-                    "stem": _math("anti-windup"),
+                    "stem": own_math("anti-windup"),
                     "caption": (
                         f"Integral action with the input limited to ±{study.u_max:g}:"
                         " without and with the back-calculation anti-windup."
@@ -709,11 +688,11 @@ def memo_extended_sections(d: Derivation, *, figures: bool = True) -> tuple[dict
             "Aa": _matrix_math("A_a", ia.A_augmented_closed_form, ia.A_augmented),
             "Ba": _matrix_math("B_a", ia.B_augmented_closed_form, ia.B_augmented),
             "gain": _matrix_math(r"[K,\; k_i]", ia.closed_form, ia.K_augmented),
-            "gain_value": _math(r"[K,\; k_i] = " + _numeric_matrix(ia.K_augmented, 6)),
+            "gain_value": own_math(r"[K,\; k_i] = " + latex_matrix(ia.K_augmented, 6)),
             "poles": _poles(np.array([complex(p) for p in ia.poles])),
             "determinant": None
             if ia.controllability_determinant is None
-            else _math(
+            else own_math(
                 r"\det \mathcal{C}_a = " + expr_latex(_factored(ia.controllability_determinant))
             ),
             "conditions": [_plain(c) for c in ia.conditions],
@@ -724,16 +703,16 @@ def memo_extended_sections(d: Derivation, *, figures: bool = True) -> tuple[dict
                 {
                     "loop": r.loop,
                     "plant": r.plant_description,
-                    "before": _math(
-                        "\\text{--}" if r.error_before is None else _num(r.error_before, 3)
+                    "before": own_math(
+                        "\\text{--}" if r.error_before is None else latex_number(r.error_before, 3)
                     ),
-                    "after": _math(
-                        "\\text{--}" if r.error_after is None else _num(r.error_after, 3)
+                    "after": own_math(
+                        "\\text{--}" if r.error_after is None else latex_number(r.error_after, 3)
                     ),
-                    "overshoot": _math(
+                    "overshoot": own_math(
                         "\\text{--}"
                         if r.overshoot_percent is None
-                        else _num(r.overshoot_percent, 3)
+                        else latex_number(r.overshoot_percent, 3)
                     ),
                 }
                 for r in study.runs
@@ -743,10 +722,10 @@ def memo_extended_sections(d: Derivation, *, figures: bool = True) -> tuple[dict
             else [
                 {
                     "label": "with anti-windup" if w.anti_windup else "without anti-windup",
-                    "overshoot": _math(
+                    "overshoot": own_math(
                         "\\text{--}"
                         if w.overshoot_percent is None
-                        else _num(w.overshoot_percent, 3)
+                        else latex_number(w.overshoot_percent, 3)
                     ),
                 }
                 for w in study.windup
@@ -760,7 +739,7 @@ def memo_extended_sections(d: Derivation, *, figures: bool = True) -> tuple[dict
             "measured": ro.measured,
             "T": _matrix_math("T", ro.T_closed_form, ro.T),
             "Ke": _matrix_math("K_e", ro.Ke_closed_form, ro.Ke),
-            "Ke_value": _math("K_e = " + _numeric_matrix(ro.Ke, 6)),
+            "Ke_value": own_math("K_e = " + latex_matrix(ro.Ke, 6)),
             "poles": _poles(np.array([complex(p) for p in ro.poles])),
             "pole_rule": _plain(ro.pole_rule),
             "closed_loop_poles": _poles(
@@ -768,12 +747,12 @@ def memo_extended_sections(d: Derivation, *, figures: bool = True) -> tuple[dict
             ),
             "factors": ro.factors_as_expected,
             "comparison": _plain(ro.comparison),
-            "equations": _math(
+            "equations": own_math(
                 r"\dot\eta = \hat A \eta + \hat B \bar y + \hat F u, \qquad"
                 r" \hat x = T^{-1} \begin{bmatrix} \bar y \\ \eta + K_e \bar y \end{bmatrix},"
                 r" \qquad \bar y = y - D u"
             ),
-            "observer_matrices": _math(
+            "observer_matrices": own_math(
                 ", \\quad ".join(
                     _matrix_math(name, (ro.observer_closed_form or {}).get(key), value)
                     for name, key, value in (
@@ -787,34 +766,36 @@ def memo_extended_sections(d: Derivation, *, figures: bool = True) -> tuple[dict
     if d.discrete is not None:
         dc = d.discrete
         out["digital"] = {
-            "T": _math(_num(dc.sample_time, 6)),
+            "T": own_math(latex_number(dc.sample_time, 6)),
             "Phi": _matrix_math(r"\Phi", dc.Phi_closed_form, dc.Phi),
             "Gamma": _matrix_math(r"\Gamma", dc.Gamma_closed_form, dc.Gamma),
-            "K": _math("K_d = " + _numeric_matrix(dc.K, 6)),
-            "Lp": _math("L_p = " + _numeric_matrix(dc.L_predictor, 6)),
-            "Lc": _math("L_c = " + _numeric_matrix(dc.L_current, 6)),
+            "K": own_math("K_d = " + latex_matrix(dc.K, 6)),
+            "Lp": own_math("L_p = " + latex_matrix(dc.L_predictor, 6)),
+            "Lc": own_math("L_c = " + latex_matrix(dc.L_current, 6)),
             "N": None
             if dc.reference_gain is None
-            else _math("N_d = " + _numeric_matrix(dc.reference_gain, 6)),
+            else own_math("N_d = " + latex_matrix(dc.reference_gain, 6)),
             "controller_z": _poles(dc.controller_poles_z),
             "observer_z": _poles(dc.observer_poles_z),
-            "bandwidth": None if dc.bandwidth is None else _math(_num(dc.bandwidth, 4)),
-            "ratio": None if dc.sampling_ratio is None else _math(_num(dc.sampling_ratio, 3)),
+            "bandwidth": None if dc.bandwidth is None else own_math(latex_number(dc.bandwidth, 4)),
+            "ratio": None
+            if dc.sampling_ratio is None
+            else own_math(latex_number(dc.sampling_ratio, 3)),
             "lag": None
             if dc.hold_phase_lag is None
-            else _math(_num(float(np.degrees(dc.hold_phase_lag)), 3)),
+            else own_math(latex_number(float(np.degrees(dc.hold_phase_lag)), 3)),
             "equations": [_plain(eq.description) for eq in dc.equations.values()],
             "method": _plain(dc.method),
             "integral": None
             if dc.integral is None
             else {
-                "gain": _math(r"[K_d,\; k_{i,d}] = " + _numeric_matrix(dc.integral.K_augmented, 6)),
+                "gain": own_math(r"[K_d,\; k_{i,d}] = " + latex_matrix(dc.integral.K_augmented, 6)),
                 "pole_z": _poles(np.array([dc.integral.integral_pole_z])),
             },
             "reduced": None
             if dc.reduced is None
             else {
-                "gain": _math("L_r = " + _numeric_matrix(dc.reduced.L, 6)),
+                "gain": own_math("L_r = " + latex_matrix(dc.reduced.L, 6)),
                 "poles_z": _poles(dc.reduced.poles_z),
             },
             "form": dc.default_form,
@@ -832,7 +813,7 @@ def memo_extended_sections(d: Derivation, *, figures: bool = True) -> tuple[dict
         ]
         out["digital"]["figures"] = [
             {
-                "stem": _math("sampled-data"),
+                "stem": own_math("sampled-data"),
                 "caption": (
                     f"The continuous plant driven by the digital controller ({form} form,"
                     f" T = {dc.sample_time:g} s, zero-order hold) against the continuous design:"
@@ -872,18 +853,20 @@ def memo_robustness_section(d: Derivation) -> tuple[dict | None, dict[str, bytes
     ctx, figures = memo_robustness(d)
     prefix = d.design.slug + "-"
     for cap in ctx["figures"]:
-        cap["stem"] = _math(
+        cap["stem"] = own_math(
             cap["stem"][len(prefix) :] if cap["stem"].startswith(prefix) else cap["stem"]
         )
     for cond in ctx["routh_hurwitz_conditions"]:
-        cond["expression"] = _math(cond.pop("expression_latex"))
+        cond["expression"] = own_math(cond.pop("expression_latex"))
     if ctx["routh_hurwitz_conditions"]:  # typeset below: drop the plain-text copies
         ctx["routh_hurwitz"] = [
             line for line in ctx["routh_hurwitz"] if not re.match(r"^\s*a\d+ > 0:", line)
         ]
     for row, label in zip(ctx["sensitivity_rows"], ctx.pop("sensitivity_gains_latex"), strict=True):
-        row[0] = _math(f"${label}$")  # the gain's label (symbolic.model.labels), typeset
-    ctx["sensitivity_colspec"] = _math("@{}l" + "r" * (len(ctx["sensitivity_headers"]) - 1) + "@{}")
+        row[0] = own_math(f"${label}$")  # the gain's label (symbolic.model.labels), typeset
+    ctx["sensitivity_colspec"] = own_math(
+        "@{}l" + "r" * (len(ctx["sensitivity_headers"]) - 1) + "@{}"
+    )
     return ctx, figures
 
 
@@ -906,8 +889,8 @@ def build_memo(
     ctx.update(extended_sections(d) if extended_context is None else extended_context)
     name = d.design.slug
     # file names are our own slug (letters, digits, '-'), safe to trust in both formats
-    ctx["figure_prefix"] = _math(f"figures/{name}-")
-    ctx["design_name"] = _math(name)
+    ctx["figure_prefix"] = own_math(f"figures/{name}-")
+    ctx["design_name"] = own_math(name)
     ctx["figures"] = sorted({Path(f).stem[len(name) + 1 :] for f in (figures or {})})
     tex = render_template("tex", "memo.tex.j2", _for_kind(ctx, "tex"))
     md = render_template("md", "memo.md.j2", _for_kind(ctx, "md"))
