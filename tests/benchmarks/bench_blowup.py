@@ -2,7 +2,7 @@
 
 Run on demand only (see README.md in this folder)::
 
-    python -m pytest tests/benchmarks/bench_blowup.py -m benchmark -s
+    python -m pytest tests/benchmarks/bench_blowup.py -m benchmark -s -n 0
 
 The plants (``tests/hostile/heavy_plants.py``): a six-state plant whose every
 entry of A, B and C is its own parameter (48 parameters), and a six-state chain

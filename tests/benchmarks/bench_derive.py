@@ -2,7 +2,7 @@
 
 Run on demand only (see README.md in this folder)::
 
-    python -m pytest tests/benchmarks/bench_derive.py -m benchmark -s
+    python -m pytest tests/benchmarks/bench_derive.py -m benchmark -s -n 0
 
 Every test is marked ``benchmark``, which the default ``-m 'not benchmark'``
 in pyproject.toml deselects.  The targets are engineering goals of this

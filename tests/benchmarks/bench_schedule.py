@@ -2,7 +2,7 @@
 
 Run on demand only (see README.md in this folder)::
 
-    python -m pytest tests/benchmarks/bench_schedule.py -m benchmark -s
+    python -m pytest tests/benchmarks/bench_schedule.py -m benchmark -s -n 0
 
 K of the worked belt drive (4 states, 5 parameters) is evaluated at 1,000,000
 random parameter points three ways:

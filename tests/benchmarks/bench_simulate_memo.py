@@ -1,6 +1,6 @@
 """Timing of the simulation and of ``gainsmith memo`` (run on demand).
 
-    python -m pytest tests/benchmarks/bench_simulate_memo.py -m benchmark -s
+    python -m pytest tests/benchmarks/bench_simulate_memo.py -m benchmark -s -n 0
 
 Targets (this project's own goals, common practice, no source): the three
 step cases of a 4-state plant with its observer (8 states) over 10,000
