@@ -91,11 +91,12 @@ def measure_shipped_step(template, controller_poles, observer_poles, reference, 
     """The step metrics of the shipped controller placing these poles (matched estimate).
 
     Module level, plain arguments: runs in the SciPy sidecar.  Returns a dict of
-    :class:`~symbolic.verification.stepping.StepMetrics` fields, or None when the poles cannot be placed.
+    :class:`~symbolic.verification.step_results.StepMetrics` fields, or None when the poles cannot be placed.
     """
     from ..runtime.errors import GainsmithError
+    from .horizon import horizon_from_poles
+    from .metrics import step_metrics
     from .shipped import build_controller, simulate_controller
-    from .stepping import horizon_from_poles, step_metrics
 
     try:
         ctrl = build_controller(template, controller_poles, observer_poles)
