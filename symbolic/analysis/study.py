@@ -18,13 +18,13 @@ from ..model.results import Derivation
 from ..runtime.errors import GainsmithError
 from ..verification.horizon import horizon_from_poles
 from ..verification.metrics import step_metrics
-from ..verification.shipped import (
-    ShippedController,
+from ..verification.shipped import ShippedController
+from ..verification.shipped_assembly import (
     build_controller,
     shipped_controller,
-    simulate_controller,
     state_feedback_reference,
 )
+from ..verification.shipped_simulation import simulate_controller
 from ..verification.step_cases import MISMATCH_FRACTION
 from ..verification.step_results import LoopModel, Response, StepMetrics
 
