@@ -28,13 +28,13 @@ from scipy.optimize import linear_sum_assignment
 import symbolic
 from symbolic.analysis.study import simulation_study
 from symbolic.derivation.pipeline import derive
-from symbolic.verification.shipped import (
+from symbolic.verification.shipped import closed_loop
+from symbolic.verification.shipped_assembly import (
     build_controller,
-    closed_loop,
     shipped_controller,
-    simulate_controller,
     state_feedback_reference,
 )
+from symbolic.verification.shipped_simulation import simulate_controller
 
 from .conftest import WORKED_FILES
 

@@ -14,7 +14,7 @@ from symbolic.analysis.study import SPEED_FACTORS, simulation_json, simulation_s
 from symbolic.cli import main
 from symbolic.derivation.pipeline import derive
 from symbolic.derivation.specs import second_order_step_metrics
-from symbolic.verification.stepping import step_metrics
+from symbolic.verification.metrics import step_metrics
 
 from .conftest import WORKED
 

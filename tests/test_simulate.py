@@ -32,18 +32,13 @@ import scipy.signal
 from scipy.optimize import brentq
 
 from symbolic.runtime.errors import DesignFileError, GainsmithError, GainsmithWarning
-from symbolic.verification.stepping import (
-    STATE_LIMIT,
-    LoopModel,
-    Response,
-    StepMetrics,
-    default_horizon,
-    default_mismatch,
-    observer_speed_study,
-    simulate_cases,
-    simulate_step,
-    step_metrics,
-)
+from symbolic.verification.horizon import default_horizon
+from symbolic.verification.linear_stepping import STATE_LIMIT
+from symbolic.verification.metrics import step_metrics
+from symbolic.verification.observer_speed import observer_speed_study
+from symbolic.verification.step_cases import default_mismatch, simulate_cases
+from symbolic.verification.step_results import LoopModel, Response, StepMetrics
+from symbolic.verification.stepping import simulate_step
 
 # --------------------------------------------------------------------------------------------
 # Scenarios (invented)
@@ -669,9 +664,9 @@ def test_benchmark_three_cases_and_study(capsys):
 
 
 def test_spent_budget_keeps_the_part_already_done(monkeypatch):
-    import symbolic.verification.stepping as simulate_module
+    import symbolic.verification.saturated as saturated_module
 
-    monkeypatch.setattr(simulate_module, "SATURATED_BUDGET", 300)
+    monkeypatch.setattr(saturated_module, "SATURATED_BUDGET", 300)
     model = conveyor_loop()
     with pytest.warns(GainsmithWarning, match="budget"):
         response = simulate_step(model, u_max=100.0, samples=1601)

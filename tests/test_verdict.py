@@ -30,7 +30,7 @@ from symbolic.analysis.verdict import (
 )
 from symbolic.cli import main
 from symbolic.derivation.pipeline import derive
-from symbolic.verification.shipped import shipped_controller
+from symbolic.verification.shipped_assembly import shipped_controller
 
 from .conftest import WORKED, WORKED_FILES
 

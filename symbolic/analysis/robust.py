@@ -1096,7 +1096,7 @@ def robustness_study(
         checks.extend(margins.observer_based.checks)
     if not study.grid.varied:
         notes.append("no parameter has a range: the mismatch study has only the nominal point")
-    from ..verification.shipped import shipped_controller
+    from ..verification.shipped_assembly import shipped_controller
     from .verdict import robustness_table
 
     t = time.perf_counter()

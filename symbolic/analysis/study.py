@@ -16,21 +16,17 @@ import numpy as np
 from ..model.numbers import format_poles
 from ..model.results import Derivation
 from ..runtime.errors import GainsmithError
-from ..verification.shipped import (
-    ShippedController,
+from ..verification.horizon import horizon_from_poles
+from ..verification.metrics import step_metrics
+from ..verification.shipped import ShippedController
+from ..verification.shipped_assembly import (
     build_controller,
     shipped_controller,
-    simulate_controller,
     state_feedback_reference,
 )
-from ..verification.stepping import (
-    MISMATCH_FRACTION,
-    LoopModel,
-    Response,
-    StepMetrics,
-    horizon_from_poles,
-    step_metrics,
-)
+from ..verification.shipped_simulation import simulate_controller
+from ..verification.step_cases import MISMATCH_FRACTION
+from ..verification.step_results import LoopModel, Response, StepMetrics
 
 __all__ = [
     "CaseOutcome",
@@ -151,7 +147,7 @@ def _measure(m: StepMetrics, field: str | None, band: float) -> float | None:
 def mismatched_estimate(n: int, x0, reference: float, given=None) -> np.ndarray:
     """The initial estimate of the mismatched case: the design file's, or
     ``x(0) + 0.1 |r| (1, …, 1)`` (common practice, no source; see
-    :func:`symbolic.verification.stepping.default_mismatch`)."""
+    :func:`symbolic.verification.step_cases.default_mismatch`)."""
     if given is not None:
         return np.asarray(given, dtype=float)
     start = np.zeros(n) if x0 is None else np.asarray(x0, dtype=float)

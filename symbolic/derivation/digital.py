@@ -1470,7 +1470,7 @@ def sampled_data_study(
     ``y[k] = C x(kT) + D u[k]``.  Both loops start at ``[simulation] initial_state`` (default
     zero) with a matched estimate and a step of ``[simulation] reference`` at t = 0; the
     continuous loop is :func:`symbolic.verification.stepping.simulate_step` with the observer.  Metrics by
-    :func:`symbolic.verification.stepping.step_metrics` on both.
+    :func:`symbolic.verification.metrics.step_metrics` on both.
 
     Parameters
     ----------
@@ -1483,7 +1483,10 @@ def sampled_data_study(
         Limit applied inside the controller (default none: the linear designs are compared).
     """
     from ..analysis.study import loop_model
-    from ..verification.stepping import Response, default_horizon, simulate_step, step_metrics
+    from ..verification.horizon import default_horizon
+    from ..verification.metrics import step_metrics
+    from ..verification.step_results import Response
+    from ..verification.stepping import simulate_step
 
     if digital is None:
         digital = getattr(d, "discrete", None) or digital_controller(d)
@@ -1671,7 +1674,7 @@ def continuous_equations(d: Derivation, form: str) -> DifferenceEquations:
 
 def _continuous_design_response(d, digital, form, x0, r, grid):
     """The continuous design (integral action and/or reduced observer) on the same grid."""
-    from ..verification.stepping import Response
+    from ..verification.step_results import Response
 
     A, B, C, D = d.plant.A, d.plant.B, d.plant.C, d.plant.D
     m = B.shape[1]

@@ -110,7 +110,7 @@ DISTURBANCE_FRACTION = 0.2
 #: fraction (common practice, no source).
 MISMATCH_FRACTION = sp.Rational(1, 5)
 
-#: A run stops when the state grows past this size (as in :mod:`symbolic.verification.stepping`).
+#: A run stops when the state grows past this size (as in :mod:`symbolic.verification.linear_stepping`).
 STATE_LIMIT = 1e12
 
 SIGN_CONVENTION = (

@@ -380,7 +380,7 @@ def build_context(
     when not given.
     """
     if controller is None:
-        from ..verification.shipped import shipped_controller
+        from ..verification.shipped_assembly import shipped_controller
 
         controller = shipped_controller(d)
     if requirements is None:

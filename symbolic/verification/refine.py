@@ -5,7 +5,7 @@ the second-order approximation.  The loop that is shipped has more poles (the re
 controller poles, the observer, the integral pole), possibly plant zeros and a sample time,
 so its step response can miss a specification the approximation meets (a 3-state motor:
 settling in 0.02084 s against ≤ 0.02 s).  Before the symbolic derivation, gainsmith
-therefore builds the shipped controller numerically (:func:`symbolic.verification.shipped.build_controller`)
+therefore builds the shipped controller numerically (:func:`symbolic.verification.shipped_assembly.build_controller`)
 for the chosen poles, simulates its step with a matched estimate (the case the specifications
 are judged on, without the input limit), and, while a specification is missed,
 
@@ -91,11 +91,13 @@ def measure_shipped_step(template, controller_poles, observer_poles, reference, 
     """The step metrics of the shipped controller placing these poles (matched estimate).
 
     Module level, plain arguments: runs in the SciPy sidecar.  Returns a dict of
-    :class:`~symbolic.verification.stepping.StepMetrics` fields, or None when the poles cannot be placed.
+    :class:`~symbolic.verification.step_results.StepMetrics` fields, or None when the poles cannot be placed.
     """
     from ..runtime.errors import GainsmithError
-    from .shipped import build_controller, simulate_controller
-    from .stepping import horizon_from_poles, step_metrics
+    from .horizon import horizon_from_poles
+    from .metrics import step_metrics
+    from .shipped_assembly import build_controller
+    from .shipped_simulation import simulate_controller
 
     try:
         ctrl = build_controller(template, controller_poles, observer_poles)
@@ -202,7 +204,7 @@ def refine_controller_poles(design, ctrl, num, pole_sets):
     -------
     (PoleChoice, Refinement)
     """
-    from .shipped import template_controller
+    from .shipped_assembly import template_controller
 
     spec = design.controller.specifications
     pair = ctrl.dominant

@@ -23,8 +23,8 @@ import pytest
 
 import symbolic
 from symbolic.analysis.study import SPEED_FACTORS, _speed_study, loop_model, simulation_study
-from symbolic.verification.shipped import shipped_controller
-from symbolic.verification.stepping import simulate_cases
+from symbolic.verification.shipped_assembly import shipped_controller
+from symbolic.verification.step_cases import simulate_cases
 
 from ..conftest import ROOT, WORKED
 
