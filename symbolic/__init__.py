@@ -56,13 +56,13 @@ _LAZY = {
     "Parameter": "model.design",
     "Plant": "model.design",
     "Signal": "model.design",
-    "load_design": "input.design",
-    "parse_design": "input.design",
+    "load_design": "input.reader",
+    "parse_design": "input.reader",
 }
 
 if TYPE_CHECKING:  # pragma: no cover
     from .derivation.pipeline import derive
-    from .input.design import load_design, parse_design
+    from .input.reader import load_design, parse_design
     from .model.design import Design, Parameter, Plant, Signal
     from .model.results import (
         Check,

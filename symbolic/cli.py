@@ -41,7 +41,7 @@ def _overrides(pairs: Sequence[str] | None, design: str) -> dict[str, str]:
 
 
 def _load(args):
-    from .input.design import load_design
+    from .input.reader import load_design
 
     return load_design(args.design, _overrides(args.set, args.design))
 

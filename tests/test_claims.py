@@ -27,7 +27,7 @@ from scipy.signal import place_poles
 from symbolic.analysis.claims import ClaimReport, ClaimVerdict, check_claims
 from symbolic.cli import main
 from symbolic.derivation.pipeline import derive
-from symbolic.input.design import parse_design
+from symbolic.input.reader import parse_design
 from symbolic.model.design import Claims
 from symbolic.runtime.errors import DesignFileError
 

@@ -16,7 +16,7 @@ from scipy.signal import place_poles
 
 import symbolic
 from symbolic.derivation.pipeline import derive
-from symbolic.input.design import parse_design
+from symbolic.input.reader import parse_design
 
 from .conftest import WORKED_FILES
 

@@ -27,7 +27,7 @@ from symbolic.derivation.numeric import (
     pole_residual,
 )
 from symbolic.derivation.pipeline import derive
-from symbolic.input.design import parse_design
+from symbolic.input.reader import parse_design
 
 #: The tolerance of the eigenvalue check before this change (simple poles).
 OLD_TOLERANCE = 1e-6

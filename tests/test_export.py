@@ -26,7 +26,7 @@ from scipy.signal import place_poles
 from symbolic.cli import main
 from symbolic.derivation.numeric import eigenvalue_tolerance, evaluate_matrix, pole_residual
 from symbolic.derivation.pipeline import derive
-from symbolic.input.design import load_design, parse_design
+from symbolic.input.reader import load_design, parse_design
 from symbolic.render.export import (
     CODE_NOT_FINITE,
     CODE_OK,

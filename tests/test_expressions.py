@@ -32,6 +32,7 @@ import pytest
 import sympy
 
 from symbolic.input import expressions as _expressions
+from symbolic.input import syntax as _syntax
 from symbolic.input.expressions import (
     ALLOWED_CONSTANTS,
     ALLOWED_FUNCTIONS,
@@ -388,15 +389,15 @@ def test_length_limit():
     text = "m+" * 999 + "m"  # 1999 characters, a flat chain of 1000 terms
     with pytest.raises(ExpressionError, match="more than 500 terms"):
         parse_expression(text, SYMBOLS)
-    assert len(text) < _expressions.MAX_TEXT_LENGTH
-    longest = " " * (_expressions.MAX_TEXT_LENGTH - 1) + "m"
+    assert len(text) < _syntax.MAX_TEXT_LENGTH
+    longest = " " * (_syntax.MAX_TEXT_LENGTH - 1) + "m"
     assert parse_expression(longest, SYMBOLS) == m
     with pytest.raises(ExpressionError, match="too long"):
         parse_expression(" " + longest, SYMBOLS)
 
 
 def test_bracket_depth_limit():
-    depth = _expressions.MAX_DEPTH
+    depth = _syntax.MAX_DEPTH
     assert parse_expression("(" * (depth - 1) + "m" + ")" * (depth - 1), SYMBOLS) == m
     with pytest.raises(ExpressionError, match="nests"):
         parse_expression("(" * (depth + 1) + "m" + ")" * (depth + 1), SYMBOLS)

@@ -4,7 +4,7 @@ The property is the contract of the command line (``symbolic/cli.py``): for
 any input, ``parse_design`` and ``derive`` either return or raise a
 ``GainsmithError`` subclass; nothing else escapes, and each call is quick.
 
-Documents come from a grammar of gainsmith's own keys (``symbolic/_design.py``)
+Documents come from a grammar of gainsmith's own keys (the table modules of ``symbolic/input/``)
 with values that are right most of the time and wrong some of the time: numbers
 of every kind (NaN, infinities, huge integers), strings, expression-like strings
 built from random tokens (names, operators, functions, pieces of Python), nested

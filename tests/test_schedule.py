@@ -28,7 +28,7 @@ from symbolic.analysis.schedule import (
 from symbolic.cli import main
 from symbolic.derivation.numeric import evaluate_matrix
 from symbolic.derivation.pipeline import derive
-from symbolic.input.design import load_design, parse_design
+from symbolic.input.reader import load_design, parse_design
 from symbolic.runtime.errors import DesignFileError
 
 from .conftest import WORKED

@@ -14,7 +14,8 @@ The categories follow the hardening brief: ``code`` (code execution through
 expressions and names), ``resource`` (time and memory attacks), ``type``
 (type confusion) and ``structure`` (missing, misplaced or contradictory
 tables, plants without the needed structure).  The limits they probe are the
-loader's own (see ``symbolic/_design.py`` and ``symbolic/_expressions.py``).
+loader's own (see ``symbolic/input/reader.py``, its table modules and
+``symbolic/input/expressions.py``).
 """
 
 from __future__ import annotations
