@@ -909,7 +909,8 @@ def assemble_memo(design: Design) -> tuple[Derivation, MemoDocument]:
         study_ctx, figures = memo_simulation(d, study)
         claims_ctx = claims = None
         if design.claims is not None:
-            from ..analysis.claims import check_claims, memo_claims
+            from ..analysis.claims import check_claims
+            from .claims_pages import memo_claims
 
             claims_ctx = memo_claims(d, design.claims)
             claims = check_claims(d, design.claims)
