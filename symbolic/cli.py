@@ -65,9 +65,17 @@ def _cmd_memo(args) -> int:
 
 
 def _cmd_simulate(args) -> int:
-    from .analysis.study import run_simulate
+    from . import derive
+    from .analysis.study import simulation_run
+    from .render.report import dumps
+    from .render.study_pages import simulation_json, simulation_text
 
-    return run_simulate(_load(args), as_json=args.json)
+    run = simulation_run(derive(_load(args)))
+    if args.json:
+        print(dumps(simulation_json(run.study, run.requirements)))
+    else:
+        print(simulation_text(run.study, run.derivation, run.requirements))
+    return EXIT_OK if run.passed else EXIT_FAILED_CHECK
 
 
 def _cmd_check(args) -> int:

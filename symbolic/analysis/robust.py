@@ -1356,7 +1356,7 @@ def robustness_text(r: RobustnessReport) -> str:
         for note in r.notes:
             w("  - " + note)
     if r.shipped is not None:
-        from .study import requirements_text
+        from ..render.study_pages import requirements_text
 
         w("")
         out.extend(requirements_text(r.shipped))

@@ -899,9 +899,10 @@ def build_memo(
 
 def assemble_memo(design: Design) -> tuple[Derivation, MemoDocument]:
     """Derive, simulate, study robustness and render: everything but the PDF and the files."""
-    from ..analysis.study import memo_simulation, simulation_study
+    from ..analysis.study import simulation_study
     from ..analysis.verdict import requirement_table
     from .figures import deferred_figures
+    from .study_memo import memo_simulation
 
     d = derive(design)
     with deferred_figures() as batch:  # every figure is drawn by one set of workers
