@@ -112,9 +112,20 @@ def _cmd_schedule(args) -> int:
 
 
 def _cmd_robustness(args) -> int:
-    from .analysis.robust import run_robustness
+    from . import derive
+    from .analysis.parameter_grid import parameter_grid
+    from .analysis.robust import robustness_study
+    from .render.report import dumps
+    from .render.robust_pages import robustness_json, robustness_text
 
-    return run_robustness(_load(args), points=args.points, as_json=args.json)
+    design = _load(args)
+    parameter_grid(design, args.points)  # refuse a bad grid before the derivation
+    report = robustness_study(derive(design), args.points)
+    if args.json:
+        print(dumps(robustness_json(report)))
+    else:
+        print(robustness_text(report))
+    return EXIT_OK if report.passed else EXIT_FAILED_CHECK
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -255,7 +255,7 @@ class RangeStability:
 
 def range_stability(d, ctrl: ShippedController, points: int = 5) -> RangeStability | None:
     """Grid check of the shipped loop over the declared ranges; None when no range is declared."""
-    from .robust import evaluate_on_grid, parameter_grid
+    from .parameter_grid import evaluate_on_grid, parameter_grid
 
     grid = parameter_grid(d.design, points)
     if not grid.varied:

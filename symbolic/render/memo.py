@@ -848,7 +848,7 @@ def memo_robustness_section(d: Derivation) -> tuple[dict | None, dict[str, bytes
     The study itself lives in :mod:`symbolic.analysis.robust`; here its plain data is
     marked up (formulas our own code typeset become trusted, in one place).
     """
-    from ..analysis.robust import memo_robustness
+    from .robust_memo import memo_robustness
 
     ctx, figures = memo_robustness(d)
     prefix = d.design.slug + "-"
