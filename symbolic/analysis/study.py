@@ -32,7 +32,8 @@ from ..verification.stepping import (
     step_metrics,
 )
 from .claims import check_claims
-from .verdict import RequirementTable, requirement_table
+from .requirements import RequirementTable
+from .verdict import requirement_table
 
 __all__ = [
     "CaseOutcome",

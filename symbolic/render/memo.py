@@ -77,7 +77,7 @@ class MemoDocument:
     tex: str
     markdown: str
     figures: dict[str, bytes]
-    #: the requirements table the memo's verdict shows (symbolic.analysis.verdict.RequirementTable)
+    #: the requirements table the memo's verdict shows (symbolic.analysis.requirements.RequirementTable)
     requirements: object = None
 
 
@@ -375,7 +375,7 @@ def build_context(
 ) -> dict:
     """The template context shared by the LaTeX and Markdown memos.
 
-    ``requirements`` is the :class:`symbolic.analysis.verdict.RequirementTable` of the shipped
+    ``requirements`` is the :class:`symbolic.analysis.requirements.RequirementTable` of the shipped
     ``controller`` (:class:`symbolic.verification.shipped.ShippedController`); both are computed here
     when not given.
     """
