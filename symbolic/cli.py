@@ -104,11 +104,21 @@ def _cmd_export(args) -> int:
 
 
 def _cmd_schedule(args) -> int:
-    from .analysis.schedule import run_schedule
+    from . import derive
+    from .analysis.schedule import schedule_axes
+    from .render.report import dumps
+    from .render.schedule_pages import publish_schedule, schedule_json, schedule_text
 
-    return run_schedule(
-        _load(args), out_dir=args.output, points=args.points, vary=args.vary, as_json=args.json
+    design = _load(args)
+    schedule_axes(design, args.points, args.vary)  # refuse a bad request before the derivation
+    result = publish_schedule(
+        derive(design), out_dir=args.output, points=args.points, vary=args.vary
     )
+    if args.json:
+        print(dumps(schedule_json(result)))
+    else:
+        print(schedule_text(result.schedule, result.files))
+    return EXIT_OK if result.passed else EXIT_FAILED_CHECK
 
 
 def _cmd_robustness(args) -> int:
