@@ -176,21 +176,8 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.set_defaults(func=_cmd_memo)
 
-    p = sub.add_parser("simulate", help="simulate the step response and compare with the specs")
-    common(p)
-    p.add_argument("--json", action="store_true", help="print machine-readable results")
-    p.set_defaults(func=_cmd_simulate)
-
-    p = sub.add_parser("check", help="check hand-calculated gains in the [claimed] table")
-    common(p)
-    p.add_argument(
-        "--tolerance",
-        type=float,
-        default=None,
-        help="relative tolerance (default: the file's, else 1e-3)",
-    )
-    p.add_argument("--json", action="store_true", help="print machine-readable results")
-    p.set_defaults(func=_cmd_check)
+    _add_simulate(sub, common)
+    _add_check(sub, common)
 
     p = sub.add_parser(
         "export", help="write the gain formulas, or the digital controller, as C99 or Python code"
@@ -213,6 +200,35 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.set_defaults(func=_cmd_export)
 
+    _add_schedule(sub, common)
+    _add_robustness(sub, common)
+    return parser
+
+
+def _add_simulate(sub, common) -> None:
+    """The ``simulate`` command's options."""
+    p = sub.add_parser("simulate", help="simulate the step response and compare with the specs")
+    common(p)
+    p.add_argument("--json", action="store_true", help="print machine-readable results")
+    p.set_defaults(func=_cmd_simulate)
+
+
+def _add_check(sub, common) -> None:
+    """The ``check`` command's options."""
+    p = sub.add_parser("check", help="check hand-calculated gains in the [claimed] table")
+    common(p)
+    p.add_argument(
+        "--tolerance",
+        type=float,
+        default=None,
+        help="relative tolerance (default: the file's, else 1e-3)",
+    )
+    p.add_argument("--json", action="store_true", help="print machine-readable results")
+    p.set_defaults(func=_cmd_check)
+
+
+def _add_schedule(sub, common) -> None:
+    """The ``schedule`` command's options."""
     p = sub.add_parser("schedule", help="evaluate the gains over the parameter ranges (CSV + plot)")
     common(p)
     p.add_argument("-o", "--output", default="schedule", help="output folder (default: ./schedule)")
@@ -228,6 +244,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print a machine-readable summary")
     p.set_defaults(func=_cmd_schedule)
 
+
+def _add_robustness(sub, common) -> None:
+    """The ``robustness`` command's options."""
     p = sub.add_parser("robustness", help="parameter mismatch, sensitivities and stability margins")
     common(p)
     p.add_argument(
@@ -235,7 +254,6 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--json", action="store_true", help="print machine-readable results")
     p.set_defaults(func=_cmd_robustness)
-    return parser
 
 
 def main(argv: Sequence[str] | None = None) -> int:
