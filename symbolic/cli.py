@@ -65,15 +65,34 @@ def _cmd_memo(args) -> int:
 
 
 def _cmd_simulate(args) -> int:
-    from .analysis.study import run_simulate
+    from . import derive
+    from .analysis.study import simulation_run
+    from .render.report import dumps
+    from .render.study_pages import simulation_json, simulation_text
 
-    return run_simulate(_load(args), as_json=args.json)
+    run = simulation_run(derive(_load(args)))
+    if args.json:
+        print(dumps(simulation_json(run.study, run.requirements)))
+    else:
+        print(simulation_text(run.study, run.derivation, run.requirements))
+    return EXIT_OK if run.passed else EXIT_FAILED_CHECK
 
 
 def _cmd_check(args) -> int:
-    from .analysis.claims import run_check
+    from . import derive
+    from .analysis.claims import claimed_tolerance, hand_check
+    from .render.claims_pages import claims_json, format_claims
+    from .render.report import dumps
 
-    return run_check(_load(args), tolerance=args.tolerance, as_json=args.json)
+    design = _load(args)
+    tolerance = claimed_tolerance(design, args.tolerance)  # refused before the derivation
+    d = derive(design)
+    report = hand_check(d, tolerance)
+    if args.json:
+        print(dumps(claims_json(report, d)))
+    else:
+        print(format_claims(report, d))
+    return EXIT_OK if report.holds else EXIT_FAILED_CHECK
 
 
 def _cmd_export(args) -> int:
@@ -85,17 +104,38 @@ def _cmd_export(args) -> int:
 
 
 def _cmd_schedule(args) -> int:
-    from .analysis.schedule import run_schedule
+    from . import derive
+    from .analysis.schedule import schedule_axes
+    from .render.report import dumps
+    from .render.schedule_pages import publish_schedule, schedule_json, schedule_text
 
-    return run_schedule(
-        _load(args), out_dir=args.output, points=args.points, vary=args.vary, as_json=args.json
+    design = _load(args)
+    schedule_axes(design, args.points, args.vary)  # refuse a bad request before the derivation
+    result = publish_schedule(
+        derive(design), out_dir=args.output, points=args.points, vary=args.vary
     )
+    if args.json:
+        print(dumps(schedule_json(result)))
+    else:
+        print(schedule_text(result.schedule, result.files))
+    return EXIT_OK if result.passed else EXIT_FAILED_CHECK
 
 
 def _cmd_robustness(args) -> int:
-    from .analysis.robust import run_robustness
+    from . import derive
+    from .analysis.parameter_grid import parameter_grid
+    from .analysis.robust import robustness_study
+    from .render.report import dumps
+    from .render.robust_pages import robustness_json, robustness_text
 
-    return run_robustness(_load(args), points=args.points, as_json=args.json)
+    design = _load(args)
+    parameter_grid(design, args.points)  # refuse a bad grid before the derivation
+    report = robustness_study(derive(design), args.points)
+    if args.json:
+        print(dumps(robustness_json(report)))
+    else:
+        print(robustness_text(report))
+    return EXIT_OK if report.passed else EXIT_FAILED_CHECK
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -136,21 +176,8 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.set_defaults(func=_cmd_memo)
 
-    p = sub.add_parser("simulate", help="simulate the step response and compare with the specs")
-    common(p)
-    p.add_argument("--json", action="store_true", help="print machine-readable results")
-    p.set_defaults(func=_cmd_simulate)
-
-    p = sub.add_parser("check", help="check hand-calculated gains in the [claimed] table")
-    common(p)
-    p.add_argument(
-        "--tolerance",
-        type=float,
-        default=None,
-        help="relative tolerance (default: the file's, else 1e-3)",
-    )
-    p.add_argument("--json", action="store_true", help="print machine-readable results")
-    p.set_defaults(func=_cmd_check)
+    _add_simulate(sub, common)
+    _add_check(sub, common)
 
     p = sub.add_parser(
         "export", help="write the gain formulas, or the digital controller, as C99 or Python code"
@@ -173,6 +200,35 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.set_defaults(func=_cmd_export)
 
+    _add_schedule(sub, common)
+    _add_robustness(sub, common)
+    return parser
+
+
+def _add_simulate(sub, common) -> None:
+    """The ``simulate`` command's options."""
+    p = sub.add_parser("simulate", help="simulate the step response and compare with the specs")
+    common(p)
+    p.add_argument("--json", action="store_true", help="print machine-readable results")
+    p.set_defaults(func=_cmd_simulate)
+
+
+def _add_check(sub, common) -> None:
+    """The ``check`` command's options."""
+    p = sub.add_parser("check", help="check hand-calculated gains in the [claimed] table")
+    common(p)
+    p.add_argument(
+        "--tolerance",
+        type=float,
+        default=None,
+        help="relative tolerance (default: the file's, else 1e-3)",
+    )
+    p.add_argument("--json", action="store_true", help="print machine-readable results")
+    p.set_defaults(func=_cmd_check)
+
+
+def _add_schedule(sub, common) -> None:
+    """The ``schedule`` command's options."""
     p = sub.add_parser("schedule", help="evaluate the gains over the parameter ranges (CSV + plot)")
     common(p)
     p.add_argument("-o", "--output", default="schedule", help="output folder (default: ./schedule)")
@@ -188,6 +244,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print a machine-readable summary")
     p.set_defaults(func=_cmd_schedule)
 
+
+def _add_robustness(sub, common) -> None:
+    """The ``robustness`` command's options."""
     p = sub.add_parser("robustness", help="parameter mismatch, sensitivities and stability margins")
     common(p)
     p.add_argument(
@@ -195,7 +254,6 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--json", action="store_true", help="print machine-readable results")
     p.set_defaults(func=_cmd_robustness)
-    return parser
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -737,7 +737,7 @@ def test_a_pole_error_just_over_its_tolerance_reads_differently_from_it():
     b=st.floats(allow_nan=False, allow_infinity=False, width=64),
 )
 def test_distinct_numbers_tells_different_doubles_apart(a, b):
-    from symbolic.analysis.claims import distinct_numbers
+    from symbolic.analysis.claim_wording import distinct_numbers
 
     ta, tb = distinct_numbers(a, b)
     assert (ta == tb) == (a == b)

@@ -17,13 +17,14 @@ import re
 import pytest
 
 from symbolic import derive, load_design, parse_design
-from symbolic.analysis.claims import check_claims, format_claims
-from symbolic.analysis.robust import memo_robustness
+from symbolic.analysis.claims import check_claims
 from symbolic.cli import main
 from symbolic.model.design import Claims
 from symbolic.model.labels import gain_label
+from symbolic.render.claims_pages import format_claims
 from symbolic.render.memo import _gain_block
 from symbolic.render.report import derivation_summary
+from symbolic.render.robust_memo import memo_robustness
 
 from .conftest import WORKED
 

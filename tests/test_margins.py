@@ -16,18 +16,16 @@ import pytest
 import scipy.signal
 
 from symbolic import derive, load_design
-from symbolic.analysis.margins import (
+from symbolic.analysis.broken_loop import (
     BrokenLoop,
-    _gain_range,
-    broken_loop_margins,
     closed_loop_matrix,
-    compare_margins,
-    count_encirclements,
     is_stable,
     loop_response,
     observer_loop,
     state_feedback_loop,
 )
+from symbolic.analysis.margins import broken_loop_margins, compare_margins, stable_gain_range
+from symbolic.analysis.nyquist import count_encirclements
 from symbolic.derivation.numeric import pole_residual
 from symbolic.render.figures import figure_files
 from symbolic.render.robust_figures import loop_magnitude_phase_figure, loop_polar_figure
@@ -275,7 +273,7 @@ def test_gain_scan_finds_a_limit_the_frequency_sweep_missed():
     """Without any phase-crossover candidate, the eigenvalue scan and bisection find k = 6."""
     loop = transfer_loop([1], [1, 3, 2, 0])
     notes: list[str] = []
-    low, high, _bounds = _gain_range(loop, [], notes)
+    low, high, _bounds = stable_gain_range(loop, [], notes)
     assert low is None
     # bisection on eigenvalues: limited by the stability tolerance (1e-10 of the spectral radius)
     assert high == pytest.approx(6.0, rel=1e-8)

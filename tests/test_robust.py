@@ -22,26 +22,18 @@ import scipy.signal
 import sympy as sp
 
 from symbolic import DesignFileError, derive, load_design
-from symbolic.analysis.robust import (
-    MAX_GRID_POINTS,
-    _Assembler,
-    evaluate_on_grid,
-    gain_sensitivities,
-    memo_robustness,
-    mismatch_loop,
-    mismatch_study,
-    parameter_grid,
-    robustness_json,
-    robustness_study,
-    routh_hurwitz_conditions,
-    run_robustness,
-    state_feedback_stability,
-)
+from symbolic.analysis.mismatch import MismatchAssembler, mismatch_loop, mismatch_study
+from symbolic.analysis.parameter_grid import MAX_GRID_POINTS, evaluate_on_grid, parameter_grid
+from symbolic.analysis.robust import robustness_study
+from symbolic.analysis.routh import routh_hurwitz_conditions, state_feedback_stability
+from symbolic.analysis.sensitivity import gain_sensitivities
 from symbolic.cli import main
 from symbolic.derivation.closed_form import characteristic_coefficients
 from symbolic.derivation.numeric import evaluate_matrix, pole_residual
 from symbolic.render.figures import figure_files
 from symbolic.render.robust_figures import mismatch_pole_figure
+from symbolic.render.robust_memo import memo_robustness
+from symbolic.render.robust_pages import robustness_json
 
 from .conftest import WORKED
 
@@ -165,7 +157,7 @@ def test_mismatch_loop_matches_the_loop_in_state_and_estimate(name, request):
     d = request.getfixturevalue(name)
     loop = mismatch_loop(d)
     grid = parameter_grid(d.design, 2)
-    asm = _Assembler(d, grid)
+    asm = MismatchAssembler(d, grid)
     rng = np.random.default_rng(7)
     nominal = grid.nominal
     n = d.plant.A.shape[0]
@@ -216,7 +208,7 @@ def test_grid_contains_every_corner(focus):
 # A mismatch that destabilises
 # --------------------------------------------------------------------------
 def test_destabilising_mismatch_is_reported(bearing_path, capsys):
-    code = run_robustness(load_design(bearing_path), points=5, as_json=True)
+    code = main(["robustness", str(bearing_path), "--points", "5", "--json"])
     out = json.loads(capsys.readouterr().out)
     assert code == 1
     mm = out["mismatch"]
@@ -377,7 +369,7 @@ def test_sensitivities_without_closed_forms_use_finite_differences(focus):
 # Output, input checks, figures
 # --------------------------------------------------------------------------
 def test_json_keys(capsys):
-    code = run_robustness(load_design(WORKED / "focus_actuator.toml"), points=3, as_json=True)
+    code = main(["robustness", str(WORKED / "focus_actuator.toml"), "--points", "3", "--json"])
     out = json.loads(capsys.readouterr().out)
     assert code == 0
     for key in ("mismatch", "routh_hurwitz", "sensitivities", "margins"):

@@ -17,18 +17,13 @@ import numpy as np
 import pytest
 from scipy.signal import place_poles
 
-from symbolic.analysis.schedule import (
-    MAX_SCIPY_CHECKS,
-    _check_indices,
-    gain_schedule,
-    run_schedule,
-    schedule_csv,
-    schedule_summary,
-)
+from symbolic.analysis.schedule import MAX_SCIPY_CHECKS, check_indices
 from symbolic.cli import main
 from symbolic.derivation.numeric import evaluate_matrix
 from symbolic.derivation.pipeline import derive
 from symbolic.input.reader import load_design, parse_design
+from symbolic.render.schedule_code import gain_schedule
+from symbolic.render.schedule_pages import schedule_csv, schedule_summary
 from symbolic.runtime.errors import DesignFileError
 
 from .conftest import WORKED
@@ -40,10 +35,10 @@ PNG = b"\x89PNG\r\n\x1a\n"
 def quick_figures(monkeypatch):
     """Skip rendering the figure where a test is about the table or the summary
     (matplotlib takes seconds on a busy machine; one test renders it for real)."""
-    import symbolic.analysis.schedule as schedule
+    import symbolic.render.schedule_pages as pages
 
     monkeypatch.setattr(
-        schedule,
+        pages,
         "figure_files",
         lambda fig, stem: {f"{stem}.pdf": b"%PDF-stub", f"{stem}.png": PNG + b"stub"},
     )
@@ -147,7 +142,20 @@ def test_range_through_an_uncontrollable_value_is_flagged(
     focus_zero, tmp_path, capsys, quick_figures
 ):
     out = tmp_path / "out"
-    code = run_schedule(load_design(focus_zero), out_dir=out, points=4, vary=["kf", "m"])
+    code = main(
+        [
+            "schedule",
+            str(focus_zero),
+            "-o",
+            str(out),
+            "--points",
+            "4",
+            "--vary",
+            "kf",
+            "--vary",
+            "m",
+        ]
+    )
     assert code == 1
     text = capsys.readouterr().out
     assert "invalid points: 4 of 16; the first is row 1 (kf = 0, m = 0.01)" in text
@@ -221,9 +229,9 @@ def test_repeated_poles_are_checked_by_their_eigenvalues(write_design):
 
 
 def test_checked_points_are_all_or_evenly_spread():
-    idx, text = _check_indices(MAX_SCIPY_CHECKS)
+    idx, text = check_indices(MAX_SCIPY_CHECKS)
     assert idx.size == MAX_SCIPY_CHECKS and text == f"every grid point ({MAX_SCIPY_CHECKS})"
-    idx, text = _check_indices(14641)
+    idx, text = check_indices(14641)
     assert idx.size == MAX_SCIPY_CHECKS and idx[0] == 0 and idx[-1] == 14640
     assert np.all(np.diff(idx) >= 7) and "evenly spread" in text
 
@@ -283,12 +291,12 @@ def test_no_parameter_with_a_range(write_design):
 
 
 def test_command_bad_request_exits_2_before_deriving(tmp_path, capsys, monkeypatch):
-    import symbolic.analysis.schedule as schedule
+    import symbolic
 
     def no_derivation(*_a, **_k):  # the request is refused before any symbolic work
         raise AssertionError("derived anyway")
 
-    monkeypatch.setattr(schedule, "derive", no_derivation)
+    monkeypatch.setattr(symbolic, "derive", no_derivation)
     src = str(WORKED / "belt_drive.toml")
     assert main(["schedule", src, "-o", str(tmp_path), "--vary", "kt"]) == 2
     err = capsys.readouterr().err

@@ -10,10 +10,11 @@ import numpy as np
 import pytest
 
 import symbolic
-from symbolic.analysis.study import SPEED_FACTORS, simulation_json, simulation_study
+from symbolic.analysis.study import SPEED_FACTORS, simulation_study
 from symbolic.cli import main
 from symbolic.derivation.pipeline import derive
 from symbolic.derivation.specs import second_order_step_metrics
+from symbolic.render.study_pages import simulation_json
 from symbolic.verification.metrics import step_metrics
 
 from .conftest import WORKED

@@ -20,14 +20,9 @@ import pytest
 
 import symbolic
 from symbolic.analysis.margins import compare_margins
+from symbolic.analysis.shipped_stability import range_stability, shipped_loop, shipped_margins
 from symbolic.analysis.study import simulation_study
-from symbolic.analysis.verdict import (
-    ESTIMATOR_SPEED_RATIO,
-    range_stability,
-    requirement_table,
-    shipped_loop,
-    shipped_margins,
-)
+from symbolic.analysis.verdict import ESTIMATOR_SPEED_RATIO, requirement_table
 from symbolic.cli import main
 from symbolic.derivation.pipeline import derive
 from symbolic.verification.shipped_assembly import shipped_controller

@@ -2,14 +2,14 @@
 
 Consumes a :class:`~symbolic.model.results.Derivation` (never re-derives the
 gains) and the simulator of :mod:`symbolic.verification.stepping`; feeds the
-``gainsmith simulate`` command, its JSON, and the memo's response section.
+``gainsmith simulate`` command (:func:`simulation_run`), rendered by
+:mod:`symbolic.render.study_pages`, and the memo's response section
+(:mod:`symbolic.render.study_memo`).
 """
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
-from functools import partial
 
 import numpy as np
 
@@ -27,17 +27,18 @@ from ..verification.shipped_assembly import (
 from ..verification.shipped_simulation import simulate_controller
 from ..verification.step_cases import MISMATCH_FRACTION
 from ..verification.step_results import LoopModel, Response, StepMetrics
+from .claims import check_claims
+from .requirements import RequirementTable
+from .verdict import requirement_table
 
 __all__ = [
     "CaseOutcome",
+    "SimulationRun",
     "SimulationStudy",
     "SpecVerdict",
     "loop_model",
-    "memo_simulation",
-    "run_simulate",
-    "simulation_json",
+    "simulation_run",
     "simulation_study",
-    "simulation_text",
     "SPEED_FACTORS",
 ]
 
@@ -360,387 +361,26 @@ def _approximation_remark(label, meas, pred, rel, ctrl, zeros) -> str:
     )
 
 
-# --------------------------------------------------------------------------
-# Output: JSON and terminal
-# --------------------------------------------------------------------------
-_METRIC_KEYS = (
-    "overshoot_percent",
-    "settling_time_2pct",
-    "settling_time_1pct",
-    "rise_time",
-    "peak_time",
-    "steady_state_error",
-    "peak_control",
-    "estimation_settling_time",
-)
+@dataclass(frozen=True)
+class SimulationRun:
+    """What ``gainsmith simulate`` reports: the study and the requirements judged on it."""
+
+    derivation: Derivation
+    study: SimulationStudy
+    #: every requirement, judged on the shipped controller (the claims included, when the
+    #: design file has a ``[claimed]`` table)
+    requirements: RequirementTable
+
+    @property
+    def passed(self) -> bool:
+        """Every requirement met (the command then exits with 0, else with 1)."""
+        return self.requirements.passed
 
 
-def _clean(x):
-    if x is None:
-        return None
-    x = float(x)
-    return x if math.isfinite(x) else None
-
-
-def _case_json(c: CaseOutcome) -> dict:
-    out = {
-        "name": c.response.name,
-        "slug": c.response.slug,
-        "saturated": bool(c.response.saturated),
-    }
-    for k in _METRIC_KEYS:
-        out[k] = _clean(getattr(c.metrics, k))
-    out["final_value"] = _clean(c.metrics.final_value)
-    out["notes"] = list(c.metrics.notes)
-    return out
-
-
-def simulation_json(s: SimulationStudy, table=None) -> dict:
-    """The machine-readable result of ``gainsmith simulate --json``.
-
-    With the requirements table (:class:`symbolic.analysis.verdict.RequirementTable`) ``passed`` is its
-    verdict and ``requirements`` its rows; without it, ``passed`` covers the specifications.
-    """
-    return {
-        "controller": None if s.controller is None else s.controller.description,
-        "requirements": None if table is None else table.to_json(),
-        "cases": [_case_json(c) for c in s.cases],
-        "saturated_cases": None if s.saturated is None else [_case_json(c) for c in s.saturated],
-        "time_horizon": s.horizon,
-        "samples": s.samples,
-        "reference": s.reference,
-        "u_max": s.u_max,
-        "method": s.method,
-        "specifications": [
-            {
-                "key": v.key,
-                "requested": v.requested,
-                "predicted": _clean(v.predicted),
-                "measured": _clean(v.measured),
-                "measured_mismatched": _clean(v.measured_mismatched),
-                "passed": v.passed,
-                "passed_mismatched": v.passed_mismatched,
-            }
-            for v in s.verdicts
-        ],
-        "passed": s.passed if table is None else table.passed,
-        "specifications_passed": s.passed,
-        "remarks": list(s.remarks),
-        "observer_speed_study": [
-            {
-                "factor": f,
-                "overshoot_percent": _clean(m.overshoot_percent),
-                "settling_time_2pct": _clean(m.settling_time_2pct),
-                "peak_control": _clean(m.peak_control),
-                "estimation_settling_time": _clean(m.estimation_settling_time),
-            }
-            for f, m in s.speed_study
-        ],
-        "plant_zeros": [[float(z.real), float(z.imag)] for z in s.plant_zeros],
-    }
-
-
-def _fmt(x, digits: int = 4) -> str:
-    if x is None:
-        return "-"
-    x = float(x)
-    if not math.isfinite(x):
-        return "-"
-    return f"{x:.{digits}g}"
-
-
-def requirements_text(table) -> list[str]:
-    """The requirements table for the terminal, with the open items and the verdict."""
-    out = [f"Requirements (judged on the shipped controller: {table.controller})"]
-    width = max(len(r.label) for r in table.rows)
-    for r in table.rows:
-        status = "pass" if r.passed else "FAIL"
-        out.append(
-            f"  {r.number:>3}  {status}  {r.label.ljust(width)}  {r.requested}  ->  {r.achieved}"
-        )
-    if table.open_items:
-        out.append("")
-        out.append("Open items")
-        out.extend(f"  - {item}" for item in table.open_items)
-    out.append("")
-    out.append(table.verdict)
-    return out
-
-
-def simulation_text(s: SimulationStudy, d: Derivation, table=None) -> str:
-    """Terminal table: the metrics of each case, pass/fail per spec, the requirements."""
-    out = []
-    w = out.append
-    w(
-        f"{d.design.title}: step of {s.reference:g} on '{d.reference.tracked.name if d.reference else '?'}',"
-        f" {s.samples} samples over {s.horizon:.4g} s"
-    )
-    if s.controller is not None:
-        w(f"controller: {s.controller.description}")
-    w(f"method: {s.method}")
-    w("")
-    labels = [
-        ("overshoot [%]", "overshoot_percent"),
-        ("settling 2 % [s]", "settling_time_2pct"),
-        ("settling 1 % [s]", "settling_time_1pct"),
-        ("rise 10-90 % [s]", "rise_time"),
-        ("peak time [s]", "peak_time"),
-        ("steady-state error", "steady_state_error"),
-        ("peak |u|", "peak_control"),
-        ("estimate within 2 % [s]", "estimation_settling_time"),
-    ]
-    short = {
-        "state_feedback": "true state",
-        "observer_matched": "matched",
-        "observer_mismatched": "mismatched",
-    }
-    allcases = list(s.cases) + ([s.saturated[1], s.saturated[2]] if s.saturated else [])
-    heads = [
-        short.get(c.response.slug, c.response.slug) + (", limited" if c.response.saturated else "")
-        for c in allcases
-    ]
-    width = max(12, max(len(h) for h in heads))
-    w("  " + "quantity".ljust(26) + "".join(h.rjust(width + 2) for h in heads))
-    for label, key in labels:
-        w(
-            "  "
-            + label.ljust(26)
-            + "".join(_fmt(getattr(c.metrics, key)).rjust(width + 2) for c in allcases)
-        )
-    if s.verdicts:
-        w("")
-        w(
-            "Specifications (measured on the shipped loop, matched estimate; mismatched estimate in brackets)"
-        )
-        for v in s.verdicts:
-            status = "pass" if v.passed else "FAIL"
-            w(
-                f"  {status}  {v.label:34s} requested <= {_fmt(v.requested)}   predicted {_fmt(v.predicted)}"
-                f"   measured {_fmt(v.measured)}  [{_fmt(v.measured_mismatched)} {'pass' if v.passed_mismatched else 'FAIL'}]"
-            )
-    if s.speed_study:
-        w("")
-        w(
-            "Observer-speed study (mismatched estimate): factor, overshoot %, settling 2 % [s], peak |u|"
-        )
-        for f, m in s.speed_study:
-            w(
-                f"  {f:7.3g}  {_fmt(m.overshoot_percent):>8}  {_fmt(m.settling_time_2pct):>8}  {_fmt(m.peak_control):>10}"
-            )
-    if s.remarks:
-        w("")
-        for r in s.remarks:
-            w(f"  - {r}")
-    w("")
-    if table is None:
-        w("all specifications met" if s.passed else "SOME SPECIFICATIONS NOT MET")
-    else:
-        out.extend(requirements_text(table))
-    return "\n".join(out)
-
-
-def run_simulate(design, as_json: bool = False) -> int:
-    """The ``gainsmith simulate`` command: exit 0 when every requirement is met, 1 otherwise."""
-    from ..derivation.pipeline import derive
-    from ..render.report import dumps
-    from .verdict import requirement_table
-
-    d = derive(design)
+def simulation_run(d: Derivation) -> SimulationRun:
+    """The ``gainsmith simulate`` command: simulate the derivation and judge every requirement."""
     s = simulation_study(d)
     claims = None
-    if design.claims is not None:
-        from .claims import check_claims
-
-        claims = check_claims(d, design.claims)
-    table = requirement_table(d, s, claims=claims)
-    if as_json:
-        print(dumps(simulation_json(s, table)))
-    else:
-        print(simulation_text(s, d, table))
-    return 0 if table.passed else 1
-
-
-# --------------------------------------------------------------------------
-# For the memo
-# --------------------------------------------------------------------------
-def memo_simulation(
-    d: Derivation, study: SimulationStudy | None = None
-) -> tuple[dict, dict[str, bytes]]:
-    """Context of the memo's response section, and its figures (PDF and PNG)."""
-    from ..render import figures as fig
-    from ..render.mathvalues import latex_number, own_math
-
-    s = simulation_study(d) if study is None else study
-    ctrl = s.controller
-    plant = d.design.plant
-    out_sig = d.reference.tracked if d.reference else plant.outputs[0]
-    in_sig = plant.inputs[0]
-    name = d.design.slug
-    figures: dict[str, bytes] = {}
-    responses = [c.response for c in s.cases]
-    spec = d.design.controller.specifications
-    region = d.controller_poles.dominant.region if d.controller_poles.dominant else None
-    plant_poles = np.linalg.eigvals(d.plant.A)
-    # makers are partials of module-level functions over plain data: they pickle, so the
-    # figure server can draw them (symbolic.render.figures)
-    figs = {
-        "step": partial(
-            fig.step_response_figure, responses, out_sig.name, out_sig.unit, s.reference
-        ),
-        "estimation-error": partial(fig.estimation_error_figure, responses),
-        "control": partial(
-            fig.control_effort_figure,
-            responses + ([s.saturated[2].response] if s.saturated else []),
-            in_sig.name,
-            in_sig.unit,
-            s.u_max,
-        ),
-        "pole-map": partial(
-            fig.pole_map_figure,
-            np.asarray(ctrl.controller_poles),
-            np.asarray(ctrl.observer_poles),
-            region,
-            plant_poles,
-        ),
-    }
-    if s.saturated:
-        figs["saturation"] = partial(
-            fig.step_response_figure,
-            [s.cases[2].response, s.saturated[2].response],
-            out_sig.name,
-            out_sig.unit,
-            s.reference,
-        )
-    if s.speed_study:
-        f = np.array([x for x, _ in s.speed_study])
-
-        def col(key: str) -> np.ndarray:
-            return np.array(
-                [np.nan if getattr(m, key) is None else getattr(m, key) for _, m in s.speed_study]
-            )
-
-        figs["observer-study"] = partial(
-            fig.observer_study_figure,
-            f,
-            col("overshoot_percent"),
-            col("settling_time_2pct"),
-            col("peak_control"),
-            in_sig.name,
-            in_sig.unit,
-        )
-    figures = fig.render_figures({f"{name}-{stem}": make for stem, make in figs.items()})
-    band = spec.settling_band if spec else 0.02
-    summary = []
-    for v in s.verdicts:
-        summary.append(
-            {
-                "spec": v.label,
-                "requested": own_math("\\le " + latex_number(v.requested, 4)),
-                "measured": own_math(
-                    latex_number(v.measured, 4) if v.measured is not None else "\\text{none}"
-                ),
-                "case": "shipped controller, matched estimate",
-                "passed": v.passed,
-            }
-        )
-    short = {
-        "state_feedback": "true state",
-        "observer_matched": "shipped, matched",
-        "observer_mismatched": "shipped, mismatched",
-    }
-    cases_ctx = [{"short": short.get(c.response.slug, c.response.slug)} for c in s.cases]
-    if s.saturated:
-        cases_ctx += [{"short": "matched, limited"}, {"short": "mismatched, limited"}]
-    rows_src = list(s.cases) + ([s.saturated[1], s.saturated[2]] if s.saturated else [])
-    table = []
-    for label, key in (
-        ("overshoot [%]", "overshoot_percent"),
-        ("settling time, 2 % band [s]", "settling_time_2pct"),
-        ("settling time, 1 % band [s]", "settling_time_1pct"),
-        ("rise time 10-90 % [s]", "rise_time"),
-        ("peak time [s]", "peak_time"),
-        ("steady-state error", "steady_state_error"),
-        (f"peak |{in_sig.name}|" + (f" [{in_sig.unit}]" if in_sig.unit else ""), "peak_control"),
-        ("estimation error within 2 % [s]", "estimation_settling_time"),
-    ):
-        vals = []
-        for c in rows_src:
-            v = getattr(c.metrics, key)
-            if v is not None and key == "steady_state_error" and abs(v) < 1e-9 * abs(s.reference):
-                v = 0.0  # round-off of an exact zero: keep the memo reproducible
-            vals.append(own_math("\\text{--}" if v is None else latex_number(v, 4)))
-        table.append({"label": label, "cells": vals})
-    captions = [
-        {
-            "stem": own_math("step"),
-            "caption": f"Step response of {out_sig.name}: state feedback with the true state (reference), and the shipped controller ({ctrl.description}) with a matched and with a mismatched initial estimate.",
-        },
-        {
-            "stem": own_math("estimation-error"),
-            "caption": "Norm of the estimation error (log scale); the dotted line is 2 % of its initial value.",
-        },
-        {
-            "stem": own_math("control"),
-            "caption": f"Control input {in_sig.name}"
-            + (
-                " with the actuator limit; the dash-dotted curve is the limited (saturated) run."
-                if s.u_max is not None
-                else "."
-            ),
-        },
-    ]
-    if s.saturated:
-        captions.append(
-            {
-                "stem": own_math("saturation"),
-                "caption": "Shipped controller, mismatched estimate, without and with the actuator limit (nonlinear simulation).",
-            }
-        )
-    study_ctx = None
-    if s.speed_study:
-        study_ctx = {
-            "text": (
-                "The observer poles of the shipped controller were set to a factor times the controller"
-                " poles, from 0.5 to 10, the controller rebuilt numerically, and the mismatched-estimate"
-                " case simulated for each. A slow observer lets the estimation error"
-                " dominate the response; a fast one costs input amplitude (and noise sensitivity, not modelled)."
-            ),
-            "rows": [
-                {
-                    "factor": own_math(latex_number(f, 3)),
-                    "overshoot": own_math(latex_number(m.overshoot_percent or 0.0, 3)),
-                    "settling": own_math(
-                        "\\text{--}"
-                        if m.settling_time_2pct is None
-                        else latex_number(m.settling_time_2pct, 3)
-                    ),
-                    "peak": own_math(
-                        "\\text{--}" if m.peak_control is None else latex_number(m.peak_control, 4)
-                    ),
-                }
-                for f, m in s.speed_study
-            ],
-        }
-        captions.append(
-            {
-                "stem": own_math("observer-study"),
-                "caption": "Observer-speed study: overshoot, settling time and peak input against the speed factor (mismatched estimate).",
-            }
-        )
-    method = (
-        f"The shipped loop (plant and controller: {ctrl.description}) was simulated for a step of"
-        f" {s.reference:g} on {out_sig.name} over {s.horizon:.4g} s with {s.samples} samples."
-        f" Method: {s.method}."
-    )
-    del band
-    ctx = {
-        "method": method,
-        "summary": summary,
-        "cases": cases_ctx,
-        "colspec": own_math("@{}p{0.3\\textwidth}" + "r" * len(cases_ctx) + "@{}"),
-        "table": table,
-        "remarks": list(s.remarks),
-        "figures": captions,
-        "study": study_ctx,
-    }
-    return ctx, figures
+    if d.design.claims is not None:
+        claims = check_claims(d, d.design.claims)
+    return SimulationRun(d, s, requirement_table(d, s, claims=claims))

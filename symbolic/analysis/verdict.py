@@ -1,7 +1,8 @@
 """The requirements table: one numbered row per requirement, judged on the shipped controller.
 
 Every verdict of gainsmith comes from here: ``simulate``, ``memo`` and ``robustness`` print the
-same rows and exit with 1 when any row fails.  The rows are
+same rows (:class:`~symbolic.analysis.requirements.RequirementTable`) and exit with 1 when any
+row fails.  The rows are
 
 * each time-domain specification of ``[controller.specifications]``, measured on the simulated
   step response of the shipped loop (matched initial estimate; with ``[simulation] u_max`` the
@@ -30,26 +31,21 @@ practice.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 
 import numpy as np
 
 from ..derivation.numeric import check_eigenvalues
-from ..verification.shipped import ShippedController, batch_loop_poles, closed_loop, poles_stable
-from .margins import BrokenLoop, MarginReport, broken_loop_margins
+from ..verification.shipped import ShippedController, closed_loop, poles_stable
+from .margins import MarginReport
+from .requirements import Requirement, RequirementTable
+from .shipped_stability import RangeStability, range_stability, shipped_margins
 
 __all__ = [
     "GAIN_MARGIN_DB",
     "PHASE_MARGIN_DEG",
     "ESTIMATOR_SPEED_RATIO",
-    "RangeStability",
-    "Requirement",
-    "RequirementTable",
-    "range_stability",
     "requirement_table",
     "robustness_table",
-    "shipped_loop",
-    "shipped_margins",
 ]
 
 #: Smallest acceptable gain margin, both directions, dB (common practice, no source).
@@ -65,228 +61,8 @@ SLACK = 1e-9
 _COMMON = "common practice, no source"
 
 
-@dataclass(frozen=True)
-class Requirement:
-    """One row of the requirements table.
-
-    Attributes
-    ----------
-    number : str
-        ``R1``, ``R2``, … in table order.
-    key : str
-        Machine-readable name (``overshoot_percent``, ``actuator_limit``, ``gain_margin`` …).
-    label, requested, achieved : str
-        Plain text for the reader.
-    passed : bool
-    shortfall : str
-        By how much a failing row misses ('' when it passes).
-    basis : str
-        How "achieved" was obtained.
-    source : str
-        Where the requirement comes from (the design file's key, or a rule of thumb).
-    requested_value, achieved_value : float or None
-        The numbers behind the text (JSON).
-    """
-
-    number: str
-    key: str
-    label: str
-    requested: str
-    achieved: str
-    passed: bool
-    shortfall: str
-    basis: str
-    source: str
-    requested_value: float | None = None
-    achieved_value: float | None = None
-
-
-@dataclass(frozen=True)
-class RequirementTable:
-    """The numbered rows and the controller they judge."""
-
-    controller: str
-    rows: tuple[Requirement, ...]
-
-    @property
-    def passed(self) -> bool:
-        return all(r.passed for r in self.rows)
-
-    @property
-    def open_items(self) -> tuple[str, ...]:
-        """What failed and by how much, one line per failing row."""
-        return tuple(
-            f"{r.number} {r.label}: {r.shortfall or 'not met'}" for r in self.rows if not r.passed
-        )
-
-    @property
-    def verdict(self) -> str:
-        failed = sum(not r.passed for r in self.rows)
-        if not failed:
-            return f"every requirement met ({len(self.rows)} of {len(self.rows)})"
-        return f"NOT ACCEPTABLE: {failed} of {len(self.rows)} requirements not met"
-
-    def to_json(self) -> dict:
-        return {
-            "controller": self.controller,
-            "passed": self.passed,
-            "verdict": self.verdict,
-            "rows": [
-                {
-                    "number": r.number,
-                    "key": r.key,
-                    "label": r.label,
-                    "requested": r.requested,
-                    "achieved": r.achieved,
-                    "passed": r.passed,
-                    "shortfall": r.shortfall,
-                    "basis": r.basis,
-                    "source": r.source,
-                    "requested_value": _finite(r.requested_value),
-                    "achieved_value": _finite(r.achieved_value),
-                }
-                for r in self.rows
-            ],
-            "open_items": list(self.open_items),
-        }
-
-
-def _finite(x) -> float | None:
-    if x is None:
-        return None
-    x = float(x)
-    return x if math.isfinite(x) else None
-
-
 def _g(x: float, digits: int = 4) -> str:
     return f"{float(x):.{digits}g}"
-
-
-# --------------------------------------------------------------------------------------------
-# Margins of the shipped loop
-# --------------------------------------------------------------------------------------------
-def shipped_loop(ctrl: ShippedController) -> BrokenLoop:
-    """The shipped loop broken at the plant input, as a continuous realisation.
-
-    The controller keeps its own demanded input in its observer, so from the measurement to
-    the demand it is ``ξ⁺ = (A_o + B_ou C_c) ξ + (B_oy + B_ou D_cy) y``, ``u = C_c ξ + D_cy y``;
-    in series with the plant, ``L = −K(·) G(·)`` (negative feedback closes it).  A digital
-    controller is joined to the ZOH plant and the discrete loop is mapped to the w-plane by the
-    bilinear transform ``z = (1 + wT/2)/(1 − wT/2)``: the unit circle maps onto the imaginary
-    axis and the values of L are kept, so gain and phase margins (and stability) are those of
-    the discrete loop (G. F. Franklin, J. D. Powell and M. L. Workman, *Digital Control of
-    Dynamic Systems*, 3rd ed., 1998, Sec. 7.3 -- from memory); only the frequency axis is
-    warped.
-
-    Raises
-    ------
-    ValueError
-        For several plant inputs, or a discrete loop with a pole at z = −1.
-    """
-    p = ctrl.plant
-    eq = ctrl.equations
-    if p.B.shape[1] != 1:
-        raise ValueError("the loop broken at the plant input needs a single input")
-    A, B = (p.A, p.B) if not ctrl.digital else ctrl.sampled_plant
-    C, D = ctrl.measurement if ctrl.measurement is not None else (p.C, p.D)
-    Ak = eq.state_matrix + eq.control_matrix @ eq.output_state
-    Bk = eq.measurement_matrix + eq.control_matrix @ eq.output_measurement
-    Ck, Dk = eq.output_state, eq.output_measurement
-    n, nk = A.shape[0], Ak.shape[0]
-    AL = np.block([[A, np.zeros((n, nk))], [Bk @ C, Ak]])
-    BL = np.vstack([B, Bk @ D])
-    CL = -np.hstack([Dk @ C, Ck])
-    DL = -Dk @ D
-    if ctrl.digital:
-        AL, BL, CL, DL = _bilinear_to_w(AL, BL, CL, DL, float(ctrl.sample_time))
-    return BrokenLoop(
-        "shipped",
-        AL,
-        BL,
-        CL,
-        DL,
-        f"the shipped controller ({ctrl.description}) in series with the plant",
-    )
-
-
-def _bilinear_to_w(Ad, Bd, Cd, Dd, T: float):
-    """w-plane realisation of ``H(z) = C (zI − A)⁻¹ B + D`` with ``z = (α + w)/(α − w)``.
-
-    With ``E = (I + A)⁻¹``: ``A_w = α E (A − I)``, ``B_w = E B``, ``C_w = C (αI − A_w)``,
-    ``D_w = D − C E B``, ``α = 2/T`` (substitute and expand ``(zI − A)⁻¹``).
-    """
-    alpha = 2.0 / T
-    eye = np.eye(Ad.shape[0])
-    if np.linalg.cond(eye + Ad) > 1e12:
-        raise ValueError("the discrete loop has a pole at z = -1; margins not computed")
-    E = np.linalg.inv(eye + Ad)
-    Aw = alpha * E @ (Ad - eye)
-    return Aw, E @ Bd, Cd @ (alpha * eye - Aw), Dd - Cd @ E @ Bd
-
-
-def shipped_margins(ctrl: ShippedController) -> tuple[MarginReport | None, str]:
-    """Margins of the shipped loop, or None and the reason they were not computed."""
-    try:
-        loop = shipped_loop(ctrl)
-    except ValueError as exc:
-        return None, str(exc)
-    return broken_loop_margins(loop), ""
-
-
-# --------------------------------------------------------------------------------------------
-# Stability over the parameter ranges
-# --------------------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class RangeStability:
-    """The shipped controller (fixed gains) on the plant at every grid point of the ranges."""
-
-    points: int  # grid points evaluated (corners included), nominal excluded
-    varied: tuple[str, ...]
-    unstable_count: int
-    worst_point: dict[str, float] | None  # where the loop is least stable
-    worst_measure: float  # largest Re (s-plane) or largest |z| (digital)
-    digital: bool
-    per_axis: int
-
-    @property
-    def passed(self) -> bool:
-        return self.unstable_count == 0
-
-
-def range_stability(d, ctrl: ShippedController, points: int = 5) -> RangeStability | None:
-    """Grid check of the shipped loop over the declared ranges; None when no range is declared."""
-    from .robust import evaluate_on_grid, parameter_grid
-
-    grid = parameter_grid(d.design, points)
-    if not grid.varied:
-        return None
-    values = grid.values[: grid.size]
-    plant = d.design.plant
-    mats = [evaluate_on_grid(M, grid.symbols, values) for M in (plant.A, plant.B, plant.C, plant.D)]
-    finite = np.all([np.all(np.isfinite(M), axis=(1, 2)) for M in mats], axis=0)
-    poles = np.full((values.shape[0], 1), np.inf, dtype=complex)
-    if np.any(finite):
-        sub = [M[finite] for M in mats]
-        got = batch_loop_poles(ctrl, *sub)
-        poles = np.full((values.shape[0], got.shape[1]), np.inf, dtype=complex)
-        poles[finite] = got
-    if ctrl.digital:
-        measure = np.max(np.abs(poles), axis=1)
-        stable = measure < 1.0 - 1e-10
-    else:
-        measure = np.max(poles.real, axis=1)
-        scale = np.maximum(1.0, np.max(np.abs(np.where(np.isfinite(poles), poles, 0)), axis=1))
-        stable = measure < -1e-10 * scale
-    worst = int(np.argmax(measure))
-    return RangeStability(
-        points=int(values.shape[0]),
-        varied=grid.varied,
-        unstable_count=int(np.count_nonzero(~stable)),
-        worst_point={n: float(v) for n, v in zip(grid.names, values[worst], strict=True)},
-        worst_measure=float(measure[worst]),
-        digital=ctrl.digital,
-        per_axis=points,
-    )
 
 
 # --------------------------------------------------------------------------------------------

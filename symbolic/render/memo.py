@@ -77,7 +77,7 @@ class MemoDocument:
     tex: str
     markdown: str
     figures: dict[str, bytes]
-    #: the requirements table the memo's verdict shows (symbolic.analysis.verdict.RequirementTable)
+    #: the requirements table the memo's verdict shows (symbolic.analysis.requirements.RequirementTable)
     requirements: object = None
 
 
@@ -375,7 +375,7 @@ def build_context(
 ) -> dict:
     """The template context shared by the LaTeX and Markdown memos.
 
-    ``requirements`` is the :class:`symbolic.analysis.verdict.RequirementTable` of the shipped
+    ``requirements`` is the :class:`symbolic.analysis.requirements.RequirementTable` of the shipped
     ``controller`` (:class:`symbolic.verification.shipped.ShippedController`); both are computed here
     when not given.
     """
@@ -848,7 +848,7 @@ def memo_robustness_section(d: Derivation) -> tuple[dict | None, dict[str, bytes
     The study itself lives in :mod:`symbolic.analysis.robust`; here its plain data is
     marked up (formulas our own code typeset become trusted, in one place).
     """
-    from ..analysis.robust import memo_robustness
+    from .robust_memo import memo_robustness
 
     ctx, figures = memo_robustness(d)
     prefix = d.design.slug + "-"
@@ -899,9 +899,10 @@ def build_memo(
 
 def assemble_memo(design: Design) -> tuple[Derivation, MemoDocument]:
     """Derive, simulate, study robustness and render: everything but the PDF and the files."""
-    from ..analysis.study import memo_simulation, simulation_study
+    from ..analysis.study import simulation_study
     from ..analysis.verdict import requirement_table
     from .figures import deferred_figures
+    from .study_memo import memo_simulation
 
     d = derive(design)
     with deferred_figures() as batch:  # every figure is drawn by one set of workers
@@ -909,7 +910,8 @@ def assemble_memo(design: Design) -> tuple[Derivation, MemoDocument]:
         study_ctx, figures = memo_simulation(d, study)
         claims_ctx = claims = None
         if design.claims is not None:
-            from ..analysis.claims import check_claims, memo_claims
+            from ..analysis.claims import check_claims
+            from .claims_pages import memo_claims
 
             claims_ctx = memo_claims(d, design.claims)
             claims = check_claims(d, design.claims)

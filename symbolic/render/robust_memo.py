@@ -1,0 +1,181 @@
+"""The memo's robustness section: the robustness study as plain data, and its figures.
+
+Runs :func:`symbolic.analysis.robust.robustness_study` and lays the report out for the memo
+templates; the figures are drawn by :mod:`symbolic.render.robust_figures`.
+"""
+
+from __future__ import annotations
+
+import functools
+
+import sympy as sp
+
+from ..analysis.robust import CAUTION, RobustnessReport, robustness_study
+from ..analysis.routh import StateFeedbackStability, rounded
+from ..analysis.sensitivity import SensitivityTable, entry_labels
+from ..model.results import Derivation
+from . import figures as _figures
+from . import robust_figures as rf
+from .robust_pages import (
+    check_json,
+    margin_json,
+    margin_rows,
+    pair_text,
+    point_text,
+    sensitivity_values,
+)
+
+__all__ = ["memo_robustness"]
+
+#: What the margins table of the memo means.
+_MARGIN_DEFINITIONS = (
+    "The loop is broken at the plant input and multiplied by a gain factor k; the"
+    " closed loop is stable for k between the two limits (confirmed by its eigenvalues"
+    " on both sides of each limit). Upper gain margin 20 log10(k_high), lower"
+    " 20 log10(1/k_low). Phase margin arg L(jω_c) + 180° at each gain crossover ω_c (the"
+    " one of least magnitude is shown); delay margin min((arg L(jω_c) + π) mod 2π)/ω_c."
+    " The Nyquist criterion (encirclements of −1 = open-loop unstable poles) is"
+    " verified for both loops."
+)
+
+
+def memo_robustness(
+    d: Derivation, points: int = 5, *, budget: float | None = None
+) -> tuple[dict, dict[str, bytes]]:
+    """Plain data of the memo's robustness section, and its figures (PDF and PNG).
+
+    Returns
+    -------
+    context : dict
+        Strings, numbers, lists and dicts only (no LaTeX markup except in
+        keys ending in ``_latex``, which hold ``sympy.latex`` output of our
+        own expressions); the memo escapes and lays it out.
+    figures : dict
+        ``{file name: bytes}`` from :func:`symbolic.render.figures.figure_files`.
+    """
+    # the memo shows the sensitivities as numbers: the same exact derivatives as the
+    # robustness command, only their formulas are not factored
+    r = robustness_study(d, points, budget=budget, factor=False)
+    m = r.mismatch
+    makers, captions = _figures_and_captions(d, r)
+    figures = _figures.render_figures(makers)  # drawn in parallel, same bytes
+    ctx = {
+        "points": r.points,
+        "grid_size": m.grid.size,
+        "varied": list(m.grid.varied),
+        "all_stable": m.all_stable,
+        "unstable_count": m.unstable_count,
+        "unstable_points": [point_text(p, m.grid.varied) for p in m.unstable_points],
+        "worst_damping_ratio": m.worst_damping_ratio,
+        "worst_damping_at": point_text(m.worst_damping_at, m.grid.varied),
+        "least_stable_pole": pair_text(m.least_stable_pole),
+        "least_stable_at": point_text(m.least_stable_at, m.grid.varied),
+        "stability_changes": [c.text() for c in m.changes],
+        "routh_hurwitz": list(r.stability.lines),
+        "routh_hurwitz_conditions": _conditions(r.stability),
+        "sensitivity_method": r.sensitivities.method,
+        "sensitivities": sensitivity_values(r.sensitivities),
+        "sensitivity_headers": ["gain", *r.sensitivities.parameters],
+        "sensitivity_gains_latex": entry_labels(d, "tex"),
+        "sensitivity_rows": _sensitivity_rows(r.sensitivities),
+        "margins": None if r.margins is None else _margins_context(r),
+        "checks": [check_json(c) for c in r.checks],
+        "notes": list(r.notes),
+        "caution": CAUTION,
+        "figures": captions,
+        "passed": r.passed,
+    }
+    return ctx, figures
+
+
+def _figures_and_captions(d: Derivation, r: RobustnessReport) -> tuple[dict, list[dict]]:
+    """``{file stem: maker}`` of the section's figures, and their captions in order.
+
+    The makers are partials of module-level functions over plain data: they pickle, so the
+    figure server can draw them.
+    """
+    m = r.mismatch
+    name = d.design.slug
+    makers = {
+        f"{name}-mismatch-poles": functools.partial(
+            rf.mismatch_pole_figure,
+            m.poles[:-1] if m.grid.varied else m.poles,
+            m.stable[:-1] if m.grid.varied else m.stable,
+            d.controller_poles.values,
+            d.observer_poles.values,
+        )
+    }
+    captions = [
+        {
+            "stem": f"{name}-mismatch-poles",
+            "caption": (
+                f"Closed-loop poles of the observer-based loop at {m.grid.values.shape[0]} parameter"
+                " points (controller and observer designed at the nominal values); nominal"
+                " controller poles are crosses, observer poles circles, poles at unstable points"
+                " triangles."
+            ),
+        }
+    ]
+    if r.margins is None:
+        return makers, captions
+    loops = (r.margins.state_feedback, r.margins.observer_based)
+    makers[f"{name}-loop-bode"] = functools.partial(rf.loop_magnitude_phase_figure, loops)
+    makers[f"{name}-loop-nyquist"] = functools.partial(rf.loop_polar_figure, loops)
+    captions.append(
+        {
+            "stem": f"{name}-loop-bode",
+            "caption": (
+                "Bode plot of the loop broken at the plant input: state feedback with the true"
+                " state (solid) and the observer-based compensator (dashed); gain crossovers"
+                " are marked by circles and phase crossovers by diamonds."
+            ),
+        }
+    )
+    captions.append(
+        {
+            "stem": f"{name}-loop-nyquist",
+            "caption": (
+                "Nyquist plot of both loops (ω from −∞ to ∞; the mirror image for negative ω"
+                " is drawn thin) with the unit circle and the critical point −1; right: near −1."
+            ),
+        }
+    )
+    return makers, captions
+
+
+def _margins_context(r: RobustnessReport) -> dict:
+    """The side-by-side margins table of both loops, with their numbers and definitions."""
+    return {
+        "headers": ["quantity", "state feedback", "observer-based"],
+        "rows": [list(row) for row in margin_rows(r.margins)],
+        "state_feedback": margin_json(r.margins.state_feedback),
+        "observer_based": margin_json(r.margins.observer_based),
+        "definitions": _MARGIN_DEFINITIONS,
+    }
+
+
+def _conditions(stability: StateFeedbackStability) -> list[dict]:
+    """The closed-form Routh–Hurwitz conditions (none for n > 3), with their LaTeX."""
+    if stability.conditions is None:
+        return []
+    return [
+        {
+            "name": c.name,
+            "text": c.text(),
+            "expression_latex": sp.latex(rounded(c.reduced, 6)) + " > 0",
+            "assumption": c.assumption,
+        }
+        for c in stability.conditions
+    ]
+
+
+def _sensitivity_rows(table: SensitivityTable) -> list[list[str]]:
+    """One row per gain entry: its label, then its sensitivity to each parameter."""
+    return [
+        [g]
+        + [
+            "–" if table.value(g, p) is None else f"{table.value(g, p):.4g}"
+            for p in table.parameters
+        ]
+        for g in table.gains
+    ]
