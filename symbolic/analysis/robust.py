@@ -1418,8 +1418,8 @@ def memo_robustness(
     figures : dict
         ``{file name: bytes}`` from :func:`symbolic.render.figures.figure_files`.
     """
-    from ..render import figures as _figures
     from ..render import robust_figures as rf
+    from ..render.figure_server import render_figures
 
     # the memo shows the sensitivities as numbers: the same exact derivatives as the
     # robustness command, only their formulas are not factored
@@ -1486,7 +1486,7 @@ def memo_robustness(
                 " verified for both loops."
             ),
         }
-    figures = _figures.render_figures(makers)  # drawn in parallel, same bytes
+    figures = render_figures(makers)  # drawn in parallel, same bytes
     conds = []
     if r.stability.conditions is not None:
         for c in r.stability.conditions:

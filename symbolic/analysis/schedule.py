@@ -1,7 +1,7 @@
 """Gain schedules: the closed forms evaluated over a grid of parameter values.
 
 ``gainsmith schedule FILE`` evaluates K, L and the reference gain N
-(vectorised, :func:`symbolic.render.export.gain_evaluator`) over a grid of the
+(vectorised, :func:`symbolic.render.gain_evaluator.gain_evaluator`) over a grid of the
 parameters that have a ``range`` (or those named by ``--vary``), the others at
 their values, and writes ``<slug>_schedule.csv`` and a figure
 (``<slug>_schedule.png`` / ``.pdf``).  Every grid point is classified:
@@ -52,15 +52,10 @@ from ..model.design import Design
 from ..model.labels import gain_label
 from ..model.results import Derivation
 from ..model.tolerances import GAIN_TOLERANCE
-from ..render.export import (
-    CODE_OK,
-    CODE_WORDS,
-    GainFormulas,
-    PythonPrinter,
-    gain_evaluator,
-    gain_formulas,
-)
+from ..render.code_printers import PythonPrinter
 from ..render.figures import figure_files
+from ..render.gain_evaluator import gain_evaluator
+from ..render.gain_formulas import CODE_OK, CODE_WORDS, GainFormulas, gain_formulas
 from ..runtime.errors import DesignFileError
 
 __all__ = [

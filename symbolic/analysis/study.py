@@ -572,6 +572,7 @@ def memo_simulation(
 ) -> tuple[dict, dict[str, bytes]]:
     """Context of the memo's response section, and its figures (PDF and PNG)."""
     from ..render import figures as fig
+    from ..render.figure_server import render_figures
     from ..render.mathvalues import latex_number, own_math
 
     s = simulation_study(d) if study is None else study
@@ -632,7 +633,7 @@ def memo_simulation(
             in_sig.name,
             in_sig.unit,
         )
-    figures = fig.render_figures({f"{name}-{stem}": make for stem, make in figs.items()})
+    figures = render_figures({f"{name}-{stem}": make for stem, make in figs.items()})
     band = spec.settling_band if spec else 0.02
     summary = []
     for v in s.verdicts:
