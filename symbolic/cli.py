@@ -312,12 +312,12 @@ def run() -> None:
     :func:`main` (the tests) keep the normal exit.
     """
     code = main()
-    sidecar = sys.modules.get(f"{__package__}._sidecar")
+    sidecar = sys.modules.get(f"{__package__}.runtime.sidecar")
     if sidecar is not None:
         sidecar.stop()
-    figures = sys.modules.get(f"{__package__}._figures")
-    if figures is not None:
-        figures.stop_server()
+    figure_server = sys.modules.get(f"{__package__}.render.figure_server")
+    if figure_server is not None:
+        figure_server.stop_server()
     for stream in (sys.stdout, sys.stderr):
         try:
             stream.flush()
