@@ -375,6 +375,7 @@ def test_each_format_marks_our_own_math_and_only_that(fmt) -> None:
     assert fmt.finalize(marked["rows"][0][1]) == fmt.escape("a_b")
     # the other format's trust mark is escaped like any string
     assert other.finalize(marked["f"]) == other.escape(r"\frac{1}{2}")
+    assert type(fmt.trust("a_b")) is fmt.trusted and fmt.finalize(fmt.trust("a_b")) == "a_b"
 
 
 def test_environment_options() -> None:
