@@ -62,12 +62,13 @@ def _cmd_derive(args) -> int:
 def _cmd_memo(args) -> int:
     from . import derive
     from .render.memo import write_memo
-    from .render.report import dumps
 
     design = _load(args)
     t0 = time.perf_counter()
     result = write_memo(derive(design), args.output, pdf=not args.no_pdf)
     if args.json:
+        from .render.report import dumps
+
         for warning in result.warnings:
             print(warning, file=sys.stderr)
         print(dumps(result.to_json()))
