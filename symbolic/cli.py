@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import os
 import sys
+import time
 from collections.abc import Sequence
 
 from .runtime.errors import GainsmithError
@@ -47,7 +48,7 @@ def _load(args):
 
 
 def _cmd_derive(args) -> int:
-    from .derivation.pipeline import derive
+    from . import derive
     from .render.report import derivation_json, derivation_summary, dumps
 
     d = derive(_load(args))
@@ -59,9 +60,32 @@ def _cmd_derive(args) -> int:
 
 
 def _cmd_memo(args) -> int:
+    from . import derive
     from .render.memo import write_memo
 
-    return write_memo(_load(args), args.output, pdf=not args.no_pdf, as_json=args.json)
+    design = _load(args)
+    t0 = time.perf_counter()
+    result = write_memo(derive(design), args.output, pdf=not args.no_pdf)
+    if args.json:
+        from .render.report import dumps
+
+        for warning in result.warnings:
+            print(warning, file=sys.stderr)
+        print(dumps(result.to_json()))
+        return EXIT_OK if result.passed else EXIT_FAILED_CHECK
+    print(
+        f"memo written to {result.output}/: "
+        + ", ".join(result.documents)
+        + f" and {result.figure_count} figure files ({time.perf_counter() - t0:.1f} s)"
+    )
+    if result.pdf_seconds is not None:
+        print(f"PDF compiled in {result.pdf_seconds:.1f} s")
+    for warning in result.warnings:
+        print(warning, file=sys.stderr)
+    print(result.requirements.verdict)
+    for item in result.requirements.open_items:
+        print(f"  open item {item}")
+    return EXIT_OK if result.passed else EXIT_FAILED_CHECK
 
 
 def _cmd_simulate(args) -> int:
@@ -96,11 +120,35 @@ def _cmd_check(args) -> int:
 
 
 def _cmd_export(args) -> int:
-    from .render.export import run_export
+    from . import derive
+    from .render.export import check_export_options, export_code, write_export
+    from .render.gain_formulas import CODE_WORDS
 
-    return run_export(
-        _load(args), lang=args.lang, out_dir=args.output, digital=args.digital, form=args.form
+    design = _load(args)
+    options = {"lang": args.lang, "digital": args.digital, "form": args.form}
+    check_export_options(design, **options)
+    result = export_code(derive(design), **options)
+    check = result.check
+    print(
+        f"{'pass' if check.passed else 'FAIL'}  {check.what}: {check.difference:.2e}"
+        f" <= {check.tolerance:g}"
     )
+    if not result.derivation_passed:
+        print("FAIL  some checks of the derivation failed: run `gainsmith derive` for details")
+    if not result.passed:
+        print(
+            "nothing written: code for a loop around a machine is exported only when every check passes"
+        )
+        return EXIT_FAILED_CHECK
+    for path in write_export(result, args.output):
+        print(f"wrote {path}")
+    for f in result.factors:
+        print(
+            f"  the gains do not exist where {f.condition}: returns {f.code} ({CODE_WORDS[f.code]})"
+        )
+    for text in result.not_exported:
+        print(f"  not exported: {text}")
+    return EXIT_OK
 
 
 def _cmd_schedule(args) -> int:
@@ -138,51 +186,63 @@ def _cmd_robustness(args) -> int:
     return EXIT_OK if report.passed else EXIT_FAILED_CHECK
 
 
-def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
-        prog="gainsmith",
-        description=(
-            "Observer-based state-feedback design from one design file: closed-form gains,"
-            " SciPy cross-checks, simulation and a review memo."
-        ),
+def _common(p: argparse.ArgumentParser) -> None:
+    p.add_argument("design", help="the design file (TOML)")
+    p.add_argument(
+        "--set",
+        action="append",
+        metavar="NAME=VALUE",
+        help="evaluate at another parameter value (repeatable)",
     )
-    from .runtime.version import __version__
 
-    parser.add_argument("--version", action="version", version=f"gainsmith {__version__}")
-    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
-    def common(p: argparse.ArgumentParser) -> None:
-        p.add_argument("design", help="the design file (TOML)")
-        p.add_argument(
-            "--set",
-            action="append",
-            metavar="NAME=VALUE",
-            help="evaluate at another parameter value (repeatable)",
-        )
+def _json_flag(p: argparse.ArgumentParser, text: str = "print machine-readable results") -> None:
+    p.add_argument("--json", action="store_true", help=text)
 
+
+def _add_derive(sub) -> None:
     p = sub.add_parser(
         "derive", help="derive K, L and the reference gain; check them against SciPy"
     )
-    common(p)
-    p.add_argument("--json", action="store_true", help="print machine-readable results")
+    _common(p)
+    _json_flag(p)
     p.set_defaults(func=_cmd_derive)
 
+
+def _add_memo(sub) -> None:
     p = sub.add_parser("memo", help="write the design memo (.tex, .md, figures, and .pdf with TeX)")
-    common(p)
+    _common(p)
     p.add_argument("-o", "--output", default="memo", help="output folder (default: ./memo)")
     p.add_argument("--no-pdf", action="store_true", help="do not compile the PDF")
-    p.add_argument(
-        "--json", action="store_true", help="print the files written and the requirements table"
-    )
+    _json_flag(p, "print the files written and the requirements table")
     p.set_defaults(func=_cmd_memo)
 
-    _add_simulate(sub, common)
-    _add_check(sub, common)
 
+def _add_simulate(sub) -> None:
+    p = sub.add_parser("simulate", help="simulate the step response and compare with the specs")
+    _common(p)
+    _json_flag(p)
+    p.set_defaults(func=_cmd_simulate)
+
+
+def _add_check(sub) -> None:
+    p = sub.add_parser("check", help="check hand-calculated gains in the [claimed] table")
+    _common(p)
+    p.add_argument(
+        "--tolerance",
+        type=float,
+        default=None,
+        help="relative tolerance (default: the file's, else 1e-3)",
+    )
+    _json_flag(p)
+    p.set_defaults(func=_cmd_check)
+
+
+def _add_export(sub) -> None:
     p = sub.add_parser(
         "export", help="write the gain formulas, or the digital controller, as C99 or Python code"
     )
-    common(p)
+    _common(p)
     p.add_argument("--lang", choices=("c", "python"), required=True, help="target language")
     p.add_argument("-o", "--output", default="export", help="output folder (default: ./export)")
     p.add_argument(
@@ -200,37 +260,10 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.set_defaults(func=_cmd_export)
 
-    _add_schedule(sub, common)
-    _add_robustness(sub, common)
-    return parser
 
-
-def _add_simulate(sub, common) -> None:
-    """The ``simulate`` command's options."""
-    p = sub.add_parser("simulate", help="simulate the step response and compare with the specs")
-    common(p)
-    p.add_argument("--json", action="store_true", help="print machine-readable results")
-    p.set_defaults(func=_cmd_simulate)
-
-
-def _add_check(sub, common) -> None:
-    """The ``check`` command's options."""
-    p = sub.add_parser("check", help="check hand-calculated gains in the [claimed] table")
-    common(p)
-    p.add_argument(
-        "--tolerance",
-        type=float,
-        default=None,
-        help="relative tolerance (default: the file's, else 1e-3)",
-    )
-    p.add_argument("--json", action="store_true", help="print machine-readable results")
-    p.set_defaults(func=_cmd_check)
-
-
-def _add_schedule(sub, common) -> None:
-    """The ``schedule`` command's options."""
+def _add_schedule(sub) -> None:
     p = sub.add_parser("schedule", help="evaluate the gains over the parameter ranges (CSV + plot)")
-    common(p)
+    _common(p)
     p.add_argument("-o", "--output", default="schedule", help="output folder (default: ./schedule)")
     p.add_argument(
         "--points", type=int, default=11, help="grid points per varying parameter (default 11)"
@@ -241,19 +274,43 @@ def _add_schedule(sub, common) -> None:
         metavar="NAME",
         help="vary only these parameters (repeatable; default: every parameter with a range)",
     )
-    p.add_argument("--json", action="store_true", help="print a machine-readable summary")
+    _json_flag(p, "print a machine-readable summary")
     p.set_defaults(func=_cmd_schedule)
 
 
-def _add_robustness(sub, common) -> None:
-    """The ``robustness`` command's options."""
+def _add_robustness(sub) -> None:
     p = sub.add_parser("robustness", help="parameter mismatch, sensitivities and stability margins")
-    common(p)
+    _common(p)
     p.add_argument(
         "--points", type=int, default=5, help="grid points per parameter range (default 5)"
     )
-    p.add_argument("--json", action="store_true", help="print machine-readable results")
+    _json_flag(p)
     p.set_defaults(func=_cmd_robustness)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="gainsmith",
+        description=(
+            "Observer-based state-feedback design from one design file: closed-form gains,"
+            " SciPy cross-checks, simulation and a review memo."
+        ),
+    )
+    from .runtime.version import __version__
+
+    parser.add_argument("--version", action="version", version=f"gainsmith {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    for add in (
+        _add_derive,
+        _add_memo,
+        _add_simulate,
+        _add_check,
+        _add_export,
+        _add_schedule,
+        _add_robustness,
+    ):
+        add(sub)
+    return parser
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -264,9 +321,9 @@ def main(argv: Sequence[str] | None = None) -> int:
 
         _sidecar.start()  # SciPy loads there while SymPy loads here
     if args.command == "memo" and os.environ.get("GAINSMITH_FIGURE_SERVER", "1") != "0":
-        from .render import figures as _figures
+        from .render import figure_server
 
-        _figures.start_server()  # matplotlib loads and warms up there; figures are drawn there
+        figure_server.start_server()  # matplotlib loads and warms up there; figures are drawn there
     try:
         return int(args.func(args))
     except GainsmithError as exc:
@@ -296,12 +353,12 @@ def run() -> None:
     :func:`main` (the tests) keep the normal exit.
     """
     code = main()
-    sidecar = sys.modules.get(f"{__package__}._sidecar")
+    sidecar = sys.modules.get(f"{__package__}.runtime.sidecar")
     if sidecar is not None:
         sidecar.stop()
-    figures = sys.modules.get(f"{__package__}._figures")
-    if figures is not None:
-        figures.stop_server()
+    figure_server = sys.modules.get(f"{__package__}.render.figure_server")
+    if figure_server is not None:
+        figure_server.stop_server()
     for stream in (sys.stdout, sys.stderr):
         try:
             stream.flush()

@@ -585,7 +585,7 @@ def test_internal_error_exits_3_with_one_line(monkeypatch, write_design):
     def broken(design, **kw):
         raise RuntimeError("simulated defect")
 
-    monkeypatch.setattr(_derive, "derive", broken)
+    monkeypatch.setattr(symbolic, "derive", broken)
     monkeypatch.delenv("GAINSMITH_DEBUG", raising=False)
     code, out, err = run_main("derive", write_design(HEAT_SINK))
     assert code == 3 and out == ""

@@ -36,7 +36,10 @@ from symbolic.derivation.digital import (
     loop_matrices as _sampled_loop,
 )
 from symbolic.derivation.numeric import eigenvalue_tolerance, pole_residual
-from symbolic.render.export import c_identifier_prefix, c_sources, gain_formulas, python_source
+from symbolic.render.c_code import c_sources
+from symbolic.render.code_printers import c_identifier_prefix
+from symbolic.render.gain_formulas import gain_formulas
+from symbolic.render.python_code import python_source
 from symbolic.runtime.errors import RenderError
 
 GCC = shutil.which("gcc")
@@ -539,7 +542,7 @@ def test_continuous_design_is_drawn_next_to_the_sampled_loop(pan):
 # The memo sections
 # --------------------------------------------------------------------------------------------
 def test_memo_sections_carry_the_extended_figures_and_tables(pan_limited):
-    from symbolic.render.memo import memo_extended_sections
+    from symbolic.render.memo_extended import memo_extended_sections
 
     ctx, files = memo_extended_sections(pan_limited)
     slug = pan_limited.design.slug

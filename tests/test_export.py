@@ -27,23 +27,21 @@ from symbolic.cli import main
 from symbolic.derivation.numeric import eigenvalue_tolerance, evaluate_matrix, pole_residual
 from symbolic.derivation.pipeline import derive
 from symbolic.input.reader import load_design, parse_design
-from symbolic.render.export import (
+from symbolic.render.c_code import c_sources
+from symbolic.render.code_comments import comment_text
+from symbolic.render.code_printers import c_identifier_prefix, c_member_names, python_local_names
+from symbolic.render.export import check_export_options, export_code, write_export
+from symbolic.render.gain_evaluator import gain_evaluator
+from symbolic.render.gain_formulas import (
     CODE_NOT_FINITE,
     CODE_OK,
     CODE_UNCONTROLLABLE,
     CODE_UNOBSERVABLE,
     ZERO_TOLERANCE,
-    _comment_text,
-    c_identifier_prefix,
-    c_member_names,
-    c_sources,
-    gain_evaluator,
     gain_formulas,
-    python_local_names,
-    python_source,
-    run_export,
 )
-from symbolic.runtime.errors import DesignFileError
+from symbolic.render.python_code import python_source
+from symbolic.runtime.errors import DesignFileError, RenderError
 
 from .conftest import WORKED, WORKED_FILES
 
@@ -616,7 +614,7 @@ def test_awkward_names_and_hostile_text_compile_and_agree(tmp_path):
     ],
 )
 def test_comment_text_is_one_safe_line(text, forbidden):
-    out = _comment_text(text)
+    out = comment_text(text)
     assert forbidden not in out
     assert "\n" not in out and all(0x20 <= ord(ch) < 0x7F for ch in out)
 
@@ -682,7 +680,7 @@ def test_no_closed_form_for_two_inputs(write_design, capsys):
         """
     )
     with pytest.raises(DesignFileError, match="no closed form to export: the plant has 2 inputs"):
-        run_export(load_design(path), lang="c", out_dir=path.parent / "out")
+        export_code(derive(load_design(path)), lang="c")
     assert main(["export", str(path), "--lang", "python", "-o", str(path.parent / "o")]) == 2
     err = capsys.readouterr().err
     assert "no closed form to export" in err and err.count("\n") == 1
@@ -704,16 +702,25 @@ def test_command_writes_the_files(tmp_path, capsys, lang, suffixes):
 def test_nothing_is_written_when_a_check_fails(tmp_path, monkeypatch, capsys):
     import symbolic.render.export as export
 
-    monkeypatch.setattr(export, "_self_check", lambda d, formulas: 1e-3)
+    monkeypatch.setattr(export, "self_check", lambda d, formulas: 1e-3)
     out = tmp_path / "export"
-    code = run_export(load_design(WORKED / "focus_actuator.toml"), lang="c", out_dir=out)
+    code = main(["export", str(WORKED / "focus_actuator.toml"), "--lang", "c", "-o", str(out)])
     assert code == 1 and not out.exists()
     assert "FAIL  exported formulas" in capsys.readouterr().out
+    result = export_code(derive(load_design(WORKED / "focus_actuator.toml")), lang="c")
+    assert not result.passed and not result.check.passed and result.derivation_passed
+    with pytest.raises(RenderError, match="nothing written"):
+        write_export(result, out)
+    assert not out.exists()
 
 
 def test_unknown_language_is_an_input_error(tmp_path):
     with pytest.raises(DesignFileError, match="unknown language 'rust'"):
-        run_export(load_design(WORKED / "focus_actuator.toml"), lang="rust", out_dir=tmp_path)
+        check_export_options(
+            load_design(WORKED / "focus_actuator.toml"), lang="rust", digital=False, form=None
+        )
+    with pytest.raises(DesignFileError, match="unknown language 'rust'"):
+        export_code(derive(load_design(WORKED / "focus_actuator.toml")), lang="rust")
 
 
 @pytest.mark.skipif(shutil.which("g++") is None, reason="g++ is not installed")
@@ -774,7 +781,11 @@ def test_design_without_parameters(tmp_path):
 def test_docstring_examples():
     import doctest
 
-    import symbolic.render.export as module
+    import symbolic.render.code_printers as printers
+    import symbolic.render.gain_formulas as formulas
 
-    result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
-    assert result.attempted >= 4 and result.failed == 0
+    results = [
+        doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
+        for module in (formulas, printers)
+    ]
+    assert sum(r.attempted for r in results) >= 4 and not any(r.failed for r in results)

@@ -17,7 +17,7 @@ from pathlib import Path
 
 import pytest
 
-from symbolic.render import figures as _figures
+from symbolic.render import figure_server, figures
 
 ROOT = Path(__file__).resolve().parents[1]
 WORKED = ROOT / "worked_designs"
@@ -30,8 +30,8 @@ def _memo_in_fresh_interpreter(out: Path, **env: str) -> dict:
         with contextlib.redirect_stdout(io.StringIO()):
             code = cli.main(["memo", {str(WORKED / "hoist_winch.toml")!r}, "-o", {str(out)!r},
                              "--no-pdf"])
-        from symbolic.render import figures as _figures
-        print(json.dumps({{"code": code, "server": _figures.server_running(),
+        from symbolic.render import figure_server
+        print(json.dumps({{"code": code, "server": figure_server.server_running(),
                           "matplotlib_here": "matplotlib" in sys.modules}}))
     """
     done = subprocess.run(
@@ -60,13 +60,13 @@ def test_memo_figures_come_from_the_server_identical_and_matplotlib_stays_out(tm
 
 
 def _line_figure(values):
-    fig = _figures.blank_figure((2.0, 1.5))
+    fig = figures.blank_figure((2.0, 1.5))
     fig.add_subplot(1, 1, 1).plot(values)
     return fig
 
 
 def _run_in_child(body: str) -> dict:
-    code = "import json\nfrom symbolic.render import figures as _figures\n" + textwrap.dedent(body)
+    code = "import json\nfrom symbolic.render import figure_server\n" + textwrap.dedent(body)
     done = subprocess.run(
         [sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, timeout=120
     )
@@ -81,21 +81,21 @@ def test_what_the_server_cannot_draw_is_drawn_here():
         """
         import functools, os, signal
         from tests.test_figure_server import _line_figure
-        assert _figures.start_server(workers=2)
+        assert figure_server.start_server(workers=2)
         makers = {
             "served": functools.partial(_line_figure, [1.0, 3.0, 2.0]),
             "lambda": lambda: _line_figure([1.0, 3.0, 2.0]),
         }
-        with _figures.deferred_figures() as batch:
-            _figures.render_figures(makers)
+        with figure_server.deferred_figures() as batch:
+            figure_server.render_figures(makers)
             files = batch.result()
         same = files["served.png"] == files["lambda.png"] and files["served.pdf"] == files["lambda.pdf"]
-        os.kill(_figures._server["process"].pid, signal.SIGKILL)
-        _figures._server["process"].join()
-        with _figures.deferred_figures() as batch:
-            _figures.render_figures({"after": functools.partial(_line_figure, [1.0, 3.0, 2.0])})
+        os.kill(figure_server.server_process().pid, signal.SIGKILL)
+        figure_server.server_process().join()
+        with figure_server.deferred_figures() as batch:
+            figure_server.render_figures({"after": functools.partial(_line_figure, [1.0, 3.0, 2.0])})
             after = batch.result()
-        _figures.stop_server()
+        figure_server.stop_server()
         print(json.dumps({"same": same, "after": after["after.png"] == files["served.png"],
                           "names": sorted(files) + sorted(after)}))
         """
@@ -112,14 +112,14 @@ def test_stopping_the_server_leaves_no_worker_behind():
         """
         import functools, os, time
         from tests.test_figure_server import _line_figure
-        assert _figures.start_server(workers=2)
-        first = _figures._server["process"].pid
-        with _figures.deferred_figures() as batch:
-            _figures.render_figures({"a": functools.partial(_line_figure, [0.0, 1.0]),
+        assert figure_server.start_server(workers=2)
+        first = figure_server.server_process().pid
+        with figure_server.deferred_figures() as batch:
+            figure_server.render_figures({"a": functools.partial(_line_figure, [0.0, 1.0]),
                                      "b": functools.partial(_line_figure, [1.0, 0.0])})
             batch.result()
         children = [int(p) for p in open(f"/proc/{first}/task/{first}/children").read().split()]
-        _figures.stop_server()
+        figure_server.stop_server()
         time.sleep(0.5)
         alive = [p for p in [first, *children] if os.path.exists(f"/proc/{p}")
                  and open(f"/proc/{p}/stat").read().split()[2] != "Z"]
@@ -133,9 +133,9 @@ def test_no_server_when_matplotlib_is_loaded_already():
     pytest.importorskip("matplotlib")
     import matplotlib  # noqa: F401
 
-    assert not _figures.start_server()
-    assert not _figures.server_running()
-    files = _figures.render_figures({"x": functools.partial(_line_figure, [1.0, 2.0])})
+    assert not figure_server.start_server()
+    assert not figure_server.server_running()
+    files = figure_server.render_figures({"x": functools.partial(_line_figure, [1.0, 2.0])})
     assert sorted(files) == ["x.pdf", "x.png"] and files["x.png"].startswith(b"\x89PNG")
 
 
@@ -157,7 +157,7 @@ def test_records_travel_as_plain_namespaces(tmp_path):
         from symbolic.analysis.study import simulation_study
         d = derive(load_design("worked_designs/belt_drive.toml"), budget=0)
         case = simulation_study(d).cases[0].response
-        payload = pickle.dumps(_figures._portable([case, {"k": (case, 2.0)}]))
+        payload = pickle.dumps(figure_server.portable([case, {"k": (case, 2.0)}]))
         open(PATH, "wb").write(payload)
         print(json.dumps({"name": case.name, "samples": int(case.time.size)}))
         """.replace("PATH", repr(str(tmp_path / "payload")))
@@ -175,6 +175,6 @@ def test_records_travel_as_plain_namespaces(tmp_path):
     # properties are evaluated and copied; the copy pickles
     fields = {f: None for f in MarginReport.__dataclass_fields__}
     report = MarginReport(**{**fields, "checks": (), "frequency": np.ones(3)})
-    plain = _figures._portable(report)
+    plain = figure_server.portable(report)
     assert isinstance(plain, types.SimpleNamespace) and plain.passed is report.passed
     assert pickle.loads(pickle.dumps(plain)).frequency.tolist() == [1.0, 1.0, 1.0]

@@ -473,7 +473,7 @@ def test_blow_up_whole_memo_carries_the_note(tmp_path, capsys):
     from symbolic.render.memo import write_memo
 
     design = symbolic.parse_design(fully_symbolic_plant(budget=1.0), str(tmp_path / "blowup.toml"))
-    write_memo(design, tmp_path / "memo", pdf=False)
+    write_memo(symbolic.derive(design), tmp_path / "memo", pdf=False)
     md = (tmp_path / "memo" / f"{design.slug}.md").read_text()
     assert "did not finish within 1 s" in md
 

@@ -22,7 +22,7 @@ from symbolic.cli import main
 from symbolic.model.design import Claims
 from symbolic.model.labels import gain_label
 from symbolic.render.claims_pages import format_claims
-from symbolic.render.memo import _gain_block
+from symbolic.render.memo_math import gain_block
 from symbolic.render.report import derivation_summary
 from symbolic.render.robust_memo import memo_robustness
 
@@ -98,7 +98,7 @@ def test_schedule_csv_columns_are_the_labels(tmp_path, capsys):
 
 
 def test_memo_writes_the_labels_in_tex(focus):
-    K = _gain_block("K", focus.K.closed_form, focus.K.value)
+    K = gain_block("K", focus.K.closed_form, focus.K.value)
     assert [str(e["label"]) for e in K["entries"]] == ["K_{1}", "K_{2}"]
     ctx, _figures = memo_robustness(focus, 2, budget=0)
     assert ctx["sensitivity_gains_latex"] == ["K_{1}", "K_{2}", "L_{1}", "L_{2}", "N"]
@@ -130,7 +130,7 @@ def test_a_matrix_gain_is_labelled_by_row_and_column():
     text = format_claims(report, d)
     rows = [ln.split()[0] for ln in text.splitlines() if re.match(r"^\s+K_\d,\d\s", ln)]
     assert rows == ["K_1,1", "K_1,2", "K_2,1", "K_2,2"]
-    block = _gain_block("K", None, d.K.value)
+    block = gain_block("K", None, d.K.value)
     assert [str(e["label"]) for e in block["entries"]] == [
         "K_{1,1}",
         "K_{1,2}",

@@ -14,11 +14,12 @@ import numpy as np
 import pytest
 
 import symbolic
+from symbolic.cli import main
 from symbolic.derivation.pipeline import derive
 from symbolic.model.numbers import format_pole
-from symbolic.render import memo as _memo
 from symbolic.render.mathtex import pole_latex
 from symbolic.render.memo import assemble_memo, build_memo, write_memo
+from symbolic.render.memo_design import memo_date
 from symbolic.render.report import format_number
 
 from .conftest import ROOT, WORKED, WORKED_FILES, require_tex, tex_available
@@ -35,6 +36,14 @@ def _squash(text: str) -> str:
     return re.sub(r"\s+", "", text)
 
 
+def _memo_command(design: Path, out: Path, *options: str) -> int:
+    """``gainsmith memo`` in this process; the figures are drawn here (no figure server,
+    which would outlive the test)."""
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setenv("GAINSMITH_FIGURE_SERVER", "0")
+        return main(["memo", str(design), "-o", str(out), *options])
+
+
 @pytest.fixture(scope="module")
 def built_memos(tmp_path_factory):
     """Every worked design's memo, built once with PDF (CI has TeX)."""
@@ -43,7 +52,7 @@ def built_memos(tmp_path_factory):
     results = {}
     for path in WORKED_FILES:
         design = symbolic.load_design(path)
-        code = write_memo(design, out, pdf=True)
+        code = _memo_command(path, out)
         results[path.stem] = (design, code)
     return out, results
 
@@ -160,12 +169,12 @@ def test_hostile_text_appears_literally_and_reads_nothing(tmp_path):
     canary = tmp_path / "canary.txt"
     token = "CANARYTOKEN7f3a9c"
     canary.write_text(token)
-    design = symbolic.load_design(_hostile_design(tmp_path, canary))
+    path = _hostile_design(tmp_path, canary)
     out = tmp_path / "out"
     cwd = os.getcwd()
     os.chdir(tmp_path)  # a \write18{touch CANARY} would land here
     try:
-        assert write_memo(design, out, pdf=True) == 0
+        assert _memo_command(path, out) == 0
     finally:
         os.chdir(cwd)
     assert not (tmp_path / "CANARY").exists()
@@ -189,8 +198,7 @@ def test_hostile_text_appears_literally_and_reads_nothing(tmp_path):
 
 def test_pdf_skipped_without_tex_engine(tmp_path, monkeypatch, capsys):
     monkeypatch.setattr("symbolic.render.pdf.find_tex_engine", lambda: None)
-    design = symbolic.load_design(WORKED / "focus_actuator.toml")
-    assert write_memo(design, tmp_path, pdf=True) == 0
+    assert _memo_command(WORKED / "focus_actuator.toml", tmp_path) == 0
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "PDF skipped" in err and "apt-get install" in err
     assert (tmp_path / "focus_actuator.tex").is_file()
@@ -209,7 +217,7 @@ def test_failed_compile_keeps_the_previous_memo(tmp_path, monkeypatch):
     monkeypatch.setattr("symbolic.render.pdf.find_tex_engine", lambda: "/usr/bin/pdflatex")
     monkeypatch.setattr("symbolic.render.pdf.compile_pdf", broken)
     with pytest.raises(symbolic.RenderError, match="l.4"):
-        write_memo(design, tmp_path, pdf=True)
+        write_memo(symbolic.derive(design), tmp_path, pdf=True)
     assert (tmp_path / "focus_actuator.tex").read_text() == "previous memo"
     assert (tmp_path / "focus_actuator.md").read_text() == "previous markdown"
     assert not (tmp_path / "figures").exists()
@@ -219,7 +227,7 @@ def test_failed_compile_keeps_the_previous_memo(tmp_path, monkeypatch):
 def test_committed_worked_memos_are_current(path, monkeypatch):
     """Fails when worked_designs/*.md or *.tex are stale: run sh worked_designs/regenerate.sh."""
     monkeypatch.setenv("SOURCE_DATE_EPOCH", PINNED_EPOCH)
-    _, doc = assemble_memo(symbolic.load_design(path))
+    doc = assemble_memo(symbolic.derive(symbolic.load_design(path)))
     figures = doc.figures
     hint = "stale: run `sh worked_designs/regenerate.sh`"
     assert (WORKED / f"{path.stem}.md").read_text(encoding="utf-8") == doc.markdown, hint
@@ -231,7 +239,7 @@ def test_committed_worked_memos_are_current(path, monkeypatch):
 
 def test_source_date_epoch_makes_sources_reproducible(monkeypatch):
     monkeypatch.setenv("SOURCE_DATE_EPOCH", "0")
-    assert _memo.memo_date() == "1970-01-01"
+    assert memo_date() == "1970-01-01"
     d = derive(symbolic.load_design(WORKED / "focus_actuator.toml"))
     first = build_memo(d, None, {})
     second = build_memo(d, None, {})
@@ -351,9 +359,9 @@ def test_memo_shows_the_tex_attack_corpus_literally(tmp_path):
     os.chdir(tmp_path)
     try:
         for index, half in enumerate(halves):
-            design = symbolic.load_design(_corpus_design(tmp_path, [t for t, _ in half], index))
+            path = _corpus_design(tmp_path, [t for t, _ in half], index)
             out = tmp_path / f"out{index}"
-            assert write_memo(design, out, pdf=True) == 0
+            assert _memo_command(path, out) == 0
             pdf = out / f"corpus{index}.pdf"
             text = subprocess.run(
                 ["pdftotext", "-raw", "-enc", "UTF-8", str(pdf), "-"],
@@ -381,7 +389,8 @@ def test_memo_sections_for_integral_reduced_and_digital(tmp_path):
     path = tmp_path / "extended.toml"
     path.write_text(text)
     design = symbolic.load_design(path)
-    d, doc = assemble_memo(design)
+    d = symbolic.derive(design)
+    doc = assemble_memo(d)
     for heading in ("## Integral action", "## Reduced-order observer", "## Digital implementation"):
         assert heading in doc.markdown
     assert (
@@ -391,5 +400,5 @@ def test_memo_sections_for_integral_reduced_and_digital(tmp_path):
     # the gains printed are the derived ones
     assert format_number(d.integral.integral_gain.ravel()[0]) in doc.markdown.replace("\\-", "-")
     if tex_available():
-        assert write_memo(design, tmp_path / "out", pdf=True) in (0, 1)
+        assert _memo_command(path, tmp_path / "out") in (0, 1)
         assert (tmp_path / "out" / "extended.pdf").read_bytes().startswith(b"%PDF")

@@ -25,7 +25,7 @@ import sympy as sp
 from symbolic.input.expressions import parse_pole
 from symbolic.model.numbers import format_number, format_pole, format_poles, pole_parts
 from symbolic.render.mathtex import pole_latex
-from symbolic.render.texsafe import tex_number
+from symbolic.render.memo_numbers import tex_number
 
 
 @pytest.mark.parametrize(

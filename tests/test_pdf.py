@@ -25,8 +25,9 @@ from pathlib import Path
 
 import pytest
 
+from symbolic.render.formats import make_environment
 from symbolic.render.pdf import compile_pdf, find_tex_engine
-from symbolic.render.texsafe import _LATEX_COMMANDS, _LATEX_KEPT, make_environment
+from symbolic.render.texsafe import LATEX_COMMANDS, LATEX_KEPT
 from symbolic.runtime.errors import RenderError
 
 
@@ -194,8 +195,8 @@ def _corpus(canary: Path, touch: Path) -> list[tuple[str, str]]:
 
 def _table_items() -> list[tuple[str, str]]:
     """Every kept character and every command-mapped character of the escaper's tables."""
-    kept = sorted(_LATEX_KEPT - {"\u00a0"})
-    mapped = sorted(_LATEX_COMMANDS)
+    kept = sorted(LATEX_KEPT - {"\u00a0"})
+    mapped = sorted(LATEX_COMMANDS)
     chunks = [kept[i : i + 30] for i in range(0, len(kept), 30)] + [mapped]
     return [(" ".join(chunk), " ".join(chunk)) for chunk in chunks]
 

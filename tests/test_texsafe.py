@@ -1,4 +1,5 @@
-"""Tests of symbolic.render.texsafe: the escapers, the trust marks and the template environments.
+"""Tests of symbolic.render.texsafe (the escapers, the trust marks) and of
+symbolic.render.formats (the output formats and their template environments).
 
 External sources behind the expected values:
 
@@ -22,18 +23,25 @@ import markupsafe
 import numpy as np
 import pytest
 
+from symbolic.render.formats import (
+    FORMATS,
+    LATEX,
+    MARKDOWN,
+    MISSING_VALUE,
+    UnknownFormatError,
+    make_environment,
+    output_format,
+    render_template,
+    templates_dir,
+)
+from symbolic.render.mathvalues import own_math
+from symbolic.render.memo_numbers import md_number, tex_number
 from symbolic.render.texsafe import (
     LATEX_PREAMBLE_LINES,
-    MISSING_VALUE,
     TrustedLatex,
     TrustedMarkdown,
     escape_latex,
     escape_markdown,
-    make_environment,
-    md_number,
-    render_template,
-    templates_dir,
-    tex_number,
 )
 from symbolic.runtime.errors import RenderError
 
@@ -313,6 +321,61 @@ def test_strict_undefined_raises_on_missing_attribute(kind: str) -> None:
 def test_make_environment_rejects_unknown_kind() -> None:
     with pytest.raises(ValueError, match="kind"):
         make_environment("html")  # type: ignore[arg-type]
+
+
+@pytest.mark.parametrize(
+    "call",
+    [
+        lambda: output_format("html"),
+        lambda: make_environment("html"),
+        lambda: render_template("html", "memo.html.j2", {}),
+    ],
+    ids=["output_format", "make_environment", "render_template"],
+)
+def test_unknown_format_is_a_render_error(call) -> None:
+    with pytest.raises(RenderError, match="'html'") as info:
+        call()
+    assert isinstance(info.value, UnknownFormatError)
+
+
+def test_formats_are_registered_once_with_their_files() -> None:
+    assert [f.name for f in FORMATS] == ["tex", "md"]
+    assert output_format("tex") is LATEX and output_format("md") is MARKDOWN
+    assert (LATEX.template, LATEX.suffix) == ("memo.tex.j2", ".tex")
+    assert (MARKDOWN.template, MARKDOWN.suffix) == ("memo.md.j2", ".md")
+    for fmt in FORMATS:
+        assert (templates_dir() / fmt.template).is_file()
+
+
+@pytest.mark.parametrize(
+    ("fmt", "text", "escaped"),
+    [
+        (LATEX, "50% & $x_1$", r"50\% \& \$x\_1\$"),
+        (LATEX, None, r"\textemdash{}"),
+        (LATEX, -3, "{-}3"),
+        (MARKDOWN, "*x* <b>", r"\*x\* &lt;b&gt;"),
+        (MARKDOWN, None, MISSING_VALUE),
+        (MARKDOWN, 2.5, r"2\.5"),
+    ],
+)
+def test_each_format_escapes_plain_values(fmt, text, escaped) -> None:
+    assert fmt.finalize(text) == escaped
+    assert fmt.escape("a_b") == (escape_latex if fmt is LATEX else escape_markdown)("a_b")
+
+
+@pytest.mark.parametrize("fmt", [LATEX, MARKDOWN], ids=lambda f: f.name)
+def test_each_format_marks_our_own_math_and_only_that(fmt) -> None:
+    other = MARKDOWN if fmt is LATEX else LATEX
+    context = {"f": own_math(r"\frac{1}{2}"), "rows": [(own_math("x_1"), "a_b")], "t": "a_b"}
+    marked = fmt.mark(context)
+    assert type(marked["f"]) is fmt.trusted and marked["f"] == r"\frac{1}{2}"
+    assert type(marked["rows"][0][0]) is fmt.trusted
+    assert marked["t"] == "a_b" and type(marked["t"]) is str
+    assert fmt.finalize(marked["f"]) == r"\frac{1}{2}"
+    assert fmt.finalize(marked["rows"][0][1]) == fmt.escape("a_b")
+    # the other format's trust mark is escaped like any string
+    assert other.finalize(marked["f"]) == other.escape(r"\frac{1}{2}")
+    assert type(fmt.trust("a_b")) is fmt.trusted and fmt.finalize(fmt.trust("a_b")) == "a_b"
 
 
 def test_environment_options() -> None:

@@ -10,7 +10,7 @@
 
 Each returns a matplotlib ``Figure`` (no pyplot); lines differ by style as well as colour, so
 the figures stay legible in black and white.  They are drawn by
-:func:`symbolic.render.figures.render_figures`.
+:func:`symbolic.render.figure_server.render_figures`.
 """
 
 from __future__ import annotations

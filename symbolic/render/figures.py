@@ -1,40 +1,20 @@
-"""Figures for the memo (matplotlib, no screen needed), and the processes that draw them.
+"""Figures for the memo (matplotlib, no screen needed).
 
 Each function takes finished result objects and returns a matplotlib
 ``Figure``; :func:`figure_files` turns a figure into a vector PDF (for TeX)
 and a PNG (for Markdown).  Lines differ by style as well as colour so the
-figures stay legible when printed in black and white.
-
-Drawing is the memo's largest cost, and importing matplotlib and drawing a first
-figure (fonts, backends) costs as much again in each fresh process.  So the
-``memo`` command starts a *figure server* at once (:func:`start_server`): one
-process imports matplotlib and draws a throw-away figure while the main process
-derives and simulates, then forks the other workers, which start warm.  Figures
-are sent to it as soon as a section has them (:func:`render_figures` inside
-:func:`deferred_figures`) as pickled makers: ``functools.partial`` of this
-module's (or :mod:`symbolic.render.robust_figures`', :mod:`symbolic.render.extended_figures`')
-functions over plain data.  matplotlib is imported here only inside functions,
-so the main process of a memo never loads it.  Without a server (library use,
-tests) or for a maker that does not pickle, figures are drawn by forked workers
-or in this process, with the same bytes.
+figures stay legible when printed in black and white.  matplotlib is imported
+only inside functions, so the main process of a memo never loads it: the
+figures are drawn by the processes of :mod:`symbolic.render.figure_server`.
 """
 
 from __future__ import annotations
 
-import dataclasses
 import functools
 import io
-import multiprocessing as mp
-import os
-import pickle
-import queue
 import re
-import sys
-import threading
-import types
-from collections.abc import Callable, Iterator, Mapping, Sequence
-from contextlib import contextmanager
-from typing import TYPE_CHECKING, Any
+from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -43,19 +23,17 @@ if TYPE_CHECKING:
     from matplotlib.figure import Figure
 
 __all__ = [
-    "figure_files",
-    "step_response_figure",
-    "estimation_error_figure",
-    "control_effort_figure",
-    "pole_map_figure",
-    "observer_study_figure",
-    "render_figures",
-    "deferred_figures",
-    "figure_names",
-    "FigureBatch",
     "blank_figure",
-    "start_server",
-    "stop_server",
+    "control_effort_figure",
+    "estimation_error_figure",
+    "figure_files",
+    "figure_names",
+    "observer_study_figure",
+    "plain_label",
+    "plot_design_poles",
+    "pole_map_figure",
+    "step_response_figure",
+    "warm_up",
 ]
 
 #: (colour, line style) per case; readable in grey scale too.
@@ -379,316 +357,15 @@ def figure_files(fig: Figure, stem: str) -> dict[str, bytes]:
     return out
 
 
-# --------------------------------------------------------------------------------------------
-# The figure server: warm workers started with the memo command
-# --------------------------------------------------------------------------------------------
-#: Workers of the figure server: one per core, at most this many (a memo has 9 to 12 figures).
-SERVER_WORKERS = 4
-
-_server: dict[str, Any] = {"conns": None, "process": None, "owner": None}
-_server_lock = threading.Lock()
+def figure_names(stem: str) -> list[str]:
+    """The file names :func:`figure_files` gives a figure: ``stem.pdf`` and ``stem.png``."""
+    return [f"{stem}.pdf", f"{stem}.png"]
 
 
-def _warm_up() -> None:
+def warm_up() -> None:
     """Draw and save a throw-away figure: imports the backends and loads the fonts."""
     fig, ax = _new()
     ax.semilogy([1.0, 2.0], [1e-3, 1.0], label="warm-up")
     ax.set_xlabel("t [s]")
     ax.legend()
     figure_files(fig, "warm-up")
-
-
-def _serve_figures(conn: Any) -> None:
-    while True:
-        try:
-            stem, make = pickle.loads(conn.recv_bytes())
-        except (EOFError, OSError):
-            os._exit(0)
-        except Exception as exc:  # a maker that does not unpickle here: drawn by the caller
-            reply = ("failed", f"{type(exc).__name__}: {exc}")
-        else:
-            try:
-                reply = ("ok", figure_files(make(), stem))
-            except Exception as exc:  # the caller draws it again, and sees the error itself
-                reply = ("failed", f"{type(exc).__name__}: {exc}")
-        try:
-            conn.send_bytes(pickle.dumps(reply, protocol=pickle.HIGHEST_PROTOCOL))
-        except (EOFError, OSError):
-            os._exit(0)
-
-
-def _server_main(conns: list, parent: int) -> None:
-    """The first worker: warm up, fork the others (they inherit the warm state), serve."""
-    from ..runtime.budget import die_with_parent
-
-    die_with_parent(parent)
-    try:
-        _warm_up()
-    except Exception:  # noqa: BLE001 - a failed warm-up only costs time; drawing will tell
-        pass
-    for k in range(1, len(conns)):
-        pid = os.fork()
-        if pid == 0:
-            die_with_parent()  # with the first worker (which dies with gainsmith)
-            for j, conn in enumerate(conns):
-                if j != k:
-                    conn.close()
-            _serve_figures(conns[k])
-            os._exit(0)
-    for conn in conns[1:]:
-        conn.close()
-    _serve_figures(conns[0])
-
-
-def start_server(workers: int | None = None) -> bool:
-    """Fork the figure server (once per process); returns whether one is running.
-
-    Call it before the heavy imports, as the ``memo`` command does.  ``workers`` defaults
-    to one per usable core, at most :data:`SERVER_WORKERS`.  Nothing is started when
-    matplotlib is loaded here already (forked workers start warm anyway) or without
-    ``fork``.
-    """
-    with _server_lock:
-        if server_running():
-            return True
-        if "matplotlib" in sys.modules or "fork" not in mp.get_all_start_methods():
-            return False
-        if workers is None:
-            cores = (
-                len(os.sched_getaffinity(0))
-                if hasattr(os, "sched_getaffinity")
-                else (os.cpu_count() or 1)
-            )
-            workers = min(SERVER_WORKERS, cores)
-        if workers < 1:
-            return False
-        ctx = mp.get_context("fork")
-        pairs = [ctx.Pipe(duplex=True) for _ in range(workers)]
-        process = ctx.Process(
-            target=_server_main, args=([b for _, b in pairs], os.getpid()), daemon=True
-        )
-        process.start()
-        for _, there in pairs:
-            there.close()
-        _server.update(conns=[a for a, _ in pairs], process=process, owner=os.getpid())
-        return True
-
-
-def server_running() -> bool:
-    """Whether this process owns a live figure server."""
-    process = _server["process"]
-    return process is not None and _server["owner"] == os.getpid() and process.is_alive()
-
-
-def stop_server() -> None:
-    """Stop the figure server, if this process started one."""
-    process, conns = _server["process"], _server["conns"]
-    if process is None or _server["owner"] != os.getpid():
-        return
-    _server.update(conns=None, process=None, owner=None)
-    for conn in conns:
-        conn.close()  # the other workers see the pipe close and exit
-    if process.is_alive():
-        process.kill()
-    process.join(timeout=5)
-
-
-class _ServerQueue:
-    """Figures sent to the server as they are added; one thread per worker feeds it."""
-
-    def __init__(self, conns: list):
-        self.jobs: queue.Queue = queue.Queue()
-        self.files: dict[str, dict[str, bytes] | None] = {}
-        self.threads = [
-            threading.Thread(target=self._feed, args=(conn,), daemon=True) for conn in conns
-        ]
-        for thread in self.threads:
-            thread.start()
-
-    def _feed(self, conn: Any) -> None:
-        while True:
-            job = self.jobs.get()
-            if job is None:
-                return
-            stem, payload = job
-            try:
-                conn.send_bytes(payload)
-                status, value = pickle.loads(conn.recv_bytes())
-            except (EOFError, OSError):
-                status, value = "failed", "the figure worker stopped"
-            self.files[stem] = value if status == "ok" else None
-
-    def finish(self) -> dict[str, dict[str, bytes] | None]:
-        for _ in self.threads:
-            self.jobs.put(None)
-        for thread in self.threads:
-            thread.join()
-        return self.files
-
-
-def _portable(value: Any) -> Any:
-    """``value`` with every dataclass instance replaced by a ``SimpleNamespace`` of its
-    fields and properties (recursively): it unpickles in a figure worker without importing
-    the module that defines it (which may load SymPy or SciPy there).  Methods are not
-    copied: figure functions read fields and properties only."""
-    if isinstance(value, np.ndarray) or value is None or isinstance(value, str | bytes):
-        return value
-    cls = type(value)
-    if dataclasses.is_dataclass(cls):
-        out = {f.name: _portable(getattr(value, f.name)) for f in dataclasses.fields(value)}
-        for klass in reversed(cls.__mro__):
-            for name, attribute in vars(klass).items():
-                if isinstance(attribute, property):
-                    out[name] = _portable(getattr(value, name))
-        return types.SimpleNamespace(**out)
-    if cls in (list, tuple):
-        return cls(_portable(v) for v in value)
-    if cls is dict:
-        return {k: _portable(v) for k, v in value.items()}
-    return value
-
-
-def _portable_maker(make: Callable[[], Figure]) -> Callable[[], Figure]:
-    if not isinstance(make, functools.partial):
-        return make
-    return functools.partial(
-        make.func,
-        *(_portable(a) for a in make.args),
-        **{k: _portable(v) for k, v in make.keywords.items()},
-    )
-
-
-_PENDING: list[tuple[str, Callable[[], Figure]]] = []
-
-
-def _render_one(index: int) -> dict[str, bytes]:
-    stem, make = _PENDING[index]
-    return figure_files(make(), stem)
-
-
-def figure_names(stem: str) -> list[str]:
-    """The file names :func:`figure_files` gives a figure: ``stem.pdf`` and ``stem.png``."""
-    return [f"{stem}.pdf", f"{stem}.png"]
-
-
-class FigureBatch:
-    """Figures queued by several callers, then drawn together.
-
-    :func:`render_figures` called inside :func:`deferred_figures` queues its makers
-    here and returns the file names with empty contents; :meth:`result` returns the
-    files.  With a figure server running (:func:`start_server`), each figure goes to
-    it as soon as it is added, so drawing overlaps the rest of the memo; otherwise
-    :meth:`start` forks one set of workers for every queued figure, which draw while
-    this process goes on (the memo renders its templates meanwhile).
-    """
-
-    def __init__(self, workers: int | None = None):
-        self.items: list[tuple[str, Callable[[], Figure]]] = []
-        self.workers = workers
-        self._pool = None
-        self._pending = None
-        self._server: _ServerQueue | None = None
-        if workers is None and server_running():
-            self._server = _ServerQueue(_server["conns"])
-
-    def add(self, makers: Mapping[str, Callable[[], Figure]]) -> dict[str, bytes]:
-        if self._pool is not None:
-            raise RuntimeError("figures were added after the batch started")
-        for stem, make in makers.items():
-            self.items.append((stem, make))
-            if self._server is not None:
-                try:
-                    payload = pickle.dumps(
-                        (stem, _portable_maker(make)), protocol=pickle.HIGHEST_PROTOCOL
-                    )
-                except (pickle.PicklingError, AttributeError, TypeError):
-                    continue  # drawn here by result()
-                self._server.jobs.put((stem, payload))
-        return {name: b"" for stem in makers for name in figure_names(stem)}
-
-    def start(self) -> None:
-        """Fork the workers and hand them every queued figure (no wait; nothing to do
-        when the figure server has them)."""
-        global _PENDING
-        if self._server is not None:
-            return
-        workers = self.workers
-        if workers is None:
-            workers = min(len(self.items), os.cpu_count() or 1, 4)
-        if self._pool is not None or workers <= 1 or "fork" not in mp.get_all_start_methods():
-            return
-        _PENDING = self.items
-        try:
-            self._pool = mp.get_context("fork").Pool(workers)  # workers copy _PENDING now
-        finally:
-            _PENDING = []
-        self._pending = self._pool.map_async(_render_one, range(len(self.items)), chunksize=1)
-
-    def result(self) -> dict[str, bytes]:
-        """Every queued figure's files, in the order added (a figure the server could not
-        draw, or every figure when no workers were started, is drawn here)."""
-        if self._server is not None:
-            served = self._server.finish()
-            self._server = None
-            parts = [served.get(stem) or figure_files(make(), stem) for stem, make in self.items]
-        elif self._pending is None:
-            parts = [figure_files(make(), stem) for stem, make in self.items]
-        else:
-            try:
-                parts = self._pending.get()
-            finally:
-                self.close()
-        out: dict[str, bytes] = {}
-        for part in parts:
-            out.update(part)
-        return out
-
-    def close(self) -> None:
-        if self._server is not None:
-            self._server.finish()
-            self._server = None
-        if self._pool is not None:
-            self._pool.terminate()
-            self._pool.join()
-            self._pool = None
-
-
-_BATCH: FigureBatch | None = None
-
-
-@contextmanager
-def deferred_figures(workers: int | None = None) -> Iterator[FigureBatch]:
-    """Within the block, :func:`render_figures` queues figures on the yielded batch."""
-    global _BATCH
-    if _BATCH is not None:
-        raise RuntimeError("deferred_figures blocks do not nest")
-    batch = FigureBatch(workers)
-    _BATCH = batch
-    try:
-        yield batch
-    finally:
-        _BATCH = None
-        batch.close()
-
-
-def render_figures(
-    makers: Mapping[str, Callable[[], Figure]], workers: int | None = None
-) -> dict[str, bytes]:
-    """Draw and save several figures, in forked worker processes where available.
-
-    ``makers`` maps a file stem to a function returning the figure.  Saving
-    is the slow part (text layout, PDF and PNG writers) and the figures are
-    independent, so they are drawn in parallel on the machine's cores; the
-    result (file name → bytes) is the same as drawing them one by one.
-    Inside :func:`deferred_figures` the figures are queued instead and the
-    returned files are empty until the batch's :meth:`FigureBatch.result`.
-    """
-    if _BATCH is not None:
-        return _BATCH.add(makers)
-    batch = FigureBatch(workers)
-    batch.add(makers)
-    try:
-        batch.start()
-        return batch.result()
-    finally:
-        batch.close()

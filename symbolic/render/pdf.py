@@ -252,23 +252,8 @@ def compile_pdf(
         )
     folder = Path(tempfile.mkdtemp(prefix="gainsmith-tex-"))
     try:
-        (folder / f"{_JOB}.tex").write_bytes(tex_source.encode("utf-8", errors="replace"))
-        for name, content in assets.items():
-            target = folder / name
-            target.parent.mkdir(parents=True, exist_ok=True)
-            target.write_bytes(bytes(content))
-        deadline = time.monotonic() + timeout
-        code, log = 0, ""
-        for attempt, command in enumerate(_commands(engine)):
-            try:
-                code, output = _run(command, folder, deadline, timeout)
-            except RenderError:
-                _save_log(log_path, folder)
-                raise
-            log = _read_log(folder, output)
-            if code != 0 or not _needs_rerun(log) or attempt == _MAX_PDFLATEX_RUNS - 1:
-                break
-        _save_log(log_path, folder)
+        _write_sources(folder, tex_source, assets)
+        code, log, output = _run_engine(engine, folder, timeout, log_path)
         pdf = folder / f"{_JOB}.pdf"
         if code != 0 or not pdf.is_file():
             error = _first_error(log) or _first_error(output)
@@ -278,6 +263,36 @@ def compile_pdf(
         return pdf.read_bytes()
     finally:
         shutil.rmtree(folder, ignore_errors=True)
+
+
+def _write_sources(folder: Path, tex_source: str, assets: Mapping[str, bytes]) -> None:
+    """``memo.tex`` and the assets, into the compile folder."""
+    (folder / f"{_JOB}.tex").write_bytes(tex_source.encode("utf-8", errors="replace"))
+    for name, content in assets.items():
+        target = folder / name
+        target.parent.mkdir(parents=True, exist_ok=True)
+        target.write_bytes(bytes(content))
+
+
+def _run_engine(
+    engine: str, folder: Path, timeout: float, log_path: Path | None
+) -> tuple[int, str, str]:
+    """Run the engine (pdfLaTeX rerun until the cross-references settle) within `timeout`;
+    the exit code, the TeX log and the engine's output of the last run.  The log is saved
+    to `log_path` either way."""
+    deadline = time.monotonic() + timeout
+    code, log, output = 0, "", ""
+    for attempt, command in enumerate(_commands(engine)):
+        try:
+            code, output = _run(command, folder, deadline, timeout)
+        except RenderError:
+            _save_log(log_path, folder)
+            raise
+        log = _read_log(folder, output)
+        if code != 0 or not _needs_rerun(log) or attempt == _MAX_PDFLATEX_RUNS - 1:
+            break
+    _save_log(log_path, folder)
+    return code, log, output
 
 
 def _reserved(name: str) -> str | None:

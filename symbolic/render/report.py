@@ -164,97 +164,108 @@ def _extensions_json(d: Derivation) -> dict[str, Any]:
     if ia is not None:
         out["integral_gain"] = _matrix(ia.integral_gain)
         out["K_augmented"] = _matrix(ia.K_augmented)
+        out["integral"] = _integral_json(ia)
+    if d.reduced_observer is not None:
+        out["reduced_observer"] = _reduced_json(d.reduced_observer)
+    if d.discrete is not None:
+        out["discrete"] = _discrete_json(d.discrete)
+    return out
+
+
+def _integral_json(ia) -> dict[str, Any]:
+    return {
+        "K": _matrix(ia.K),
+        "integral_pole": complex_pairs([complex(ia.integral_pole)])[0],
+        "poles": complex_pairs(ia.pole_values),
+        "pole_rule": ia.pole_rule,
+        "sign_convention": ia.sign_convention,
+        "method": ia.method,
+        "formulas": {
+            "K_augmented": _formula_matrix(ia.closed_form),
+            "A_augmented": _formula_matrix(ia.A_augmented_closed_form),
+            "B_augmented": _formula_matrix(ia.B_augmented_closed_form),
+            "augmented_controllability_determinant": None
+            if ia.controllability_determinant is None
+            else str(ia.controllability_determinant),
+            "zero_at_origin": None if ia.zero_at_origin is None else str(ia.zero_at_origin),
+        },
+        "conditions": list(ia.conditions),
+    }
+
+
+def _reduced_json(ro) -> dict[str, Any]:
+    F, G, H, J = ro.compensator
+    return {
+        "order": ro.order,
+        "measured": ro.measured,
+        "T": _matrix(ro.T),
+        "Ke": _matrix(ro.Ke) if ro.Ke.size else [],
+        "poles": complex_pairs(ro.pole_values),
+        "pole_rule": ro.pole_rule,
+        "A_hat": _matrix(ro.observer_matrix) if ro.order else [],
+        "B_hat": _matrix(ro.output_input) if ro.order else [],
+        "F_hat": _matrix(ro.control_input) if ro.order else [],
+        "compensator": {
+            "state": _matrix(F) if ro.order else [],
+            "measurement": _matrix(G) if ro.order else [],
+            "output_state": _matrix(H) if ro.order else [],
+            "output_measurement": _matrix(J),
+        },
+        "closed_loop_poles": complex_pairs(
+            sorted(ro.closed_loop_poles, key=lambda z: (z.real, z.imag))
+        ),
+        "method": ro.method,
+        "formulas": {"Ke": _formula_matrix(ro.Ke_closed_form)},
+    }
+
+
+def _discrete_json(dc) -> dict[str, Any]:
+    out = {
+        "sample_time": dc.sample_time,
+        "Phi": _matrix(dc.Phi),
+        "Gamma": _matrix(dc.Gamma),
+        "K": _matrix(dc.K),
+        "L": _matrix(dc.L_predictor),
+        "L_current": _matrix(dc.L_current),
+        "reference_gain": None if dc.reference_gain is None else _matrix(dc.reference_gain),
+        "poles": complex_pairs(dc.poles_z),
+        "controller_poles": complex_pairs(dc.controller_poles_z),
+        "observer_poles": complex_pairs(dc.observer_poles_z),
+        "bandwidth": None if dc.bandwidth is None else _finite(dc.bandwidth),
+        "sampling_ratio": None if dc.sampling_ratio is None else _finite(dc.sampling_ratio),
+        "hold_phase_lag": None if dc.hold_phase_lag is None else _finite(dc.hold_phase_lag),
+        "method": dc.method,
+        "formulas": {
+            "Phi": _formula_matrix(dc.Phi_closed_form),
+            "Gamma": _formula_matrix(dc.Gamma_closed_form),
+            "K": _formula_matrix(dc.K_closed_form),
+            "L": _formula_matrix(dc.L_closed_form),
+        },
+        "forms": list(dc.forms),
+        "integral": None,
+        "reduced_observer": None,
+    }
+    if dc.integral is not None:
+        di = dc.integral
         out["integral"] = {
-            "K": _matrix(ia.K),
-            "integral_pole": complex_pairs([complex(ia.integral_pole)])[0],
-            "poles": complex_pairs(ia.pole_values),
-            "pole_rule": ia.pole_rule,
-            "sign_convention": ia.sign_convention,
-            "method": ia.method,
-            "formulas": {
-                "K_augmented": _formula_matrix(ia.closed_form),
-                "A_augmented": _formula_matrix(ia.A_augmented_closed_form),
-                "B_augmented": _formula_matrix(ia.B_augmented_closed_form),
-                "augmented_controllability_determinant": None
-                if ia.controllability_determinant is None
-                else str(ia.controllability_determinant),
-                "zero_at_origin": None if ia.zero_at_origin is None else str(ia.zero_at_origin),
-            },
-            "conditions": list(ia.conditions),
+            "K_augmented": _matrix(di.K_augmented),
+            "K": _matrix(di.K),
+            "integral_gain": _matrix(di.integral_gain),
+            "integral_pole": complex_pairs([complex(di.integral_pole)])[0],
+            "integral_pole_z": complex_pairs([complex(di.integral_pole_z)])[0],
+            "tracking_time": _finite(di.tracking_time),
+            "method": di.method,
         }
-    ro = d.reduced_observer
-    if ro is not None:
-        F, G, H, J = ro.compensator
+    if dc.reduced is not None:
+        dr = dc.reduced
         out["reduced_observer"] = {
-            "order": ro.order,
-            "measured": ro.measured,
-            "T": _matrix(ro.T),
-            "Ke": _matrix(ro.Ke) if ro.Ke.size else [],
-            "poles": complex_pairs(ro.pole_values),
-            "pole_rule": ro.pole_rule,
-            "A_hat": _matrix(ro.observer_matrix) if ro.order else [],
-            "B_hat": _matrix(ro.output_input) if ro.order else [],
-            "F_hat": _matrix(ro.control_input) if ro.order else [],
-            "compensator": {
-                "state": _matrix(F) if ro.order else [],
-                "measurement": _matrix(G) if ro.order else [],
-                "output_state": _matrix(H) if ro.order else [],
-                "output_measurement": _matrix(J),
-            },
-            "closed_loop_poles": complex_pairs(
-                sorted(ro.closed_loop_poles, key=lambda z: (z.real, z.imag))
-            ),
-            "method": ro.method,
-            "formulas": {"Ke": _formula_matrix(ro.Ke_closed_form)},
+            "L": _matrix(dr.L),
+            "transformation": _matrix(dr.T),
+            "poles": complex_pairs(dr.poles),
+            "poles_z": complex_pairs(dr.poles_z),
+            "observer_matrix": _matrix(dr.observer_matrix),
+            "output_input": _matrix(dr.output_input),
         }
-    dc = d.discrete
-    if dc is not None:
-        out["discrete"] = {
-            "sample_time": dc.sample_time,
-            "Phi": _matrix(dc.Phi),
-            "Gamma": _matrix(dc.Gamma),
-            "K": _matrix(dc.K),
-            "L": _matrix(dc.L_predictor),
-            "L_current": _matrix(dc.L_current),
-            "reference_gain": None if dc.reference_gain is None else _matrix(dc.reference_gain),
-            "poles": complex_pairs(dc.poles_z),
-            "controller_poles": complex_pairs(dc.controller_poles_z),
-            "observer_poles": complex_pairs(dc.observer_poles_z),
-            "bandwidth": None if dc.bandwidth is None else _finite(dc.bandwidth),
-            "sampling_ratio": None if dc.sampling_ratio is None else _finite(dc.sampling_ratio),
-            "hold_phase_lag": None if dc.hold_phase_lag is None else _finite(dc.hold_phase_lag),
-            "method": dc.method,
-            "formulas": {
-                "Phi": _formula_matrix(dc.Phi_closed_form),
-                "Gamma": _formula_matrix(dc.Gamma_closed_form),
-                "K": _formula_matrix(dc.K_closed_form),
-                "L": _formula_matrix(dc.L_closed_form),
-            },
-            "forms": list(dc.forms),
-            "integral": None,
-            "reduced_observer": None,
-        }
-        if dc.integral is not None:
-            di = dc.integral
-            out["discrete"]["integral"] = {
-                "K_augmented": _matrix(di.K_augmented),
-                "K": _matrix(di.K),
-                "integral_gain": _matrix(di.integral_gain),
-                "integral_pole": complex_pairs([complex(di.integral_pole)])[0],
-                "integral_pole_z": complex_pairs([complex(di.integral_pole_z)])[0],
-                "tracking_time": _finite(di.tracking_time),
-                "method": di.method,
-            }
-        if dc.reduced is not None:
-            dr = dc.reduced
-            out["discrete"]["reduced_observer"] = {
-                "L": _matrix(dr.L),
-                "transformation": _matrix(dr.T),
-                "poles": complex_pairs(dr.poles),
-                "poles_z": complex_pairs(dr.poles_z),
-                "observer_matrix": _matrix(dr.observer_matrix),
-                "output_input": _matrix(dr.output_input),
-            }
     return out
 
 
@@ -271,6 +282,16 @@ def derivation_summary(d: Derivation) -> str:
     """A readable terminal summary: formulas pretty-printed, numbers, the checks."""
     out: list[str] = []
     w = out.append
+    _design_summary(d, w)
+    _structure_summary(d, w)
+    _poles_summary(d, w)
+    _gains_summary(d, w)
+    _extensions_summary(d, w)
+    _checks_summary(d, w)
+    return "\n".join(out)
+
+
+def _design_summary(d: Derivation, w) -> None:
     des = d.design
     w(f"{des.title}" + (f"  (revision {des.revision})" if des.revision else ""))
     w(f"design file {des.path}  sha256 {des.sha256[:16]}…")
@@ -284,6 +305,9 @@ def derivation_summary(d: Derivation) -> str:
         )
     n = des.plant.order
     w(f"plant: {n} states, {des.plant.n_inputs} input(s), {des.plant.n_outputs} output(s)")
+
+
+def _structure_summary(d: Derivation, w) -> None:
     w("")
     w("Structure")
     for rep in (d.controllability, d.observability):
@@ -293,6 +317,9 @@ def derivation_summary(d: Derivation) -> str:
             w(f"    determinant = {rep.determinant}")
         if rep.conditions:
             w(f"    {rep.adjective} if " + " or ".join(rep.conditions))
+
+
+def _poles_summary(d: Derivation, w) -> None:
     w("")
     w("Poles")
     cp = d.controller_poles
@@ -312,6 +339,9 @@ def derivation_summary(d: Derivation) -> str:
     w(f"    ({d.observer_poles.rule})")
     if reduced:
         w("  shipped observer: the reduced-order observer (below)")
+
+
+def _gains_summary(d: Derivation, w) -> None:
     w("")
     w("Gains")
     for g in (d.K, d.L):
@@ -339,7 +369,9 @@ def derivation_summary(d: Derivation) -> str:
             + " ".join(format_number(x) for x in c.denominator)
             + ")  [coefficients, descending powers of s]"
         )
-    _extensions_summary(d, w)
+
+
+def _checks_summary(d: Derivation, w) -> None:
     w("")
     w("Checks")
     width = max(len(c.name) for c in d.checks)
@@ -358,7 +390,6 @@ def derivation_summary(d: Derivation) -> str:
             w(f"  - {note}")
     w("")
     w("all checks passed" if d.passed else "SOME CHECKS FAILED")
-    return "\n".join(out)
 
 
 def _extensions_summary(d: Derivation, w) -> None:

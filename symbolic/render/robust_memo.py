@@ -14,8 +14,8 @@ from ..analysis.robust import CAUTION, RobustnessReport, robustness_study
 from ..analysis.routh import StateFeedbackStability, rounded
 from ..analysis.sensitivity import SensitivityTable, entry_labels
 from ..model.results import Derivation
-from . import figures as _figures
 from . import robust_figures as rf
+from .figure_server import render_figures
 from .robust_pages import (
     check_json,
     margin_json,
@@ -58,7 +58,7 @@ def memo_robustness(
     r = robustness_study(d, points, budget=budget, factor=False)
     m = r.mismatch
     makers, captions = _figures_and_captions(d, r)
-    figures = _figures.render_figures(makers)  # drawn in parallel, same bytes
+    figures = render_figures(makers)  # drawn in parallel, same bytes
     ctx = {
         "points": r.points,
         "grid_size": m.grid.size,

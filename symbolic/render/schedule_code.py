@@ -24,7 +24,9 @@ from ..analysis.schedule import (
 )
 from ..model.design import Design
 from ..model.results import Derivation
-from .export import CODE_OK, CODE_WORDS, GainFormulas, PythonPrinter, gain_evaluator, gain_formulas
+from .code_printers import PythonPrinter
+from .gain_evaluator import gain_evaluator
+from .gain_formulas import CODE_OK, CODE_WORDS, GainFormulas, gain_formulas
 
 __all__ = ["gain_schedule", "plant_stacks"]
 

@@ -22,8 +22,8 @@ from matplotlib.figure import Figure
 from ..analysis.schedule import GainSchedule, value_text
 from ..model.results import Derivation
 from ..runtime.publish import publish
-from .export import CODE_OK
 from .figures import figure_files
+from .gain_formulas import CODE_OK
 from .schedule_code import gain_schedule
 
 __all__ = [

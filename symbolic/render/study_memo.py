@@ -14,6 +14,7 @@ import numpy as np
 from ..analysis.study import SimulationStudy, simulation_study
 from ..model.results import Derivation
 from . import figures as fig
+from .figure_server import render_figures
 from .mathvalues import latex_number, own_math
 
 __all__ = ["memo_simulation"]
@@ -42,7 +43,7 @@ def memo_simulation(
     ctrl = s.controller
     out_sig = d.reference.tracked if d.reference else d.design.plant.outputs[0]
     in_sig = d.design.plant.inputs[0]
-    figures = fig.render_figures(_figure_makers(d, s, out_sig, in_sig))
+    figures = render_figures(_figure_makers(d, s, out_sig, in_sig))
     cases_ctx, table = _metrics_table(s, in_sig)
     method = (
         f"The shipped loop (plant and controller: {ctrl.description}) was simulated for a step of"

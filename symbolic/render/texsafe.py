@@ -1,11 +1,11 @@
-"""Safe rendering of user text into LaTeX and Markdown, and the template environments.
+"""Escaping of user text for LaTeX and Markdown, and the marks of text our own code built.
 
 Every string a design file supplies (title, author, parameter descriptions, units, state
-names) reaches the memo through one of the two Jinja2 environments built by
-:func:`make_environment`.  Their ``finalize`` hook escapes every value printed by a
-template unless our own code marked it as already safe with :class:`TrustedLatex` (for the
-LaTeX memo) or :class:`TrustedMarkdown` (for the Markdown memo); each mark is honoured only
-by its own format.  Nobody has to remember to apply an escape filter.
+names) reaches the memo through a template environment of :mod:`symbolic.render.formats`,
+whose ``finalize`` hook escapes every printed value with :func:`escape_latex` or
+:func:`escape_markdown` unless our own code marked it as already safe with
+:class:`TrustedLatex` (for the LaTeX memo) or :class:`TrustedMarkdown` (for the Markdown
+memo); each mark is honoured only by its own format.
 
 The escapers are single-pass character maps (``str.translate``), so an escape sequence is
 never escaped a second time, and TeX's ``^^5c`` notation cannot be formed because ``^`` is
@@ -13,20 +13,9 @@ itself escaped.
 
 Notes
 -----
-Template authors, please note:
-
-* LaTeX templates use ``\\VAR{...}`` for values, ``\\BLOCK{...}`` for statements and
-  ``\\#{...}`` for comments; a line starting with ``%%`` is a statement and one starting
-  with ``%#`` is a comment.  Write a literal ``%%`` TeX comment as ``% %`` instead.
-* A value printed with ``\\VAR{...}`` is escaped unless it is a :class:`TrustedLatex`.  The
-  result of a filter such as ``upper`` or of ``~`` concatenation is a plain ``str`` and is
-  escaped again, so trust never leaks into derived strings.
-* Text a template produces itself (the output of a macro, of ``caller()``, of a
-  ``set``/``endset`` or ``filter`` block) is layout whose values were already escaped; the
-  environment marks it as such, so ``\\VAR{row(x)}`` prints a macro's LaTeX as is.  The
-  mark belongs to the environment kind that produced the text.
 * Escaped text is for text mode.  Inside math, wrap a value in ``\\text{...}`` (amsmath),
-  or pass a :class:`TrustedLatex` built for math, such as :func:`tex_number`'s output.
+  or pass a :class:`TrustedLatex` built for math, such as
+  :func:`symbolic.render.memo_numbers.tex_number`'s output.
 * Values printed inside a Markdown code span are shown with their backslashes; keep
   values out of code spans.
 * The LaTeX preamble must contain the lines of :data:`LATEX_PREAMBLE_LINES`; the escaper
@@ -35,33 +24,21 @@ Template authors, please note:
 
 from __future__ import annotations
 
-import importlib.resources
-import math
-import numbers
 import re
 import unicodedata
-from collections.abc import Callable, Iterable, Mapping
+from collections.abc import Callable
 from functools import lru_cache
-from pathlib import Path
-from typing import Any, Literal
 
-import jinja2
-
-from ..model.numbers import format_pole, pole_parts
 from ..runtime.errors import RenderError
 
 __all__ = [
+    "LATEX_COMMANDS",
+    "LATEX_KEPT",
     "LATEX_PREAMBLE_LINES",
-    "MISSING_VALUE",
     "TrustedLatex",
     "TrustedMarkdown",
     "escape_latex",
     "escape_markdown",
-    "make_environment",
-    "md_number",
-    "render_template",
-    "templates_dir",
-    "tex_number",
 ]
 
 #: Preamble lines every LaTeX memo template must contain for :func:`escape_latex` output to
@@ -72,10 +49,6 @@ LATEX_PREAMBLE_LINES: tuple[str, ...] = (
     r"\usepackage{lmodern}",
     r"\usepackage{textcomp}",
 )
-
-#: What the environments print for ``None``: an em dash, so that a missing value is
-#: visible to the reviewer instead of silently blank.
-MISSING_VALUE = "\N{EM DASH}"
 
 
 # --------------------------------------------------------------------------------------
@@ -247,7 +220,7 @@ _LATEX_SPECIALS = {
 # Unicode normal form.  Measured on TeX Live 2022 with poppler's pdftotext; characters of
 # Latin Extended-A that came back as a different letter (Đ came back as the lookalike Ð)
 # or as a letter plus a loose accent (the cedillas) are left out.
-_LATEX_KEPT = frozenset(
+LATEX_KEPT = frozenset(
     "".join(chr(c) for c in range(0xA0, 0x100) if c != 0xAD)
     + "ĀāĂăĄąĆćĈĉĊċČčĎďđĒēĔĕĖėĘęĚěĜĝĞğĠġĤĥĨĪĬİıĲĳĴĹĺĽľŁłŃńŇňŊŋŌōŎŏŐőŒœŔŕŘřŚśŜŝŞşŠšŢţŤť"
     + "ŨũŪūŬŭŮůŰűŴŵŶŷŸŹźŻżŽž"
@@ -270,12 +243,12 @@ _LATEX_MATH_NAMES = {
     "∓": "mp", "≪": "ll", "≫": "gg", "≡": "equiv", "∝": "propto", "∇": "nabla",
     "∈": "in", "⇒": "Rightarrow", "′": "prime", "∪": "cup", "∩": "cap",
 }  # fmt: skip
-_LATEX_COMMANDS = {ch: rf"\ensuremath{{\{name}}}" for ch, name in _LATEX_MATH_NAMES.items()}
-_LATEX_COMMANDS["\N{MINUS SIGN}"] = r"\textminus{}"
-_LATEX_COMMANDS["″"] = r"\ensuremath{\prime\prime}"
+LATEX_COMMANDS = {ch: rf"\ensuremath{{\{name}}}" for ch, name in _LATEX_MATH_NAMES.items()}
+LATEX_COMMANDS["\N{MINUS SIGN}"] = r"\textminus{}"
+LATEX_COMMANDS["″"] = r"\ensuremath{\prime\prime}"
 # Superscripts of our own labels (Lᵀ, (sI − F)⁻¹): set as superscripts, not as code points.
-_LATEX_COMMANDS["ᵀ"] = r"\ensuremath{^{\mathsf{T}}}"
-_LATEX_COMMANDS["⁻"] = r"\ensuremath{^{-}}"
+LATEX_COMMANDS["ᵀ"] = r"\ensuremath{^{\mathsf{T}}}"
+LATEX_COMMANDS["⁻"] = r"\ensuremath{^{-}}"
 
 # A run of more than _RUN_LIMIT characters without a space gets a break point every
 # _RUN_CHUNK characters, so that a long token (a path, a hash) wraps instead of running off
@@ -300,10 +273,10 @@ def _latex_for(codepoint: int) -> str:
         return " "
     if _is_dropped(codepoint):
         return ""
-    if 0x20 <= codepoint < 0x7F or char in _LATEX_KEPT:
+    if 0x20 <= codepoint < 0x7F or char in LATEX_KEPT:
         return char
-    if char in _LATEX_COMMANDS:
-        return _LATEX_COMMANDS[char]
+    if char in LATEX_COMMANDS:
+        return LATEX_COMMANDS[char]
     return _codepoint_latex(codepoint)
 
 
@@ -486,336 +459,3 @@ def escape_markdown(text: str) -> str:
     """
     text = _prepare(text, "escape_markdown").translate(_MARKDOWN_MAP)
     return _SPACE_RUNS.sub(" ", text).strip(" ")
-
-
-# --------------------------------------------------------------------------------------
-# Numbers
-# --------------------------------------------------------------------------------------
-
-
-def _split_number(value: object, digits: int, function: str) -> tuple[complex | float, int]:
-    if isinstance(digits, bool) or not isinstance(digits, int) or digits < 1:
-        raise RenderError(f"{function}: digits must be a positive integer, got {digits!r}")
-    if isinstance(value, bool) or not isinstance(value, numbers.Number):
-        raise RenderError(f"{function} expects a number, got {type(value).__name__}")
-    if isinstance(value, numbers.Real):
-        return float(value), digits
-    if isinstance(value, numbers.Complex):
-        return complex(value), digits
-    raise RenderError(f"{function} cannot format {type(value).__name__}")
-
-
-def _real_parts(x: float, digits: int) -> tuple[str, str, str | None]:
-    """Sign, mantissa and decimal exponent (None when not in scientific form) of x."""
-    if math.isnan(x):
-        return "", "nan", None
-    if math.isinf(x):
-        return ("-" if x < 0 else ""), "inf", None
-    text = f"{x:.{digits}g}"
-    sign = ""
-    if text.startswith("-"):
-        sign, text = "-", text[1:]
-    if text.strip("0.") == "":
-        sign = ""  # no "-0"
-    mantissa, _, exponent = text.partition("e")
-    return sign, mantissa, (str(int(exponent)) if exponent else None)
-
-
-def _tex_real(x: float, digits: int) -> str:
-    sign, mantissa, exponent = _real_parts(x, digits)
-    if mantissa == "nan":
-        return r"\mathrm{NaN}"
-    if mantissa == "inf":
-        return sign + r"\infty"
-    if exponent is None:
-        return sign + mantissa
-    return rf"{sign}{mantissa}\times10^{{{exponent}}}"
-
-
-def _tex_text(text: str) -> str:
-    """A number printed by :func:`symbolic.model.numbers.format_number`, for math mode."""
-    sign = ""
-    if text.startswith("-"):
-        sign, text = "-", text[1:]
-    if text == "nan":
-        return r"\mathrm{NaN}"
-    if text == "inf":
-        return sign + r"\infty"
-    mantissa, _, exponent = text.partition("e")
-    if not exponent:
-        return sign + mantissa
-    return rf"{sign}{mantissa}\times10^{{{int(exponent)}}}"
-
-
-def tex_number(x: object, digits: int = 6) -> TrustedLatex:
-    """Format a number for LaTeX math mode.
-
-    Parameters
-    ----------
-    x : real or complex number
-        Python, NumPy or SymPy number.
-    digits : int, optional
-        Significant digits (``format(x, ".{digits}g")``), by default 6.
-
-    Returns
-    -------
-    TrustedLatex
-        For math mode, e.g. ``1.23\\times10^{-5}``; ``\\infty``, ``-\\infty``,
-        ``\\mathrm{NaN}``; a complex number (a pole) ``a + b\\,\\mathrm{j}`` (``j`` for the
-        imaginary unit as in control engineering), with the parts of
-        :func:`symbolic.model.numbers.format_pole`: a part too small to show at ``digits``
-        figures is left out (``-4`` for ``-4 + 1e-17j``, ``3\\,\\mathrm{j}`` for ``3j``).
-
-    Raises
-    ------
-    RenderError
-        If `x` is not a number or `digits` is not a positive integer.
-
-    Examples
-    --------
-    >>> tex_number(1.23e-05)
-    '1.23\\\\times10^{-5}'
-    >>> tex_number(-2.5 + 1j, digits=3)
-    '-2.5 + 1\\\\,\\\\mathrm{j}'
-    """
-    value, digits = _split_number(x, digits, "tex_number")
-    if isinstance(value, float):
-        return TrustedLatex(_tex_real(value, digits))
-    real, imag = pole_parts(value, digits)
-    if imag is None:
-        return TrustedLatex(_tex_text(real or "0"))
-    negative = imag.startswith("-")
-    imag_text = _tex_text(imag.removeprefix("-")) + r"\,\mathrm{j}"
-    if real is None:
-        return TrustedLatex(("-" if negative else "") + imag_text)
-    return TrustedLatex(_tex_text(real) + (" - " if negative else " + ") + imag_text)
-
-
-_SUPERSCRIPT = str.maketrans("0123456789-", "⁰¹²³⁴⁵⁶⁷⁸⁹⁻")
-
-
-def _md_real(x: float, digits: int) -> str:
-    sign, mantissa, exponent = _real_parts(x, digits)
-    minus = "\N{MINUS SIGN}" if sign else ""
-    if mantissa == "nan":
-        return "NaN"
-    if mantissa == "inf":
-        return minus + "∞"
-    if exponent is None:
-        return minus + mantissa
-    return f"{minus}{mantissa}×10{exponent.translate(_SUPERSCRIPT)}"
-
-
-def md_number(x: object, digits: int = 6) -> TrustedMarkdown:
-    """Format a number for Markdown in plain Unicode, e.g. ``1.23×10⁻⁵``.
-
-    Parameters
-    ----------
-    x : real or complex number
-        Python, NumPy or SymPy number.
-    digits : int, optional
-        Significant digits, by default 6.
-
-    Returns
-    -------
-    TrustedMarkdown
-        Digits, ``.``, the minus sign U+2212, ``×`` and superscript digits only, so no
-        Markdown syntax can form; ``∞``, ``NaN``.  A complex number (a pole) is written
-        as a design file writes it, by :func:`symbolic.model.numbers.format_pole`: ``-2+3j``,
-        ``-4`` (digits, ``.``, ``e``, ASCII ``+`` and ``-`` and ``j``, with no space, so
-        again no Markdown syntax can form).
-
-    Raises
-    ------
-    RenderError
-        If `x` is not a number or `digits` is not a positive integer.
-
-    Examples
-    --------
-    >>> md_number(1.23e-05)
-    '1.23×10⁻⁵'
-    >>> md_number(-4.0)
-    '−4'
-    >>> md_number(-2 - 3j)
-    '-2-3j'
-    """
-    value, digits = _split_number(x, digits, "md_number")
-    if isinstance(value, float):
-        return TrustedMarkdown(_md_real(value, digits))
-    return TrustedMarkdown(format_pole(value, digits))
-
-
-# --------------------------------------------------------------------------------------
-# Environments
-# --------------------------------------------------------------------------------------
-
-
-def templates_dir() -> Path:
-    """The folder holding the memo templates.
-
-    Returns
-    -------
-    pathlib.Path
-        ``symbolic/templates`` inside an installed package (found with
-        ``importlib.resources``), else ``templates/`` beside the ``symbolic`` folder of a
-        source checkout.
-
-    Raises
-    ------
-    RenderError
-        If neither folder exists.
-    """
-    try:
-        resource = importlib.resources.files("symbolic.templates")
-    except (ModuleNotFoundError, TypeError, ValueError):
-        resource = None
-    if resource is not None:
-        candidate = Path(str(resource))
-        if candidate.is_dir():
-            return candidate
-    checkout = Path(__file__).resolve().parents[2] / "templates"
-    if checkout.is_dir():
-        return checkout
-    raise RenderError(f"cannot find the templates folder (looked for {checkout})")
-
-
-class _LatexLayout(str):
-    """Text produced by a "tex" template itself (literal layout plus escaped values)."""
-
-    __slots__ = ()
-
-
-class _MarkdownLayout(str):
-    """Text produced by a "md" template itself (literal layout plus escaped values)."""
-
-    __slots__ = ()
-
-
-class _LatexEnvironment(jinja2.Environment):
-    # Jinja2 joins a template's own output with ``environment.concat``: the whole render,
-    # macro bodies, ``caller()``, set and filter blocks.  Every piece is template text or a
-    # value that went through ``finalize``, so the joined text is marked as layout.  The
-    # ``~`` operator and filters do not use it and yield plain (escaped) strings.
-    @staticmethod
-    def concat(parts: Iterable[str]) -> str:
-        return _LatexLayout("".join(parts))
-
-
-class _MarkdownEnvironment(jinja2.Environment):
-    @staticmethod
-    def concat(parts: Iterable[str]) -> str:
-        return _MarkdownLayout("".join(parts))
-
-
-def _finalize_tex(value: object) -> str:
-    if isinstance(value, (TrustedLatex, _LatexLayout)):
-        return str.__str__(value)
-    if value is None:
-        return r"\textemdash{}"
-    return escape_latex(value if isinstance(value, str) else str(value))
-
-
-def _finalize_md(value: object) -> str:
-    if isinstance(value, (TrustedMarkdown, _MarkdownLayout)):
-        return str.__str__(value)
-    if value is None:
-        return MISSING_VALUE
-    return escape_markdown(value if isinstance(value, str) else str(value))
-
-
-def make_environment(kind: Literal["tex", "md"]) -> jinja2.Environment:
-    """Build the Jinja2 environment for LaTeX ("tex") or Markdown ("md") templates.
-
-    Parameters
-    ----------
-    kind : {"tex", "md"}
-        The output format.
-
-    Returns
-    -------
-    jinja2.Environment
-        Loading templates from :func:`templates_dir`, with ``StrictUndefined`` (a missing
-        variable raises), ``autoescape=False``, ``keep_trailing_newline``, ``trim_blocks``
-        and ``lstrip_blocks``.  A ``finalize`` hook escapes every printed value with
-        :func:`escape_latex` / :func:`escape_markdown` unless it is a
-        :class:`TrustedLatex` ("tex") / :class:`TrustedMarkdown` ("md"); other values are
-        converted with ``str()`` first, and ``None`` prints as an em dash.  "tex" uses the
-        delimiters ``\\VAR{ }``, ``\\BLOCK{ }``, ``\\#{ }`` with line statements ``%%`` and
-        line comments ``%#``; "md" uses Jinja2's usual ``{{ }}``, ``{% %}``, ``{# #}``.
-        Filters: ``tex_number`` ("tex") and ``md_number`` ("md").
-
-    Raises
-    ------
-    ValueError
-        If `kind` is neither "tex" nor "md".
-    RenderError
-        If the templates folder cannot be found.
-
-    Examples
-    --------
-    >>> env = make_environment("tex")
-    >>> env.from_string(r"\\textbf{\\VAR{title}}").render(title="P&ID #3")
-    '\\\\textbf{P\\\\&ID \\\\#3}'
-    """
-    common: dict[str, Any] = {
-        "loader": jinja2.FileSystemLoader(str(templates_dir())),
-        "undefined": jinja2.StrictUndefined,
-        "autoescape": False,
-        "keep_trailing_newline": True,
-        "trim_blocks": True,
-        "lstrip_blocks": True,
-    }
-    if kind == "tex":
-        env: jinja2.Environment = _LatexEnvironment(
-            block_start_string=r"\BLOCK{",
-            block_end_string="}",
-            variable_start_string=r"\VAR{",
-            variable_end_string="}",
-            comment_start_string=r"\#{",
-            comment_end_string="}",
-            line_statement_prefix="%%",
-            line_comment_prefix="%#",
-            finalize=_finalize_tex,
-            **common,
-        )
-        env.filters["tex_number"] = tex_number
-        return env
-    if kind == "md":
-        env = _MarkdownEnvironment(finalize=_finalize_md, **common)
-        env.filters["md_number"] = md_number
-        return env
-    raise ValueError(f'kind must be "tex" or "md", got {kind!r}')
-
-
-def render_template(kind: Literal["tex", "md"], name: str, context: Mapping[str, object]) -> str:
-    """Render one template of the templates folder.
-
-    Parameters
-    ----------
-    kind : {"tex", "md"}
-        The environment to use (see :func:`make_environment`).
-    name : str
-        Template file name inside the templates folder, e.g. ``"memo.tex.j2"``.
-    context : Mapping[str, object]
-        The template variables.
-
-    Returns
-    -------
-    str
-        The rendered document.
-
-    Raises
-    ------
-    RenderError
-        If the template is missing, has a syntax error, or uses a variable or attribute
-        that the context does not supply.
-    """
-    env = make_environment(kind)
-    try:
-        return str.__str__(env.get_template(name).render(**context))
-    except jinja2.TemplateNotFound as error:
-        raise RenderError(f"template not found: {name}") from error
-    except jinja2.TemplateSyntaxError as error:
-        raise RenderError(f"template {name}, line {error.lineno}: {error.message}") from error
-    except jinja2.UndefinedError as error:
-        raise RenderError(f"template {name}: {error.message}") from error

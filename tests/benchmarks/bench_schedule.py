@@ -7,7 +7,7 @@ Run on demand only (see README.md in this folder)::
 K of the worked belt drive (4 states, 5 parameters) is evaluated at 1,000,000
 random parameter points three ways:
 
-* the vectorised closed form (:func:`symbolic.render.export.gain_evaluator`:
+* the vectorised closed form (:func:`symbolic.render.gain_evaluator.gain_evaluator`:
   ``sympy.lambdify`` with NumPy, common subexpressions, small powers as
   products, evaluated in cache-sized blocks);
 * ``scipy.signal.place_poles`` point by point, timed over 2000 points and
@@ -34,7 +34,8 @@ import sympy as sp
 from scipy.signal import place_poles
 
 from symbolic import derive, load_design
-from symbolic.render.export import gain_evaluator, gain_formulas
+from symbolic.render.gain_evaluator import gain_evaluator
+from symbolic.render.gain_formulas import gain_formulas
 
 from ..conftest import ROOT
 

@@ -1,0 +1,122 @@
+"""The memo's math: formulas and numbers of the result objects, typeset as trusted LaTeX.
+
+Every helper returns :class:`~symbolic.render.mathvalues.OwnMath` (or lists of it): LaTeX
+our own code built from validated identifiers and numbers, which either memo format
+trusts.  The limits below keep the memo readable and its build fast.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import sympy as sp
+
+from ..model.labels import gain_label
+from .mathtex import equation_lines, matrix_latex, poles_latex
+from .mathvalues import OwnMath, latex_matrix, latex_number, own_math
+
+__all__ = [
+    "FACTOR_LIMIT",
+    "FORMULA_LIMIT",
+    "MATRIX_LIMIT",
+    "factored",
+    "gain_block",
+    "matrix_math",
+    "matrix_or_numeric",
+    "metric_math",
+    "plain_text",
+    "poles_math",
+]
+
+#: A symbolic matrix longer than this (characters of LaTeX) is shown numerically instead.
+MATRIX_LIMIT = 700
+#: A closed-form entry longer than this (characters of LaTeX) is not printed (see export).
+FORMULA_LIMIT = 4000
+#: Expressions with more operations than this are shown as they are, not factored.
+FACTOR_LIMIT = 400
+
+
+def factored(expr: sp.Expr) -> sp.Expr:
+    """``factor`` for display, skipped on large expressions (it can take minutes)."""
+    if sp.count_ops(expr) > FACTOR_LIMIT:
+        return expr
+    return sp.factor(expr)
+
+
+def matrix_or_numeric(M: sp.Matrix | None, value: np.ndarray) -> tuple[OwnMath, bool]:
+    """The symbolic matrix when short enough, else the numbers; and whether it is symbolic."""
+    if M is not None:
+        tex = matrix_latex(M, MATRIX_LIMIT)
+        if tex is not None:
+            return own_math(tex), True
+    return own_math(latex_matrix(value)), False
+
+
+def matrix_math(name: str, closed: sp.Matrix | None, value: np.ndarray) -> OwnMath:
+    """``name = [closed form]`` when short, else the numbers."""
+    if closed is not None:
+        tex = matrix_latex(closed, MATRIX_LIMIT)
+        if tex is not None:
+            return own_math(f"{name} = {tex}")
+    return own_math(f"{name} = " + latex_matrix(np.atleast_2d(value), 6))
+
+
+def poles_math(values: np.ndarray) -> OwnMath:
+    """Poles as a LaTeX list, four significant digits."""
+    return own_math(poles_latex(values, 4))
+
+
+def metric_math(x: float | None, digits: int = 4) -> OwnMath:
+    """A metric to `digits` figures, or a dash when it does not exist."""
+    return own_math("\\text{--}" if x is None else latex_number(x, digits))
+
+
+def gain_block(name: str, closed: sp.Matrix | None, value: np.ndarray) -> dict:
+    """One gain: its closed-form entries broken over lines, and numbers."""
+    rows, cols = value.shape
+    lines: list[OwnMath] = []
+    too_long: list[str] = []
+    if closed is not None:
+        for i in range(closed.shape[0]):
+            for j in range(closed.shape[1]):
+                label = gain_label(name, i, j, (rows, cols), "tex")
+                entry = factored(closed[i, j])
+                if len(sp.latex(entry)) > FORMULA_LIMIT:
+                    too_long.append(label)
+                    continue
+                for ln in equation_lines(label, entry):
+                    lines.append(own_math(ln))
+    entries = [
+        {
+            "label": own_math(gain_label(name, i, j, (rows, cols), "tex")),
+            "value": own_math(latex_number(value[i, j])),
+        }
+        for i in range(rows)
+        for j in range(cols)
+    ]
+    return {
+        "name": name,
+        "lines": lines,
+        "numeric": own_math(f"{name} = " + latex_matrix(value, 6)),
+        "entries": entries,
+        "closed": closed is not None,
+        "too_long": [own_math(x) for x in too_long],
+    }
+
+
+_UNICODE_MATH = {
+    "\u0302": "_hat",  # combining circumflex: x̂ -> x_hat
+    "\u0304": "_bar",  # combining macron: ȳ -> y_bar
+    "\u0233": "y_bar",  # precomposed y with macron
+    "\u1d40": "^T",
+    "\u207b\u00b9": "^-1",
+    "\u207b": "^-",
+    "\u00b9": "1",
+    "\u2212": "-",
+}
+
+
+def plain_text(text: str) -> str:
+    """Our own explanatory strings with Unicode math written in ASCII (x̂ as x_hat, ᵀ as ^T)."""
+    for k, v in _UNICODE_MATH.items():
+        text = text.replace(k, v)
+    return text
