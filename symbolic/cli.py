@@ -47,7 +47,7 @@ def _load(args):
 
 
 def _cmd_derive(args) -> int:
-    from .derivation.pipeline import derive
+    from .api import derive
     from .render.report import derivation_json, derivation_summary, dumps
 
     d = derive(_load(args))

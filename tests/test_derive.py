@@ -15,7 +15,7 @@ from scipy.optimize import linear_sum_assignment
 from scipy.signal import place_poles
 
 import symbolic
-from symbolic.derivation.pipeline import derive
+from symbolic import derive
 from symbolic.input.design import parse_design
 
 from .conftest import WORKED_FILES
@@ -257,7 +257,7 @@ def test_factors_without_real_zeros_are_not_conditions():
     ],
 )
 def test_has_no_real_zero(factor, real_zero):
-    from symbolic.derivation.pipeline import has_no_real_zero
+    from symbolic.derivation.structure import has_no_real_zero
     from symbolic.input.expressions import parse_expression
 
     names = {n: sp.Symbol(n, real=True) for n in "ab"}
@@ -591,13 +591,13 @@ def test_a_failing_derivation_leaves_no_extension_child_behind(monkeypatch):
     import multiprocessing as mp
     import time
 
-    from symbolic.derivation import digital as _discrete
+    from symbolic.derivation import zoh as _zoh
     from symbolic.runtime.errors import StructureError
 
     def slow(*args):
         time.sleep(60)
 
-    monkeypatch.setattr(_discrete, "_zero_order_hold_and_method", slow)
+    monkeypatch.setattr(_zoh, "zero_order_hold_and_method", slow)
     text = WINCH.read_text().replace("sample_time = 0.05", "sample_time = 2.0")
     t = time.perf_counter()
     with pytest.raises(StructureError, match="aliases"):

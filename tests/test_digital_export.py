@@ -23,21 +23,18 @@ from scipy.signal import place_poles
 
 from symbolic import derive, parse_design
 from symbolic.cli import main
-from symbolic.derivation.digital import (
-    ControllerRunner,
-    c_controller_files,
-    digital_controller,
-    matched_state,
-    numeric_zero_order_hold,
-    python_controller_source,
-    sampled_data_study,
-)
-from symbolic.derivation.digital import (
-    loop_matrices as _sampled_loop,
-)
+from symbolic.derivation.difference_equations import loop_matrices as _sampled_loop
+from symbolic.derivation.digital import digital_controller
 from symbolic.derivation.numeric import eigenvalue_tolerance, pole_residual
+from symbolic.derivation.zoh import numeric_zero_order_hold
+from symbolic.render.digital_code import c_controller_files, python_controller_source
 from symbolic.render.export import c_identifier_prefix, c_sources, gain_formulas, python_source
 from symbolic.runtime.errors import RenderError
+from symbolic.verification.sampled_data import (
+    ControllerRunner,
+    matched_state,
+    sampled_data_study,
+)
 
 GCC = shutil.which("gcc")
 needs_gcc = pytest.mark.skipif(GCC is None, reason="gcc is not installed (CI has it)")

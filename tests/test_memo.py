@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 
 import symbolic
-from symbolic.derivation.pipeline import derive
+from symbolic import derive
 from symbolic.model.numbers import format_pole
 from symbolic.render import memo as _memo
 from symbolic.render.mathtex import pole_latex

@@ -17,6 +17,7 @@ import numpy as np
 import pytest
 from scipy.signal import place_poles
 
+from symbolic import derive
 from symbolic.analysis.schedule import (
     MAX_SCIPY_CHECKS,
     _check_indices,
@@ -27,7 +28,6 @@ from symbolic.analysis.schedule import (
 )
 from symbolic.cli import main
 from symbolic.derivation.numeric import evaluate_matrix
-from symbolic.derivation.pipeline import derive
 from symbolic.input.design import load_design, parse_design
 from symbolic.runtime.errors import DesignFileError
 

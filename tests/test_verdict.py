@@ -19,6 +19,7 @@ import numpy as np
 import pytest
 
 import symbolic
+from symbolic import derive
 from symbolic.analysis.margins import compare_margins
 from symbolic.analysis.study import simulation_study
 from symbolic.analysis.verdict import (
@@ -29,7 +30,6 @@ from symbolic.analysis.verdict import (
     shipped_margins,
 )
 from symbolic.cli import main
-from symbolic.derivation.pipeline import derive
 from symbolic.verification.shipped import shipped_controller
 
 from .conftest import WORKED, WORKED_FILES

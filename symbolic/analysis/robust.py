@@ -68,9 +68,10 @@ from typing import Any, Literal
 import numpy as np
 import sympy as sp
 
+from ..derivation.checks import eigenvalue_check
 from ..derivation.closed_form import characteristic_coefficients
 from ..derivation.numeric import evaluate_matrix, numeric_ackermann
-from ..derivation.pipeline import derive, eigenvalue_check
+from ..derivation.pipeline import derive
 from ..model.design import Design
 from ..model.labels import gain_label
 from ..model.numbers import format_pole, format_poles

@@ -66,7 +66,8 @@ from sympy.printing.numpy import NumPyPrinter
 from sympy.printing.precedence import PRECEDENCE
 
 from ..derivation.numeric import relative_difference
-from ..derivation.pipeline import derive, describe_zero
+from ..derivation.pipeline import derive
+from ..derivation.structure import describe_zero
 from ..model.design import Design, Parameter
 from ..model.numbers import format_pole, format_poles
 from ..model.results import Derivation
@@ -1429,7 +1430,7 @@ def digital_controller_files(
     """The digital controller of a derivation as C99 or Python, and its self-check.
 
     Returns ``(files, difference, form)``: the generated Python counterpart is run on the
-    measurements of :func:`symbolic.derivation.digital.sampled_data_study` (with the design's input
+    measurements of :func:`symbolic.verification.sampled_data.sampled_data_study` (with the design's input
     limit) and ``difference`` is its largest relative difference from the study's inputs.
 
     Raises
@@ -1437,12 +1438,9 @@ def digital_controller_files(
     DesignFileError
         The design has no ``[discrete] sample_time``, or the form is not available.
     """
-    from ..derivation.digital import (
-        c_controller_files,
-        python_controller_source,
-        sampled_data_study,
-    )
     from ..runtime.errors import RenderError
+    from ..verification.sampled_data import sampled_data_study
+    from .digital_code import c_controller_files, python_controller_source
 
     design = d.design
     dc = getattr(d, "discrete", None)
@@ -1487,7 +1485,7 @@ def digital_controller_files(
 
 
 def _matched(dc, form, design) -> np.ndarray:
-    from ..derivation.digital import matched_state
+    from ..verification.sampled_data import matched_state
 
     n = dc.Phi.shape[0]
     x0 = design.simulation.initial_state or [0.0] * n

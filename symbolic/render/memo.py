@@ -642,7 +642,7 @@ def memo_extended_sections(d: Derivation, *, figures: bool = True) -> tuple[dict
     ]
     first_input = plant.inputs[0]
     if d.integral is not None:
-        from ..derivation.integral import integral_study
+        from ..derivation.integral_study import integral_study
         from . import extended_figures as xf
 
         ia = d.integral
@@ -802,7 +802,7 @@ def memo_extended_sections(d: Derivation, *, figures: bool = True) -> tuple[dict
             "figures": [],
             "comparison": [],
         }
-        from ..derivation.digital import sampled_data_study
+        from ..verification.sampled_data import sampled_data_study
         from . import extended_figures as xf
 
         form = dc.default_form
@@ -901,9 +901,10 @@ def assemble_memo(design: Design) -> tuple[Derivation, MemoDocument]:
     """Derive, simulate, study robustness and render: everything but the PDF and the files."""
     from ..analysis.study import memo_simulation, simulation_study
     from ..analysis.verdict import requirement_table
+    from ..verification.refine import refine_controller_poles
     from .figures import deferred_figures
 
-    d = derive(design)
+    d = derive(design, refine=refine_controller_poles)
     with deferred_figures() as batch:  # every figure is drawn by one set of workers
         study = simulation_study(d)
         study_ctx, figures = memo_simulation(d, study)

@@ -1,6 +1,6 @@
 """Poles from specifications, refined until the shipped loop's simulated step meets them.
 
-The dominant pair of :func:`symbolic.derivation.specs.dominant_pair` meets every specification under
+The dominant pair of :func:`symbolic.derivation.dominant.dominant_pair` meets every specification under
 the second-order approximation.  The loop that is shipped has more poles (the remaining
 controller poles, the observer, the integral pole), possibly plant zeros and a sample time,
 so its step response can miss a specification the approximation meets (a 3-state motor:
@@ -15,7 +15,7 @@ are judged on, without the input limit), and, while a specification is missed,
   rise or peak time is too long (1 % farther, so that the step lands inside),
 
 with the remaining, observer and integral poles following their rules, and rounds the pair
-outward to three significant figures as :func:`~symbolic.derivation.specs.dominant_pair` does.  It stops
+outward to three significant figures as :func:`~symbolic.derivation.dominant.dominant_pair` does.  It stops
 when every specification is met, or after :data:`MAX_STEPS` steps with the best pair found
 (the smallest relative miss), and says so.  The iteration is a fixed-point correction of the
 second-order model's error (common practice, no source); convergence is not guaranteed, which
@@ -31,17 +31,16 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-import sympy as sp
 
+from ..derivation.dominant import round_sig3
+from ..derivation.specs import damping_ratio_from_overshoot
 from ..runtime import sidecar as _sidecar
 
 __all__ = [
     "MAX_STEPS",
     "Refinement",
-    "exact_pair",
     "measure_shipped_step",
     "refine_controller_poles",
-    "refined_pair",
 ]
 
 #: Largest number of corrections of the dominant pair.
@@ -138,8 +137,6 @@ def _misses(spec, measured: dict | None) -> dict[str, float]:
 
 
 def _corrected(spec, sigma: float, omega_d: float, measured: dict, misses: dict):
-    from ..derivation.specs import damping_ratio_from_overshoot, round_sig3
-
     wn = math.hypot(sigma, omega_d)
     zeta = sigma / wn
     if "overshoot_percent" in misses:
@@ -261,34 +258,3 @@ def refine_controller_poles(design, ctrl, num, pole_sets):
     _c, _o, choice = pole_sets(sigma, omega_d)
     choice = dataclasses.replace(choice, rule=choice.rule + "; dominant pair " + sentence)
     return choice, refinement
-
-
-def refined_pair(spec, pair, sigma: float, omega_d: float):
-    """The dominant pair record at the refined place, its predictions recomputed."""
-    from ..derivation.specs import step_predictions
-
-    predicted = _sidecar.call(step_predictions, spec, sigma, omega_d)  # root finding: SciPy
-    rows = tuple(
-        dataclasses.replace(
-            f,
-            predicted=predicted.get(f.spec, f.predicted),
-            passed=predicted.get(f.spec, f.predicted) <= f.requested * (1 + 1e-9),
-        )
-        for f in pair.formulas
-    )
-    natural = math.hypot(sigma, omega_d)
-    return dataclasses.replace(
-        pair,
-        damping_ratio=sigma / natural,
-        natural_frequency=natural,
-        real_part=sigma,
-        damped_frequency=omega_d,
-        poles=(complex(-sigma, omega_d), complex(-sigma, -omega_d)),
-        formulas=rows,
-    )
-
-
-def exact_pair(sigma: float, omega_d: float) -> tuple[sp.Expr, sp.Expr]:
-    """``-σ ± jω_d`` as exact numbers (from the shortest repr of each float)."""
-    s, w = sp.Rational(repr(float(sigma))), sp.Rational(repr(float(omega_d)))
-    return (-s + sp.I * w, -s - sp.I * w)

@@ -4,7 +4,7 @@ A design file asks for one controller: a full-order or reduced-order observer, a
 gain or integral action, in continuous time or sampled at ``[discrete] sample_time``.  Every
 verdict of gainsmith (the simulated specifications, the actuator limit, stability over the
 parameter ranges, the margins) is computed on *that* controller, written in one layout
-(:class:`symbolic.derivation.digital.DifferenceEquations`)
+(:class:`symbolic.derivation.difference_equations.DifferenceEquations`)
 
 .. math::  u_d = C_c \\xi + D_{cy} y + D_{cr} r,\\qquad u = \\mathrm{sat}(u_d),
 
@@ -49,17 +49,14 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ..derivation.digital import (
-    DifferenceEquations,
-    DiscreteIntegral,
-    continuous_equations,
-    controller_equations,
-    numeric_zero_order_hold,
-)
+from ..derivation.difference_equations import DifferenceEquations, controller_equations
+from ..derivation.extensions_in_z import DiscreteIntegral
 from ..derivation.numeric import numeric_ackermann, scipy_placement
-from ..derivation.reduced import coordinate_change, observer_matrices
+from ..derivation.reduced_coordinates import coordinate_change, observer_matrices
+from ..derivation.zoh import numeric_zero_order_hold
 from ..model.results import Derivation, NumericPlant
 from ..runtime.errors import StructureError
+from .sampled_data import continuous_equations
 
 if TYPE_CHECKING:  # the simulator loads SciPy: imported where a run needs it
     from .stepping import Response
