@@ -73,6 +73,42 @@ def test_ogata_example_10_1_ackermann():
     assert d.passed
 
 
+def test_pole_rules_are_dispatched_by_name(monkeypatch):
+    """Each pole rule is one registered function; the design file names it, and the name is
+    the origin recorded in the PoleChoice (the poles of K. Ogata, Modern Control Engineering,
+    5th ed., 2010, Example 10-1, from memory)."""
+    from symbolic.derivation import pole_rules
+    from symbolic.model.results import PoleChoice
+
+    design = parse_design(
+        b"""
+[plant]
+A = [[0, 1, 0], [0, 0, 1], [-1, -5, -6]]
+B = [[0], [0], [1]]
+C = [[1, 0, 0]]
+[controller]
+poles = ["-2+4j", "-2-4j", "-10"]
+[observer]
+speed_factor = 4
+""",
+        "rules.toml",
+    )
+    assert pole_rules.requested_rule("controller", design) == "given"
+    assert pole_rules.requested_rule("observer", design) == "speed factor"
+    ctrl = pole_rules.select_controller_poles(design)
+    obs = pole_rules.select_observer_poles(design, ctrl)
+    assert (ctrl.origin, obs.origin) == ("given", "speed factor")
+    assert obs.poles == tuple(sp.expand(4 * p) for p in ctrl.poles)
+    # a new rule is one function registered under a name
+    own = PoleChoice((-3, -4, -5), "own", "a test rule", (1, 12, 47, 60))  # (s+3)(s+4)(s+5)
+    monkeypatch.setitem(pole_rules.RULES["controller"], "own", lambda design: own)
+    assert pole_rules.choose("controller", design, rule="own") is own
+    with pytest.raises(ValueError, match="unknown controller pole rule 'none'.*'given'"):
+        pole_rules.choose("controller", design, rule="none")
+    with pytest.raises(ValueError, match="unknown kind of poles"):
+        pole_rules.requested_rule("plant", design)
+
+
 def test_franklin_oscillator_closed_form_gains():
     # G. F. Franklin, J. D. Powell, A. Emami-Naeini, Feedback Control of Dynamic
     # Systems, 7th ed., Pearson, 2015, Sec. 7.5 and 7.7, the undamped oscillator

@@ -215,8 +215,9 @@ def loop_matrices(eq: DifferenceEquations, Phi, Gamma, C, D) -> tuple[np.ndarray
     """Plant and controller at the samples, state [x; ξ]: ``w⁺ = F w + G r``.
 
     The same interconnection in continuous time (``w' = F w + G r``) with A, B in place of
-    Φ, Γ and continuous controller equations (:func:`continuous_equations`); the
-    anti-windup term is inactive in the linear loop.
+    Φ, Γ and continuous controller equations
+    (:func:`symbolic.verification.sampled_data.continuous_equations`); the anti-windup term is
+    inactive in the linear loop.
     """
     m = Gamma.shape[1]
     Mi = np.linalg.inv(np.eye(m) - eq.output_measurement @ D)

@@ -169,14 +169,16 @@ def digital_controller(
     sample_time : number, optional
         Seconds; default ``[discrete] sample_time`` of the design.
     budget : float, optional
-        Seconds for the closed forms; never more than :data:`~symbolic.derivation.gains_in_z.CLOSED_FORM_SECONDS`, and that
-        limit also applies when the design's budget is zero (the exponential of a symbolic
-        matrix may not finish).
+        Seconds for the closed forms; never more than
+        :data:`~symbolic.derivation.gains_in_z.CLOSED_FORM_SECONDS`, and that limit also
+        applies when the design's budget is zero (the exponential of a symbolic matrix may
+        not finish).
     closed_form : bool, optional
         False skips the symbolic stages (numbers only, no child process).
     pending : BoundedChild, optional
-        The closed forms already started by :func:`~symbolic.derivation.gains_in_z.start_closed_forms` for the same design,
-        poles and sample time (default: started here).
+        The closed forms already started by
+        :func:`~symbolic.derivation.gains_in_z.start_closed_forms` for the same design, poles
+        and sample time (default: started here).
 
     Returns
     -------

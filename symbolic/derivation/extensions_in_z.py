@@ -20,7 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..model.numbers import format_pole
-from ..model.results import Check
+from ..model.results import Check, Derivation
 from ..model.tolerances import GAIN_TOLERANCE
 from ..runtime.errors import StructureError
 from .checks import eigenvalue_check
@@ -91,7 +91,7 @@ class DiscreteReduced:
     estimate_from_output: np.ndarray  # T⁻¹ D̂
 
 
-def integral_in_z(d, Phi, Gamma, C, D, T, idx, zc, checks) -> DiscreteIntegral:
+def integral_in_z(d: Derivation, Phi, Gamma, C, D, T, idx, zc, checks) -> DiscreteIntegral:
     """``[K, k_i]`` placing e^{sT} of the controller poles and the integral pole."""
     design = d.design
     n, m = Gamma.shape
@@ -158,7 +158,7 @@ def integral_in_z(d, Phi, Gamma, C, D, T, idx, zc, checks) -> DiscreteIntegral:
     )
 
 
-def reduced_in_z(d, Phi, Gamma, C, T, checks, notes) -> DiscreteReduced | None:
+def reduced_in_z(d: Derivation, Phi, Gamma, C, T, checks, notes) -> DiscreteReduced | None:
     """The minimum-order observer of the sampled plant (poles e^{sT} of the reduced ones)."""
     design = d.design
     n, p = Phi.shape[0], C.shape[0]

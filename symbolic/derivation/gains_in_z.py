@@ -144,10 +144,12 @@ def start_closed_forms(
     design, controller_poles, observer_poles, *, sample_time=None, budget: float | None = None
 ) -> BoundedChild | None:
     """Start Φ, Γ and the gains in z in closed form, in a bounded child (None when there is
-    no valid sample time: :func:`digital_controller` then reports it).
+    no valid sample time: :func:`~symbolic.derivation.digital.digital_controller` then
+    reports it).
 
     :func:`symbolic.derive` starts it beside its own symbolic stage and hands it to
-    :func:`digital_controller` (``pending``), so that the two run at the same time.
+    :func:`~symbolic.derivation.digital.digital_controller` (``pending``), so that the two run
+    at the same time.
     """
     if sample_time is None:
         if design.discrete is None:

@@ -37,7 +37,7 @@ from .numeric import evaluate_matrix
 from .pole_rules import select_controller_poles, select_observer_poles, shipped_pole_sets
 from .structure import plant_structure, values_text
 
-__all__ = ["COMPENSATOR_CLOSED_FORM_MAX_ORDER", "RefineHook", "derive"]
+__all__ = ["COMPENSATOR_CLOSED_FORM_MAX_ORDER", "RefineHook", "closed_form_stage", "derive"]
 
 #: Closed-form transfer function of the compensator up to this order.
 COMPENSATOR_CLOSED_FORM_MAX_ORDER = 3
@@ -51,6 +51,8 @@ RefineHook = Callable[[Design, PoleChoice, NumericPlant, Callable], tuple[PoleCh
 # The symbolic stages
 # --------------------------------------------------------------------------
 def closed_form_stage(design: Design, ctrl: PoleChoice, obs: PoleChoice) -> cf.ClosedForms:
+    """K, L, the structure matrices and the reference gain in closed form (the first stage of
+    the bounded child)."""
     p = design.plant
     return cf.closed_forms(
         sp.Matrix(p.A),

@@ -231,7 +231,7 @@ def remaining_poles(pair: DominantPair, count: int, factor: float = 5.0) -> tupl
     >>> from symbolic.model.specifications import Specifications
     >>> pair = dominant_pair(Specifications(settling_time=2.0))
     >>> remaining_poles(pair, 2)
-    ((-10+0j), (-11+0j))
+    ((-10.8+0j), (-11.9+0j))
     """
     if isinstance(count, bool) or not isinstance(count, int) or count < 0:
         raise ValueError(f"count must be a non-negative integer, got {count!r}")
