@@ -183,6 +183,9 @@ def _text(spec, measured: dict | None) -> str:
 def refine_controller_poles(design, ctrl, num, pole_sets):
     """Refine a specification-based :class:`~symbolic.model.results.PoleChoice`.
 
+    The ``refine`` hook of :func:`symbolic.derivation.pipeline.derive`, which
+    :func:`symbolic.derive` passes.
+
     Parameters
     ----------
     design : Design
@@ -193,7 +196,8 @@ def refine_controller_poles(design, ctrl, num, pole_sets):
     pole_sets : callable
         ``pole_sets(sigma, omega_d) -> (controller_poles, shipped_observer_poles, choice)``:
         the numeric s-plane poles of the shipped controller (the integral pole last) and the
-        PoleChoice of the controller, by the design's rules, for a dominant pair.
+        PoleChoice of the controller, by the design's rules, for a dominant pair
+        (:func:`symbolic.derivation.pole_rules.shipped_pole_sets`).
 
     Returns
     -------
