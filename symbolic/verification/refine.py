@@ -241,24 +241,28 @@ def refine_controller_poles(design, ctrl, num, pole_sets):
     if not met:
         _score, sigma, omega_d, measured = best
         met = best[0] == 0.0
-    if steps == 0 and met:
-        sentence = (
-            "checked on the simulated step of the shipped loop (matched estimate, no input"
-            f" limit): {_text(spec, first)}, every specification met"
-        )
-    elif met:
-        sentence = (
-            f"refined in {steps} step(s) on the simulated step of the shipped loop (matched"
-            f" estimate, no input limit): the second-order pair gave {_text(spec, first)}; the"
-            f" refined pair -{sigma:g} ± {omega_d:g}j gives {_text(spec, measured)}"
-        )
-    else:
-        sentence = (
-            f"NOT MET on the simulated step of the shipped loop after {steps} refinement(s):"
-            f" the second-order pair gave {_text(spec, first)}; the best pair found,"
-            f" -{sigma:g} ± {omega_d:g}j, gives {_text(spec, measured)}"
-        )
+    sentence = _sentence(spec, steps, met, first, measured, sigma, omega_d)
     refinement = Refinement(steps, met, sigma, omega_d, first or {}, measured or {}, sentence)
     _c, _o, choice = pole_sets(sigma, omega_d)
     choice = dataclasses.replace(choice, rule=choice.rule + "; dominant pair " + sentence)
     return choice, refinement
+
+
+def _sentence(spec, steps: int, met: bool, first, measured, sigma: float, omega_d: float) -> str:
+    """What the refinement did, in one sentence, for the pole rule and the memo."""
+    if steps == 0 and met:
+        return (
+            "checked on the simulated step of the shipped loop (matched estimate, no input"
+            f" limit): {_text(spec, first)}, every specification met"
+        )
+    if met:
+        return (
+            f"refined in {steps} step(s) on the simulated step of the shipped loop (matched"
+            f" estimate, no input limit): the second-order pair gave {_text(spec, first)}; the"
+            f" refined pair -{sigma:g} ± {omega_d:g}j gives {_text(spec, measured)}"
+        )
+    return (
+        f"NOT MET on the simulated step of the shipped loop after {steps} refinement(s):"
+        f" the second-order pair gave {_text(spec, first)}; the best pair found,"
+        f" -{sigma:g} ± {omega_d:g}j, gives {_text(spec, measured)}"
+    )
