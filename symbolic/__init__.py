@@ -51,7 +51,7 @@ _LAZY = {
     "ReferenceGainResult": "model.results",
     "SeparatedLoop": "model.results",
     "StructureReport": "model.results",
-    "derive": "derivation.pipeline",
+    "derive": "api",
     "Design": "model.design",
     "Parameter": "model.design",
     "Plant": "model.design",
@@ -61,7 +61,7 @@ _LAZY = {
 }
 
 if TYPE_CHECKING:  # pragma: no cover
-    from .derivation.pipeline import derive
+    from .api import derive
     from .input.reader import load_design, parse_design
     from .model.design import Design, Parameter, Plant, Signal
     from .model.results import (

@@ -24,9 +24,9 @@ from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 from scipy.signal import place_poles
 
+from symbolic import derive
 from symbolic.analysis.claims import ClaimReport, ClaimVerdict, check_claims
 from symbolic.cli import main
-from symbolic.derivation.pipeline import derive
 from symbolic.input.reader import parse_design
 from symbolic.model.design import Claims
 from symbolic.runtime.errors import DesignFileError

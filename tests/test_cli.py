@@ -37,8 +37,8 @@ from scipy.optimize import linear_sum_assignment
 import symbolic
 from symbolic import load_design
 from symbolic.cli import main
+from symbolic.derivation import gains as _gains
 from symbolic.derivation import numeric as _numeric
-from symbolic.derivation import pipeline as _derive
 
 from .conftest import ROOT, WORKED_FILES
 
@@ -570,8 +570,8 @@ def test_zero_gain_tolerance_fails_the_scipy_comparison(monkeypatch, worked_json
     # iterative place_poles differ in the last bits: that check fails and exit is 1.
     # (The same tolerance also governs the reference-gain checks; the SciPy comparison's
     # tolerance, widened on hard plants by gain_tolerance, is pinned to zero too.)
-    monkeypatch.setattr(_derive, "GAIN_TOLERANCE", 0.0)
-    monkeypatch.setattr(_derive, "gain_tolerance", lambda reference, other: 0.0)
+    monkeypatch.setattr(_gains, "GAIN_TOLERANCE", 0.0)
+    monkeypatch.setattr(_gains, "gain_tolerance", lambda reference, other: 0.0)
     code, out, err = run_main("derive", "--json", ROOT / "worked_designs" / "belt_drive.toml")
     data = json.loads(out)
     failed = [c for c in data["checks"] if c["passed"] is False]

@@ -15,7 +15,7 @@ from scipy.optimize import linear_sum_assignment
 from scipy.signal import place_poles
 
 import symbolic
-from symbolic.derivation.pipeline import derive
+from symbolic import derive
 from symbolic.input.reader import parse_design
 
 from .conftest import WORKED_FILES
@@ -71,6 +71,42 @@ def test_ogata_example_10_1_ackermann():
     assert d.K.closed_form == sp.Matrix([[199, 55, 8]])
     np.testing.assert_allclose(d.K.value, [[199, 55, 8]], rtol=1e-12)
     assert d.passed
+
+
+def test_pole_rules_are_dispatched_by_name(monkeypatch):
+    """Each pole rule is one registered function; the design file names it, and the name is
+    the origin recorded in the PoleChoice (the poles of K. Ogata, Modern Control Engineering,
+    5th ed., 2010, Example 10-1, from memory)."""
+    from symbolic.derivation import pole_rules
+    from symbolic.model.results import PoleChoice
+
+    design = parse_design(
+        b"""
+[plant]
+A = [[0, 1, 0], [0, 0, 1], [-1, -5, -6]]
+B = [[0], [0], [1]]
+C = [[1, 0, 0]]
+[controller]
+poles = ["-2+4j", "-2-4j", "-10"]
+[observer]
+speed_factor = 4
+""",
+        "rules.toml",
+    )
+    assert pole_rules.requested_rule("controller", design) == "given"
+    assert pole_rules.requested_rule("observer", design) == "speed factor"
+    ctrl = pole_rules.select_controller_poles(design)
+    obs = pole_rules.select_observer_poles(design, ctrl)
+    assert (ctrl.origin, obs.origin) == ("given", "speed factor")
+    assert obs.poles == tuple(sp.expand(4 * p) for p in ctrl.poles)
+    # a new rule is one function registered under a name
+    own = PoleChoice((-3, -4, -5), "own", "a test rule", (1, 12, 47, 60))  # (s+3)(s+4)(s+5)
+    monkeypatch.setitem(pole_rules.RULES["controller"], "own", lambda design: own)
+    assert pole_rules.choose("controller", design, rule="own") is own
+    with pytest.raises(ValueError, match="unknown controller pole rule 'none'.*'given'"):
+        pole_rules.choose("controller", design, rule="none")
+    with pytest.raises(ValueError, match="unknown kind of poles"):
+        pole_rules.requested_rule("plant", design)
 
 
 def test_franklin_oscillator_closed_form_gains():
@@ -257,7 +293,7 @@ def test_factors_without_real_zeros_are_not_conditions():
     ],
 )
 def test_has_no_real_zero(factor, real_zero):
-    from symbolic.derivation.pipeline import has_no_real_zero
+    from symbolic.derivation.structure import has_no_real_zero
     from symbolic.input.expressions import parse_expression
 
     names = {n: sp.Symbol(n, real=True) for n in "ab"}
@@ -591,13 +627,13 @@ def test_a_failing_derivation_leaves_no_extension_child_behind(monkeypatch):
     import multiprocessing as mp
     import time
 
-    from symbolic.derivation import digital as _discrete
+    from symbolic.derivation import zoh as _zoh
     from symbolic.runtime.errors import StructureError
 
     def slow(*args):
         time.sleep(60)
 
-    monkeypatch.setattr(_discrete, "_zero_order_hold_and_method", slow)
+    monkeypatch.setattr(_zoh, "zero_order_hold_and_method", slow)
     text = WINCH.read_text().replace("sample_time = 0.05", "sample_time = 2.0")
     t = time.perf_counter()
     with pytest.raises(StructureError, match="aliases"):

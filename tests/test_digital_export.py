@@ -21,26 +21,24 @@ import pytest
 import sympy as sp
 from scipy.signal import place_poles
 
-from symbolic import derive, parse_design
+from symbolic import derive
 from symbolic.cli import main
-from symbolic.derivation.digital import (
-    ControllerRunner,
-    c_controller_files,
-    digital_controller,
-    matched_state,
-    numeric_zero_order_hold,
-    python_controller_source,
-    sampled_data_study,
-)
-from symbolic.derivation.digital import (
-    loop_matrices as _sampled_loop,
-)
+from symbolic.derivation.difference_equations import loop_matrices as _sampled_loop
+from symbolic.derivation.digital import digital_controller
 from symbolic.derivation.numeric import eigenvalue_tolerance, pole_residual
+from symbolic.derivation.zoh import numeric_zero_order_hold
+from symbolic.input.reader import parse_design
 from symbolic.render.c_code import c_sources
 from symbolic.render.code_printers import c_identifier_prefix
+from symbolic.render.digital_code import c_controller_files, python_controller_source
 from symbolic.render.gain_formulas import gain_formulas
 from symbolic.render.python_code import python_source
 from symbolic.runtime.errors import RenderError
+from symbolic.verification.sampled_data import (
+    ControllerRunner,
+    matched_state,
+    sampled_data_study,
+)
 
 GCC = shutil.which("gcc")
 needs_gcc = pytest.mark.skipif(GCC is None, reason="gcc is not installed (CI has it)")
@@ -570,8 +568,8 @@ def test_json_of_the_digital_controller_places_the_mapped_poles(capsys):
     dc = data["discrete"]
     T = dc["sample_time"]
     Phi, Gamma = np.array(dc["Phi"]), np.array(dc["Gamma"])
-    from symbolic import load_design
     from symbolic.derivation.numeric import evaluate_matrix
+    from symbolic.input.reader import load_design
 
     design = load_design(path)
     C, D = (evaluate_matrix(M, design.values) for M in (design.plant.C, design.plant.D))

@@ -19,18 +19,14 @@ from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
 from symbolic import DesignFileError, GainsmithWarning, StructureError, derive, parse_design
-from symbolic.derivation.digital import (
-    ControllerRunner,
-    c_controller_files,
-    closed_loop_bandwidth,
-    digital_controller,
-    discrete_feedback_gain,
-    numeric_zero_order_hold,
-    sampled_data_study,
-    zero_order_hold,
-)
+from symbolic.derivation.digital import digital_controller
+from symbolic.derivation.gains_in_z import discrete_feedback_gain
 from symbolic.derivation.numeric import scipy_placement
+from symbolic.derivation.systems import closed_loop_bandwidth
+from symbolic.derivation.zoh import numeric_zero_order_hold, zero_order_hold
+from symbolic.render.digital_code import c_controller_files
 from symbolic.render.report import derivation_json, derivation_summary
+from symbolic.verification.sampled_data import ControllerRunner, sampled_data_study
 
 T = sp.Symbol("T", positive=True)
 
@@ -111,7 +107,7 @@ def test_zoh_by_interpolation_matches_scipy(rates, coupling, value, sample):
     Putzer's closed form evaluated at c equals ``scipy.linalg.expm`` of the augmented matrix."""
     import scipy.linalg
 
-    from symbolic.derivation.digital import _split_roots
+    from symbolic.derivation.zoh import split_roots
 
     c = sp.Symbol("c", positive=True)
     n = len(rates)
@@ -124,7 +120,7 @@ def test_zoh_by_interpolation_matches_scipy(rates, coupling, value, sample):
     B = sp.Matrix([1] * n)
     Ts = sp.Rational(sample, 100)
     M = A.row_join(B).col_join(sp.zeros(1, n + 1)) * Ts
-    assert _split_roots(M) is not None  # the interpolation path is the one under test
+    assert split_roots(M) is not None  # the interpolation path is the one under test
     Phi, Gamma = zero_order_hold(A, B, Ts)
     An = np.array(A.subs(c, value), dtype=float)
     E = scipy.linalg.expm(np.block([[An, np.ones((n, 1))], [np.zeros((1, n + 1))]]) * float(Ts))
@@ -137,16 +133,16 @@ def test_zoh_by_interpolation_matches_scipy(rates, coupling, value, sample):
 def test_zoh_of_an_oscillator_falls_back_to_the_jordan_form():
     """Complex poles do not split over the parameters: SymPy's exponential is used, and its
     closed form still agrees with SciPy."""
-    from symbolic.derivation.digital import (
+    from symbolic.derivation.zoh import (
         ZOH_BY_JORDAN_FORM,
-        _split_roots,
-        _zero_order_hold_and_method,
+        split_roots,
+        zero_order_hold_and_method,
     )
 
     k = sp.Symbol("k", positive=True)
     A, B = sp.Matrix([[0, 1], [-k, 0]]), sp.Matrix([0, 1])
-    assert _split_roots(A.row_join(B).col_join(sp.zeros(1, 3))) is None
-    Phi, Gamma, method = _zero_order_hold_and_method(A, B, sp.Rational(1, 10))
+    assert split_roots(A.row_join(B).col_join(sp.zeros(1, 3))) is None
+    Phi, Gamma, method = zero_order_hold_and_method(A, B, sp.Rational(1, 10))
     assert method == ZOH_BY_JORDAN_FORM
     ref = scipy.signal.cont2discrete(
         (

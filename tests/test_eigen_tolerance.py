@@ -18,6 +18,7 @@ import numpy as np
 import pytest
 import sympy as sp
 
+from symbolic import derive
 from symbolic.derivation import numeric as _numeric
 from symbolic.derivation.numeric import (
     DOUBLE_PRECISION_CEILING,
@@ -26,7 +27,6 @@ from symbolic.derivation.numeric import (
     eigenvalue_tolerance,
     pole_residual,
 )
-from symbolic.derivation.pipeline import derive
 from symbolic.input.reader import parse_design
 
 #: The tolerance of the eigenvalue check before this change (simple poles).

@@ -23,9 +23,9 @@ import pytest
 import sympy as sp
 from scipy.signal import place_poles
 
+from symbolic import derive
 from symbolic.cli import main
 from symbolic.derivation.numeric import eigenvalue_tolerance, evaluate_matrix, pole_residual
-from symbolic.derivation.pipeline import derive
 from symbolic.input.reader import load_design, parse_design
 from symbolic.render.c_code import c_sources
 from symbolic.render.code_comments import comment_text

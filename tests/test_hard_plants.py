@@ -29,7 +29,7 @@ couplings (condition number ε^−(n−1) exactly), similarity scalings T A T⁻
 with T = diag(1, 10ᵏ, 10²ᵏ, …), a pole nearly cancelled by a zero, a plant with
 time constants 1e5 apart, and the two six-state blow-up plants of
 ``tests/hostile/heavy_plants.py``.  The 1e8 threshold is the engine's
-(``ILL_CONDITIONED`` in ``symbolic/_derive.py``; common practice, no source).
+(``ILL_CONDITIONED`` in ``symbolic/model/tolerances.py``; common practice, no source).
 """
 
 from __future__ import annotations
@@ -503,8 +503,8 @@ def test_numerically_rank_deficient_is_not_called_uncontrollable():
 def test_gain_tolerance_widens_only_with_the_spread_of_two_numeric_methods():
     """Well conditioned: exactly GAIN_TOLERANCE.  Condition number 1e12: wider, yet a gain
     1e-4 off still fails (the closed form is checked, not waved through)."""
+    from symbolic.derivation.checks import gain_tolerance
     from symbolic.derivation.numeric import numeric_ackermann, relative_difference
-    from symbolic.derivation.pipeline import gain_tolerance
     from symbolic.model.tolerances import GAIN_TOLERANCE
 
     for plant, wide in ((weak_chain(3, 0.1), False), (weak_chain(4, 1e-4), True)):
@@ -522,7 +522,7 @@ def test_gain_tolerance_widens_only_with_the_spread_of_two_numeric_methods():
 def test_compensator_check_is_by_frequency_response():
     """Stiff plant: coefficients of the compensator span many decades, its values on
     s = jω do not; a numerator 1e-5 off fails the check."""
-    from symbolic.derivation.pipeline import frequency_response_difference
+    from symbolic.derivation.checks import frequency_response_difference
     from symbolic.model.tolerances import COMPENSATOR_TOLERANCE
 
     stiff = next(p for p in OTHER_HARD if p.name.startswith("time constants"))
@@ -596,7 +596,7 @@ def test_radicals_do_not_fail_a_correct_design(text):
 def test_frequency_response_check_of_a_zero_compensator():
     """K = 0 (the plant already has the requested poles): the compensator is zero; the
     check compares absolutely instead of dividing by zero (found by a random plant)."""
-    from symbolic.derivation.pipeline import frequency_response_difference
+    from symbolic.derivation.checks import frequency_response_difference
 
     F, L, K = np.array([[-3.0]]), np.array([[2.0]]), np.zeros((1, 1))
     assert frequency_response_difference(np.array([0.0]), np.array([1.0, 3.0]), F, L, K) == 0.0

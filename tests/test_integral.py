@@ -18,12 +18,9 @@ from symbolic.derivation.closed_form import (
     characteristic_coefficients,
     desired_coefficients,
 )
-from symbolic.derivation.integral import (
-    augmented_pair,
-    default_integral_pole,
-    integral_study,
-    mismatch_cases,
-)
+from symbolic.derivation.integral_forms import augmented_pair
+from symbolic.derivation.integral_study import integral_study, mismatch_cases
+from symbolic.derivation.pole_rules import default_integral_pole
 from symbolic.render.report import derivation_json
 
 

@@ -14,13 +14,12 @@ import numpy as np
 import pytest
 
 import symbolic
+from symbolic import derive
 from symbolic.cli import main
-from symbolic.derivation.pipeline import derive
-from symbolic.model.numbers import format_pole
+from symbolic.model.numbers import format_number, format_pole
 from symbolic.render.mathtex import pole_latex
 from symbolic.render.memo import assemble_memo, build_memo, write_memo
 from symbolic.render.memo_design import memo_date
-from symbolic.render.report import format_number
 
 from .conftest import ROOT, WORKED, WORKED_FILES, require_tex, tex_available
 

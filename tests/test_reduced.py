@@ -11,7 +11,8 @@ import scipy.integrate
 import sympy as sp
 
 from symbolic import DesignFileError, StructureError, derive, parse_design
-from symbolic.derivation.reduced import coordinate_change, reduced_observer_poles
+from symbolic.derivation.pole_rules import reduced_observer_poles
+from symbolic.derivation.reduced_coordinates import coordinate_change
 from symbolic.render.report import derivation_json, derivation_summary
 
 

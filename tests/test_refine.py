@@ -16,8 +16,8 @@ import pytest
 import scipy.signal
 
 import symbolic
+from symbolic import derive
 from symbolic.cli import main
-from symbolic.derivation.pipeline import derive
 
 #: Invented demo: a small spindle positioner, DC motor with armature inductance (3 states).
 MOTOR = """\

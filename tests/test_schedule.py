@@ -17,10 +17,10 @@ import numpy as np
 import pytest
 from scipy.signal import place_poles
 
+from symbolic import derive
 from symbolic.analysis.schedule import MAX_SCIPY_CHECKS, check_indices
 from symbolic.cli import main
 from symbolic.derivation.numeric import evaluate_matrix
-from symbolic.derivation.pipeline import derive
 from symbolic.input.reader import load_design, parse_design
 from symbolic.render.schedule_code import gain_schedule
 from symbolic.render.schedule_pages import schedule_csv, schedule_summary

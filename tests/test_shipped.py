@@ -26,8 +26,8 @@ import scipy.linalg
 from scipy.optimize import linear_sum_assignment
 
 import symbolic
+from symbolic import derive
 from symbolic.analysis.study import simulation_study
-from symbolic.derivation.pipeline import derive
 from symbolic.verification.shipped import closed_loop
 from symbolic.verification.shipped_assembly import (
     build_controller,

@@ -109,7 +109,8 @@ def test_errors_and_warnings_from_the_sidecar_are_those_of_a_local_call():
         import json, sys, warnings
         from symbolic.runtime import sidecar as _sidecar
         from symbolic.runtime.errors import GainsmithWarning, SpecificationError
-        from symbolic.derivation.specs import Specifications, dominant_pair
+        from symbolic.derivation.dominant import dominant_pair
+        from symbolic.model.specifications import Specifications
         assert _sidecar.start()
         # overshoot so large that the damping ratio leaves the rise-time fit: a warning
         with warnings.catch_warnings(record=True) as caught:

@@ -10,10 +10,10 @@ import numpy as np
 import pytest
 
 import symbolic
+from symbolic import derive
 from symbolic.analysis.study import SPEED_FACTORS, simulation_study
 from symbolic.cli import main
-from symbolic.derivation.pipeline import derive
-from symbolic.derivation.specs import second_order_step_metrics
+from symbolic.derivation.second_order import second_order_step_metrics
 from symbolic.render.study_pages import simulation_json
 from symbolic.verification.metrics import step_metrics
 

@@ -26,26 +26,30 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import signal
 
+from symbolic.derivation import dominant as _dominant
+from symbolic.derivation import pole_rules as _pole_rules
+from symbolic.derivation import second_order as _second_order
 from symbolic.derivation import specs as _specs
+from symbolic.derivation.dominant import dominant_pair
+from symbolic.derivation.pole_rules import remaining_poles
+from symbolic.derivation.second_order import second_order_step_metrics
 from symbolic.derivation.specs import (
     DEFAULT_DAMPING_RATIO,
     DominantPair,
-    Specifications,
     SpecRegion,
     damping_ratio_from_overshoot,
-    dominant_pair,
     normalized_rise_time,
     overshoot_from_damping_ratio,
-    remaining_poles,
-    second_order_step_metrics,
     settling_real_part,
 )
+from symbolic.model.specifications import Specifications
 from symbolic.runtime.errors import GainsmithWarning, SpecificationError
 
 
 def test_all_names_exist():
-    for name in _specs.__all__:
-        assert hasattr(_specs, name), name
+    for module in (_specs, _dominant, _second_order, _pole_rules):
+        for name in module.__all__:
+            assert hasattr(module, name), (module.__name__, name)
 
 
 # --------------------------------------------------------------------------

@@ -19,12 +19,12 @@ import numpy as np
 import pytest
 
 import symbolic
+from symbolic import derive
 from symbolic.analysis.margins import compare_margins
 from symbolic.analysis.shipped_stability import range_stability, shipped_loop, shipped_margins
 from symbolic.analysis.study import simulation_study
 from symbolic.analysis.verdict import ESTIMATOR_SPEED_RATIO, requirement_table
 from symbolic.cli import main
-from symbolic.derivation.pipeline import derive
 from symbolic.verification.shipped_assembly import shipped_controller
 
 from .conftest import WORKED, WORKED_FILES

@@ -63,8 +63,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.optimize import brentq
 
-from ..derivation.numeric import frequency_response
-from ..derivation.pipeline import eigenvalue_check
+from ..derivation.checks import eigenvalue_check
+from ..derivation.systems import frequency_response
 from ..model.results import Check, Derivation
 from .broken_loop import (
     AXIS_TOLERANCE,

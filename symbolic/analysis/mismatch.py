@@ -31,7 +31,7 @@ from dataclasses import dataclass
 import numpy as np
 import sympy as sp
 
-from ..derivation.pipeline import eigenvalue_check
+from ..derivation.checks import eigenvalue_check
 from ..model.results import Check, Derivation
 from ..runtime.errors import DesignFileError
 from .parameter_grid import ParameterGrid, evaluate_on_grid, parameter_grid

@@ -26,7 +26,7 @@ from ..verification.shipped_assembly import (
 )
 from ..verification.shipped_simulation import simulate_controller
 from ..verification.step_cases import MISMATCH_FRACTION
-from ..verification.step_results import LoopModel, Response, StepMetrics
+from ..verification.step_results import Response, StepMetrics
 from .claims import check_claims
 from .requirements import RequirementTable
 from .verdict import requirement_table
@@ -36,7 +36,6 @@ __all__ = [
     "SimulationRun",
     "SimulationStudy",
     "SpecVerdict",
-    "loop_model",
     "simulation_run",
     "simulation_study",
     "SPEED_FACTORS",
@@ -96,25 +95,6 @@ class SimulationStudy:
         """Every specification met on the shipped loop (the whole verdict is
         :func:`symbolic.analysis.verdict.requirement_table`)."""
         return all(v.passed for v in self.verdicts)
-
-
-def loop_model(d: Derivation, L: np.ndarray | None = None) -> LoopModel:
-    """The numeric loop of a derivation (optionally with another observer gain).
-
-    The continuous reference-gain loop with the full-order observer (the textbook layout);
-    the verdicts use the shipped controller instead (:mod:`symbolic.verification.shipped`).
-    """
-    N = d.reference.value if d.reference is not None else np.zeros((d.plant.B.shape[1], 1))
-    return LoopModel(
-        A=d.plant.A,
-        B=d.plant.B,
-        C=d.plant.C,
-        D=d.plant.D,
-        K=d.K.value,
-        L=d.L.value if L is None else L,
-        reference_gain=N,
-        tracked=d.reference.tracked_index if d.reference is not None else d.design.tracking.output,
-    )
 
 
 def plant_zeros(d: Derivation) -> np.ndarray:
@@ -190,14 +170,14 @@ def _runs(ctrl: ShippedController, reference, x0, xhat0, horizon, samples, u_max
 
 def _speed_observer_poles(ctrl: ShippedController, factor: float) -> np.ndarray:
     """Observer poles of the study: factor × the n state-feedback poles (the reduced observer
-    takes its n − p poles from those by the rule of :func:`symbolic.derivation.reduced.reduced_observer_poles`)."""
+    takes its n − p poles from those by the rule of :func:`symbolic.derivation.pole_rules.reduced_observer_poles`)."""
     n = ctrl.plant.A.shape[0]
     full = factor * np.asarray(ctrl.controller_poles[:n], dtype=complex)
     if ctrl.observer != "reduced-order observer":
         return full
     import sympy as sp
 
-    from ..derivation.reduced import reduced_observer_poles
+    from ..derivation.pole_rules import reduced_observer_poles
 
     exact = tuple(sp.Float(z.real, 17) + sp.I * sp.Float(z.imag, 17) for z in full)
     chosen, _rule = reduced_observer_poles(exact, ctrl.observer_poles.size)

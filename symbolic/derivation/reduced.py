@@ -44,27 +44,29 @@ from dataclasses import dataclass
 
 import numpy as np
 import sympy as sp
-from sympy.polys.matrices import DomainMatrix
 
 from ..model.results import Check, Derivation
 from ..model.tolerances import GAIN_TOLERANCE
 from ..runtime.budget import BoundedChild, Outcome
 from ..runtime.errors import BudgetExceeded, GainsmithError, StructureError
 from . import closed_form as cf
+from .checks import eigenvalue_check
 from .numeric import (
     evaluate_matrix,
     numeric_ackermann,
     relative_difference,
     scipy_placement,
 )
-from .pipeline import eigenvalue_check
+from .pole_rules import reduced_poles_for
+from .reduced_coordinates import (
+    ReducedForms,
+    closed_form_stage,
+    coordinate_change,
+    observer_matrices,
+    transform_matrix,
+)
 
-__all__ = [
-    "ReducedObserver",
-    "coordinate_change",
-    "reduced_observer",
-    "reduced_observer_poles",
-]
+__all__ = ["ReducedObserver", "closed_form_outcome", "reduced_observer"]
 
 
 # --------------------------------------------------------------------------------------------
@@ -152,210 +154,11 @@ class ReducedObserver:
 
 
 # --------------------------------------------------------------------------------------------
-# Pieces
+# The design
 # --------------------------------------------------------------------------------------------
-def reduced_observer_poles(
-    full_poles: tuple[sp.Expr, ...], count: int
-) -> tuple[tuple[sp.Expr, ...], str]:
-    """The reduced observer's poles taken from the full-order observer's, and the rule.
-
-    Walk the full-order poles in the order listed and keep real poles and whole conjugate
-    pairs while they fit in ``count``; when one place is left and only pairs remain, use the
-    real pole ``-|p|`` of the next pair (same natural frequency).
-
-    Examples
-    --------
-    >>> import sympy as sp
-    >>> reduced_observer_poles((-8 + 6*sp.I, -8 - 6*sp.I, -20), 2)[0]
-    (-8 + 6*I, -8 - 6*I)
-    >>> reduced_observer_poles((-8 + 6*sp.I, -8 - 6*sp.I, -20), 1)[0]
-    (-20,)
-    >>> reduced_observer_poles((-8 + 6*sp.I, -8 - 6*sp.I), 1)[0]
-    (-10,)
-    """
-    chosen: list[sp.Expr] = []
-    used: list[int] = []
-    pending = list(enumerate(full_poles))
-    for i, p in pending:
-        if len(chosen) >= count or i in used:
-            continue
-        if sp.im(p) == 0:
-            chosen.append(p)
-            used.append(i)
-            continue
-        partner = next(
-            (
-                j
-                for j, q in pending
-                if j not in used and j != i and sp.simplify(q - sp.conjugate(p)) == 0
-            ),
-            None,
-        )
-        if partner is not None and len(chosen) + 2 <= count:
-            chosen.extend([p, full_poles[partner]])
-            used.extend([i, partner])
-    note = ""
-    if len(chosen) < count:
-        rest = [p for i, p in pending if i not in used]
-        if rest:
-            radius = float(sp.sqrt(sp.re(rest[0]) ** 2 + sp.im(rest[0]) ** 2))
-            chosen.append(-sp.Rational(f"{radius:.6g}"))
-            note = (
-                "; one place was left for a pair, so the real pole -|p| of that pair is used"
-                " (rounded to 6 significant digits)"
-            )
-    rule = (
-        f"the first {count} of the full-order observer poles, in the order listed, keeping"
-        f" conjugate pairs together{note}"
-    )
-    return tuple(chosen), rule
-
-
-def coordinate_change(C: np.ndarray) -> tuple[int, ...]:
-    """Rows of the identity that complete ``C`` to an invertible ``T = [[C], [W]]``.
-
-    Greedy: the identity rows are tried in order and kept when they raise the numeric rank.
-
-    Raises
-    ------
-    StructureError
-        Naming ``plant.C`` when C is not of full row rank (its outputs are not independent
-        measurements).
-
-    Examples
-    --------
-    >>> coordinate_change(np.array([[0.0, 0.0, 1.0]]))
-    (0, 1)
-    """
-    p, n = C.shape
-    rank = int(np.linalg.matrix_rank(C)) if np.all(np.isfinite(C)) else 0
-    if rank < p:
-        raise StructureError(
-            f"a reduced-order observer needs the {p} outputs to be independent measurements,"
-            f" but C has rank {rank} of {p} at the evaluated parameter values (an output repeats"
-            ' or combines the others); remove the dependent output or use kind = "full"',
-            key="plant.C",
-        )
-    rows = [C]
-    chosen: list[int] = []
-    current = rank
-    for j in range(n):
-        if current == n:
-            break
-        e = np.zeros((1, n))
-        e[0, j] = 1.0
-        trial = np.vstack(rows + [e])
-        r = int(np.linalg.matrix_rank(trial))
-        if r > current:
-            rows.append(e)
-            chosen.append(j)
-            current = r
-    return tuple(chosen)
-
-
-def _transform(C, rows: tuple[int, ...], n: int) -> sp.Matrix:
-    T = sp.Matrix(C)
-    for j in rows:
-        e = sp.zeros(1, n)
-        e[0, j] = 1
-        T = T.col_join(e)
-    return T
-
-
-def _inverse(M: sp.Matrix) -> sp.Matrix:
-    dM = DomainMatrix.from_Matrix(sp.Matrix(M)).to_field()
-    return dM.inv().to_Matrix()
-
-
-def _simplified(M: sp.Matrix) -> sp.Matrix:
-    return M.applyfunc(lambda e: sp.factor(sp.cancel(e)) if e.free_symbols else e)
-
-
-@dataclass(frozen=True)
-class _Forms:
-    T: sp.Matrix
-    T_inverse: sp.Matrix
-    partition: dict[str, sp.Matrix]
-    Ke: sp.Matrix | None
-    observer: dict[str, sp.Matrix] | None
-    closed_loop: sp.Matrix | None
-    charpoly: tuple[sp.Expr, ...] | None
-    factors: bool | None
-
-
-def _closed_form_stage(A, B, C, rows, K, coeffs_ro, coeffs_c) -> _Forms:
-    n, p = A.shape[0], C.shape[0]
-    T = _transform(C, rows, n)
-    Ti = _inverse(T)
-    Ab = _simplified(T * A * Ti)
-    Bb = _simplified(T * B)
-    part = {
-        "A_aa": Ab[:p, :p],
-        "A_ab": Ab[:p, p:],
-        "A_ba": Ab[p:, :p],
-        "A_bb": Ab[p:, p:],
-        "B_a": Bb[:p, :],
-        "B_b": Bb[p:, :],
-    }
-    if p != 1 or n - p == 0:
-        return _Forms(T, Ti, part, None, None, None, None, None)
-    steps = cf.ackermann(part["A_bb"].T, part["A_ab"].T, coeffs_ro, kind="observability")
-    Ke = _simplified(steps.gain.T)
-    Ahat = part["A_bb"] - Ke * part["A_ab"]
-    Bhat = Ahat * Ke + part["A_ba"] - Ke * part["A_aa"]
-    Fhat = part["B_b"] - Ke * part["B_a"]
-    obs = {"A_hat": _simplified(Ahat), "B_hat": _simplified(Bhat), "F_hat": _simplified(Fhat)}
-    loop = cp = ok = None
-    if K is not None:
-        Chat = sp.zeros(p, n - p).col_join(sp.eye(n - p))
-        Dhat = sp.eye(p).col_join(Ke)
-        K_eta = K * Ti * Chat
-        K_y = K * Ti * Dhat
-        # plant x' = A x + B u, u = -K_eta η - K_y ȳ + N r with ȳ = C x (the measured part)
-        top = (A - B * K_y * C).row_join(-B * K_eta)
-        bottom = (Bhat * C - Fhat * K_y * C).row_join(Ahat - Fhat * K_eta)
-        loop = top.col_join(bottom)
-        cp = cf.characteristic_coefficients(loop)
-        s = cf.s
-        want = sp.Poly(sp.Poly(coeffs_c, s) * sp.Poly(coeffs_ro, s), s).all_coeffs()
-        ok = len(cp) == len(want) and all(
-            sp.cancel(sp.together(a - b)) == 0 for a, b in zip(cp, want, strict=True)
-        )
-    return _Forms(T, Ti, part, Ke, obs, loop, cp, ok)
-
-
 def _seconds(design, budget: float | None) -> float | None:
     seconds = design.symbolic_budget_seconds if budget is None else budget
     return None if seconds <= 0 else seconds
-
-
-# --------------------------------------------------------------------------------------------
-# The design
-# --------------------------------------------------------------------------------------------
-def observer_matrices(Aaa, Aab, Aba, Abb, Ba, Bb, gain) -> tuple[np.ndarray, ...]:
-    """``Â = A_bb − G A_ab``, ``B̂ = Â G + A_ba − G A_aa``, ``F̂ = B_b − G B_a`` and the maps
-    ``Ĉ = [0; I]``, ``D̂ = [I; G]`` (with ``x̄ = Ĉ η + D̂ ȳ``) of the reduced-order observer of
-    gain ``G`` on a partitioned model (Luenberger [1]); the same for the plant in continuous time
-    and for its ZOH model (Φ, Γ in place of A, B).
-    """
-    p, rest = Aaa.shape[0], Abb.shape[0]
-    Ahat = Abb - gain @ Aab
-    Bhat = Ahat @ gain + Aba - gain @ Aaa
-    Fhat = Bb - gain @ Ba
-    Chat = np.vstack([np.zeros((p, rest)), np.eye(rest)])
-    Dhat = np.vstack([np.eye(p), gain])
-    return Ahat, Bhat, Fhat, Chat, Dhat
-
-
-def reduced_poles_for(design, observer_poles: tuple[sp.Expr, ...]) -> tuple[tuple, str]:
-    if design.observer.reduced_poles is not None:
-        return (
-            tuple(design.observer.reduced_poles),
-            "reduced observer poles as given in the design file (observer.poles)",
-        )
-    return reduced_observer_poles(
-        tuple(observer_poles), design.plant.order - design.plant.n_outputs
-    )
 
 
 def _stage_arguments(design, C, K, observer_poles, controller_coefficients) -> tuple:
@@ -383,7 +186,7 @@ def closed_form_outcome(
     """
     try:
         args = _stage_arguments(design, C, K, observer_poles, controller_coefficients)
-        return Outcome(_closed_form_stage(*args))
+        return Outcome(closed_form_stage(*args))
     except GainsmithError as exc:
         return Outcome(error=exc)
 
@@ -416,7 +219,8 @@ def reduced_observer(
     Notes
     -----
     Poles: ``observer.poles`` with n - p entries when given so (``kind = "reduced"``),
-    otherwise :func:`reduced_observer_poles` of the full-order observer poles.  One output:
+    otherwise :func:`~symbolic.derivation.pole_rules.reduced_observer_poles` of the
+    full-order observer poles.  One output:
     ``K_e`` in closed form by Ackermann's formula on ``(A_bbᵀ, A_abᵀ)``, cross-checked against
     ``scipy.signal.place_poles``; several outputs: ``place_poles`` only (not unique).
 
@@ -443,41 +247,66 @@ def reduced_observer(
     Matrix([[14, 5]])
     """
     design = d.design
-    plant = design.plant
-    values = design.values
-    n, m, p = plant.order, plant.n_inputs, plant.n_outputs
-    rest = n - p
     notes: list[str] = []
     checks: list[Check] = []
-    A, B, C, D = d.plant.A, d.plant.B, d.plant.C, d.plant.D
-
     try:
-        rows = coordinate_change(C)
+        rows = coordinate_change(d.plant.C)
     except StructureError as exc:
         raise StructureError(exc.problem, design.path, "plant.C") from exc
-
     poles, rule = reduced_poles_for(design, d.observer_poles.poles)
-    coeffs = cf.desired_coefficients(poles) if poles else (sp.Integer(1),)
     requested = np.array([complex(z) for z in poles])
+    forms = _closed_forms(d, budget, pending, notes)
+    coords = _partition(d, rows, forms, checks)
+    gain = _observer_gain(d, coords, forms, requested, checks, notes)
+    loop = _closed_loop(d, coords, gain["Ke"], requested, forms, checks, notes)
+    return ReducedObserver(
+        **coords,
+        **gain,
+        **loop,
+        poles=poles,
+        pole_rule=rule,
+        coefficients=cf.desired_coefficients(poles) if poles else (sp.Integer(1),),
+        checks=tuple(checks),
+        notes=tuple(notes),
+    )
 
-    forms: _Forms | None = None
+
+def _closed_forms(
+    d: Derivation, budget: float | None, pending: BoundedChild | Outcome | None, notes: list[str]
+) -> ReducedForms | None:
+    """The closed forms (started here unless ``pending``), or None past the budget."""
+    design = d.design
     if pending is None:
         pending = BoundedChild(
-            _closed_form_stage,
+            closed_form_stage,
             _stage_arguments(
-                design, C, d.K.closed_form, d.observer_poles.poles, d.controller_poles.coefficients
+                design,
+                d.plant.C,
+                d.K.closed_form,
+                d.observer_poles.poles,
+                d.controller_poles.coefficients,
             ),
             seconds=_seconds(design, budget),
             what="the closed form of the reduced-order observer",
         )
     try:
-        forms = pending.result()
+        return pending.result()
     except BudgetExceeded as exc:
         notes.append(f"reduced-order observer: {exc}; numeric results are given instead")
+        return None
     except StructureError as exc:
         raise StructureError(exc.problem, design.path, "observer.kind") from exc
 
-    # ---- numbers -------------------------------------------------------------------------
+
+def _partition(
+    d: Derivation, rows: tuple[int, ...], forms: ReducedForms | None, checks: list[Check]
+) -> dict:
+    """``T``, ``T⁻¹`` and the partition of ``T A T⁻¹``, ``T B`` (fields of
+    :class:`ReducedObserver`), with the check ``C T⁻¹ = [I 0]``."""
+    plant = d.design.plant
+    A, B, C = d.plant.A, d.plant.B, d.plant.C
+    n, p = plant.order, plant.n_outputs
+    rest = n - p
     T = np.vstack([C] + [np.eye(n)[j : j + 1] for j in rows])
     Ti = np.linalg.inv(T)
     Ab, Bb = T @ A @ Ti, T @ B
@@ -487,7 +316,36 @@ def reduced_observer(
     checks.append(
         Check("reduced observer: C T⁻¹ = [I 0] (largest entry error)", resid, 1e-9, resid <= 1e-9)
     )
+    return {
+        "measured": p,
+        "order": rest,
+        "T": T,
+        "T_inverse": Ti,
+        "T_closed_form": forms.T if forms is not None else transform_matrix(plant.C, rows, n),
+        "A_aa": Aaa,
+        "A_ab": Aab,
+        "A_ba": Aba,
+        "A_bb": Abb,
+        "B_a": Ba_,
+        "B_b": Bb_,
+        "partition_closed_form": forms.partition if forms is not None else None,
+    }
 
+
+def _observer_gain(
+    d: Derivation,
+    coords: dict,
+    forms: ReducedForms | None,
+    requested: np.ndarray,
+    checks: list[Check],
+    notes: list[str],
+) -> dict:
+    """``K_e`` placing the reduced observer poles, how it was found, and its checks."""
+    design = d.design
+    values = design.values
+    p = design.plant.n_outputs
+    rest = design.plant.order - p
+    Aab, Abb = coords["A_ab"], coords["A_bb"]
     closed_Ke = None
     if rest == 0:
         Ke = np.zeros((0, p))
@@ -536,7 +394,24 @@ def reduced_observer(
                 weights=np.abs(Abb) + np.abs(Ke) @ np.abs(Aab),
             )
         )
+    return {"Ke": Ke, "Ke_closed_form": closed_Ke, "method": method}
 
+
+def _closed_loop(
+    d: Derivation,
+    coords: dict,
+    Ke: np.ndarray,
+    requested: np.ndarray,
+    forms: ReducedForms | None,
+    checks: list[Check],
+    notes: list[str],
+) -> dict:
+    """Â, B̂, F̂, the estimate, the compensator and the (2n − p) loop with their closed forms,
+    and the comparison with the full-order observer (fields of :class:`ReducedObserver`), with
+    the eigenvalue and factorisation checks."""
+    A, B, C, D = d.plant.A, d.plant.B, d.plant.C, d.plant.D
+    Aaa, Aab, Aba, Abb = coords["A_aa"], coords["A_ab"], coords["A_ba"], coords["A_bb"]
+    Ba_, Bb_, Ti = coords["B_a"], coords["B_b"], coords["T_inverse"]
     Ahat, Bhat, Fhat, Chat, Dhat = observer_matrices(Aaa, Aab, Aba, Abb, Ba_, Bb_, Ke)
     est_eta, est_y = Ti @ Chat, Ti @ Dhat
     K = d.K.value
@@ -572,41 +447,21 @@ def reduced_observer(
             " u = H_c η + J_c ȳ + N r the implementation must solve (I + J_c D) u = H_c η +"
             " J_c y + N r for u at each step"
         )
-
-    return ReducedObserver(
-        measured=p,
-        order=rest,
-        T=T,
-        T_inverse=Ti,
-        T_closed_form=forms.T if forms is not None else _transform(plant.C, rows, n),
-        A_aa=Aaa,
-        A_ab=Aab,
-        A_ba=Aba,
-        A_bb=Abb,
-        B_a=Ba_,
-        B_b=Bb_,
-        partition_closed_form=forms.partition if forms is not None else None,
-        Ke=Ke,
-        Ke_closed_form=closed_Ke,
-        observer_matrix=Ahat,
-        output_input=Bhat,
-        control_input=Fhat,
-        observer_closed_form=forms.observer if forms is not None else None,
-        estimate_from_state=est_eta,
-        estimate_from_output=est_y,
-        compensator=(Fc, Gc, -K_eta, -K_y),
-        closed_loop=loop,
-        closed_loop_charpoly=forms.charpoly if forms is not None else None,
-        factors_as_expected=forms.factors if forms is not None else None,
-        closed_loop_poles=loop_poles,
-        poles=poles,
-        pole_rule=rule,
-        coefficients=coeffs,
-        method=method,
-        comparison=_comparison(n, p, m, K_y),
-        checks=tuple(checks),
-        notes=tuple(notes),
-    )
+    plant = d.design.plant
+    return {
+        "observer_matrix": Ahat,
+        "output_input": Bhat,
+        "control_input": Fhat,
+        "observer_closed_form": forms.observer if forms is not None else None,
+        "estimate_from_state": est_eta,
+        "estimate_from_output": est_y,
+        "compensator": (Fc, Gc, -K_eta, -K_y),
+        "closed_loop": loop,
+        "closed_loop_charpoly": forms.charpoly if forms is not None else None,
+        "factors_as_expected": forms.factors if forms is not None else None,
+        "closed_loop_poles": loop_poles,
+        "comparison": _comparison(plant.order, plant.n_outputs, plant.n_inputs, K_y),
+    }
 
 
 def _comparison(n: int, p: int, m: int, K_y: np.ndarray) -> str:

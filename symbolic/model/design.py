@@ -122,7 +122,7 @@ class ObserverRequest:
     reduced-order observer of n - p states (:mod:`symbolic.derivation.reduced`); its poles
     are ``reduced_poles`` when ``observer.poles`` lists exactly n - p of them,
     otherwise they are taken from the full-order observer poles by the rule of
-    :func:`symbolic.derivation.reduced.reduced_observer_poles`.
+    :func:`symbolic.derivation.pole_rules.reduced_observer_poles`.
     """
 
     poles: tuple[sp.Expr, ...] | None = None

@@ -151,7 +151,7 @@ def digital_controller_files(
     """The digital controller of a derivation as C99 or Python, and its self-check.
 
     Returns ``(files, difference, form)``: the generated Python counterpart is run on the
-    measurements of :func:`symbolic.derivation.digital.sampled_data_study` (with the design's input
+    measurements of :func:`symbolic.verification.sampled_data.sampled_data_study` (with the design's input
     limit) and ``difference`` is its largest relative difference from the study's inputs.
 
     Raises
@@ -159,11 +159,8 @@ def digital_controller_files(
     DesignFileError
         The design has no ``[discrete] sample_time``, or the form is not available.
     """
-    from ..derivation.digital import (
-        c_controller_files,
-        python_controller_source,
-        sampled_data_study,
-    )
+    from ..verification.sampled_data import sampled_data_study
+    from .digital_code import c_controller_files, python_controller_source
 
     design = d.design
     dc = getattr(d, "discrete", None)
@@ -206,7 +203,7 @@ def digital_controller_files(
 
 
 def _matched(dc, form, design) -> np.ndarray:
-    from ..derivation.digital import matched_state
+    from ..verification.sampled_data import matched_state
 
     n = dc.Phi.shape[0]
     x0 = design.simulation.initial_state or [0.0] * n

@@ -56,7 +56,7 @@ def sampled_data_figure(
     zoom: bool = True,
 ) -> Figure:
     """The sampled-data loop against the continuous design (a
-    :class:`symbolic.derivation.digital.SampledDataStudy`).
+    :class:`symbolic.verification.sampled_data.SampledDataStudy`).
 
     Top: the tracked output of the continuous plant between the samples (solid), the values
     the controller sampled (dots) and the continuous design (dashed).  Bottom: the held input
@@ -119,7 +119,7 @@ def sampled_data_figure(
 
 
 def integral_action_figure(study, output_name: str, output_unit: str) -> Figure:
-    """Reference gain against integral action (an :class:`symbolic.derivation.integral.IntegralStudy`).
+    """Reference gain against integral action (an :class:`symbolic.derivation.integral_study.IntegralStudy`).
 
     Top: the nominal plant.  Bottom: the mismatched plants (low and high end of the parameter
     ranges).  The step input disturbance is marked by a vertical line.
@@ -174,7 +174,7 @@ def anti_windup_figure(
     u_max: float,
 ) -> Figure:
     """The integral loop with a limited input, without and with anti-windup
-    (:class:`symbolic.derivation.integral.WindupRun` pairs)."""
+    (:class:`symbolic.derivation.integral_study.WindupRun` pairs)."""
     fig, (top, bottom) = _figure(2)
     for run in runs:
         colour, style = (_BLACK, "-") if run.anti_windup else (_RED, _DASHED)

@@ -34,7 +34,7 @@ from dataclasses import dataclass
 
 import sympy as sp
 
-from ..derivation.pipeline import describe_zero
+from ..derivation.structure import describe_zero
 from ..model.design import Design, Parameter
 from ..model.results import Derivation
 from ..runtime.errors import DesignFileError

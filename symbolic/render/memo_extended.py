@@ -66,7 +66,7 @@ def memo_extended_sections(d: Derivation, *, figures: bool = True) -> tuple[dict
 # --------------------------------------------------------------------------------------
 def _integral_section(d: Derivation, makers: Makers) -> dict:
     """Integral action: the augmented design, and the study against the reference gain."""
-    from ..derivation.integral import integral_study
+    from ..derivation.integral_study import integral_study
 
     ia = d.integral
     study = integral_study(d, ia)
@@ -197,7 +197,7 @@ def _reduced_section(d: Derivation) -> dict:
 # --------------------------------------------------------------------------------------
 def _digital_section(d: Derivation, makers: Makers) -> dict:
     """The digital controller, and its sampled-data loop against the continuous design."""
-    from ..derivation.digital import sampled_data_study
+    from ..verification.sampled_data import sampled_data_study
 
     dc = d.discrete
     section = _digital_design(dc)

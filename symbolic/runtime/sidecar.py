@@ -47,8 +47,9 @@ T = TypeVar("T")
 PRELOAD = (
     "numpy",
     "scipy.optimize",
-    "symbolic.derivation.specs",
+    "symbolic.derivation.dominant",
     "symbolic.derivation.numeric",
+    "symbolic.derivation.systems",
     "scipy.signal",
 )
 

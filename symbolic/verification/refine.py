@@ -1,6 +1,6 @@
 """Poles from specifications, refined until the shipped loop's simulated step meets them.
 
-The dominant pair of :func:`symbolic.derivation.specs.dominant_pair` meets every specification under
+The dominant pair of :func:`symbolic.derivation.dominant.dominant_pair` meets every specification under
 the second-order approximation.  The loop that is shipped has more poles (the remaining
 controller poles, the observer, the integral pole), possibly plant zeros and a sample time,
 so its step response can miss a specification the approximation meets (a 3-state motor:
@@ -15,7 +15,7 @@ are judged on, without the input limit), and, while a specification is missed,
   rise or peak time is too long (1 % farther, so that the step lands inside),
 
 with the remaining, observer and integral poles following their rules, and rounds the pair
-outward to three significant figures as :func:`~symbolic.derivation.specs.dominant_pair` does.  It stops
+outward to three significant figures as :func:`~symbolic.derivation.dominant.dominant_pair` does.  It stops
 when every specification is met, or after :data:`MAX_STEPS` steps with the best pair found
 (the smallest relative miss), and says so.  The iteration is a fixed-point correction of the
 second-order model's error (common practice, no source); convergence is not guaranteed, which
@@ -31,17 +31,16 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-import sympy as sp
 
+from ..derivation.dominant import round_sig3
+from ..derivation.specs import damping_ratio_from_overshoot
 from ..runtime import sidecar as _sidecar
 
 __all__ = [
     "MAX_STEPS",
     "Refinement",
-    "exact_pair",
     "measure_shipped_step",
     "refine_controller_poles",
-    "refined_pair",
 ]
 
 #: Largest number of corrections of the dominant pair.
@@ -140,8 +139,6 @@ def _misses(spec, measured: dict | None) -> dict[str, float]:
 
 
 def _corrected(spec, sigma: float, omega_d: float, measured: dict, misses: dict):
-    from ..derivation.specs import damping_ratio_from_overshoot, round_sig3
-
     wn = math.hypot(sigma, omega_d)
     zeta = sigma / wn
     if "overshoot_percent" in misses:
@@ -188,6 +185,9 @@ def _text(spec, measured: dict | None) -> str:
 def refine_controller_poles(design, ctrl, num, pole_sets):
     """Refine a specification-based :class:`~symbolic.model.results.PoleChoice`.
 
+    The ``refine`` hook of :func:`symbolic.derivation.pipeline.derive`, which
+    :func:`symbolic.derive` passes.
+
     Parameters
     ----------
     design : Design
@@ -198,7 +198,8 @@ def refine_controller_poles(design, ctrl, num, pole_sets):
     pole_sets : callable
         ``pole_sets(sigma, omega_d) -> (controller_poles, shipped_observer_poles, choice)``:
         the numeric s-plane poles of the shipped controller (the integral pole last) and the
-        PoleChoice of the controller, by the design's rules, for a dominant pair.
+        PoleChoice of the controller, by the design's rules, for a dominant pair
+        (:func:`symbolic.derivation.pole_rules.shipped_pole_sets`).
 
     Returns
     -------
@@ -242,55 +243,28 @@ def refine_controller_poles(design, ctrl, num, pole_sets):
     if not met:
         _score, sigma, omega_d, measured = best
         met = best[0] == 0.0
-    if steps == 0 and met:
-        sentence = (
-            "checked on the simulated step of the shipped loop (matched estimate, no input"
-            f" limit): {_text(spec, first)}, every specification met"
-        )
-    elif met:
-        sentence = (
-            f"refined in {steps} step(s) on the simulated step of the shipped loop (matched"
-            f" estimate, no input limit): the second-order pair gave {_text(spec, first)}; the"
-            f" refined pair -{sigma:g} ± {omega_d:g}j gives {_text(spec, measured)}"
-        )
-    else:
-        sentence = (
-            f"NOT MET on the simulated step of the shipped loop after {steps} refinement(s):"
-            f" the second-order pair gave {_text(spec, first)}; the best pair found,"
-            f" -{sigma:g} ± {omega_d:g}j, gives {_text(spec, measured)}"
-        )
+    sentence = _sentence(spec, steps, met, first, measured, sigma, omega_d)
     refinement = Refinement(steps, met, sigma, omega_d, first or {}, measured or {}, sentence)
     _c, _o, choice = pole_sets(sigma, omega_d)
     choice = dataclasses.replace(choice, rule=choice.rule + "; dominant pair " + sentence)
     return choice, refinement
 
 
-def refined_pair(spec, pair, sigma: float, omega_d: float):
-    """The dominant pair record at the refined place, its predictions recomputed."""
-    from ..derivation.specs import step_predictions
-
-    predicted = _sidecar.call(step_predictions, spec, sigma, omega_d)  # root finding: SciPy
-    rows = tuple(
-        dataclasses.replace(
-            f,
-            predicted=predicted.get(f.spec, f.predicted),
-            passed=predicted.get(f.spec, f.predicted) <= f.requested * (1 + 1e-9),
+def _sentence(spec, steps: int, met: bool, first, measured, sigma: float, omega_d: float) -> str:
+    """What the refinement did, in one sentence, for the pole rule and the memo."""
+    if steps == 0 and met:
+        return (
+            "checked on the simulated step of the shipped loop (matched estimate, no input"
+            f" limit): {_text(spec, first)}, every specification met"
         )
-        for f in pair.formulas
+    if met:
+        return (
+            f"refined in {steps} step(s) on the simulated step of the shipped loop (matched"
+            f" estimate, no input limit): the second-order pair gave {_text(spec, first)}; the"
+            f" refined pair -{sigma:g} ± {omega_d:g}j gives {_text(spec, measured)}"
+        )
+    return (
+        f"NOT MET on the simulated step of the shipped loop after {steps} refinement(s):"
+        f" the second-order pair gave {_text(spec, first)}; the best pair found,"
+        f" -{sigma:g} ± {omega_d:g}j, gives {_text(spec, measured)}"
     )
-    natural = math.hypot(sigma, omega_d)
-    return dataclasses.replace(
-        pair,
-        damping_ratio=sigma / natural,
-        natural_frequency=natural,
-        real_part=sigma,
-        damped_frequency=omega_d,
-        poles=(complex(-sigma, omega_d), complex(-sigma, -omega_d)),
-        formulas=rows,
-    )
-
-
-def exact_pair(sigma: float, omega_d: float) -> tuple[sp.Expr, sp.Expr]:
-    """``-σ ± jω_d`` as exact numbers (from the shortest repr of each float)."""
-    s, w = sp.Rational(repr(float(sigma))), sp.Rational(repr(float(omega_d)))
-    return (-s + sp.I * w, -s - sp.I * w)

@@ -4,7 +4,7 @@ A design file asks for one controller: a full-order or reduced-order observer, a
 gain or integral action, in continuous time or sampled at ``[discrete] sample_time``.  Every
 verdict of gainsmith (the simulated specifications, the actuator limit, stability over the
 parameter ranges, the margins) is computed on *that* controller, written in one layout
-(:class:`symbolic.derivation.digital.DifferenceEquations`)
+(:class:`symbolic.derivation.difference_equations.DifferenceEquations`)
 
 .. math::  u_d = C_c \\xi + D_{cy} y + D_{cr} r,\\qquad u = \\mathrm{sat}(u_d),
 
@@ -38,7 +38,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..derivation.digital import DifferenceEquations, numeric_zero_order_hold
+from ..derivation.difference_equations import DifferenceEquations
+from ..derivation.zoh import numeric_zero_order_hold
 from ..model.results import NumericPlant
 
 __all__ = [

@@ -30,17 +30,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..derivation.digital import (
-    DifferenceEquations,
-    DiscreteIntegral,
-    continuous_equations,
-    controller_equations,
-    numeric_zero_order_hold,
-)
+from ..derivation.difference_equations import DifferenceEquations, controller_equations
+from ..derivation.extensions_in_z import DiscreteIntegral
 from ..derivation.numeric import numeric_ackermann, scipy_placement
-from ..derivation.reduced import coordinate_change, observer_matrices
+from ..derivation.reduced_coordinates import coordinate_change, observer_matrices
+from ..derivation.zoh import numeric_zero_order_hold
 from ..model.results import Derivation, NumericPlant
 from ..runtime.errors import StructureError
+from .sampled_data import continuous_equations
 from .shipped import ShippedController, initial_maps
 
 __all__ = [

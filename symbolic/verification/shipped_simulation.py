@@ -26,7 +26,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ..derivation.digital import numeric_zero_order_hold
+from ..derivation.zoh import numeric_zero_order_hold
 from .shipped import (
     ShippedController,
     closed_loop,

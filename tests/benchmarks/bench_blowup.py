@@ -137,7 +137,8 @@ def test_where_the_time_goes(tmp_path):
         """
         import cProfile, io, pstats, signal, sys
         import symbolic
-        from symbolic.derivation.pipeline import _closed_form_stage, select_controller_poles, select_observer_poles
+        from symbolic.derivation.pipeline import closed_form_stage as _closed_form_stage
+        from symbolic.derivation.pole_rules import select_controller_poles, select_observer_poles
         design = symbolic.parse_design(open(sys.argv[1]).read())
         ctrl = select_controller_poles(design)
         obs = select_observer_poles(design, ctrl)

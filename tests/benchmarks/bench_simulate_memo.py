@@ -22,7 +22,8 @@ import time
 import pytest
 
 import symbolic
-from symbolic.analysis.study import SPEED_FACTORS, _speed_study, loop_model, simulation_study
+from symbolic.analysis.study import SPEED_FACTORS, _speed_study, simulation_study
+from symbolic.verification.loop import loop_model
 from symbolic.verification.shipped_assembly import shipped_controller
 from symbolic.verification.step_cases import simulate_cases
 
