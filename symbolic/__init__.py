@@ -3,7 +3,10 @@
 The importable package behind the ``gainsmith`` command.  The flow is one
 direction: :func:`load_design` (a design file to a validated
 :class:`Design`) → :func:`derive` (closed forms, numeric values, checks:
-a :class:`Derivation`) → renderers (terminal, JSON, memo).
+a :class:`Derivation`) → :func:`simulate`, :func:`robustness` (the shipped
+controller judged: a :class:`RequirementTable`) → :func:`build_memo`,
+:func:`write_memo`, :func:`export` (memo and code).  Each of these accepts a
+design, the path of a design file or a derivation (:mod:`symbolic.api`).
 
 >>> import symbolic
 >>> design = symbolic.parse_design(b'''
@@ -51,7 +54,18 @@ _LAZY = {
     "ReferenceGainResult": "model.results",
     "SeparatedLoop": "model.results",
     "StructureReport": "model.results",
+    "ExportResult": "render.export",
+    "MemoDocument": "render.memo",
+    "MemoResult": "render.memo",
+    "RequirementTable": "analysis.requirements",
+    "RobustnessReport": "analysis.robust",
+    "SimulationRun": "analysis.study",
+    "build_memo": "api",
     "derive": "api",
+    "export": "api",
+    "robustness": "api",
+    "simulate": "api",
+    "write_memo": "api",
     "Design": "model.design",
     "Parameter": "model.design",
     "Plant": "model.design",
@@ -61,7 +75,10 @@ _LAZY = {
 }
 
 if TYPE_CHECKING:  # pragma: no cover
-    from .api import derive
+    from .analysis.requirements import RequirementTable
+    from .analysis.robust import RobustnessReport
+    from .analysis.study import SimulationRun
+    from .api import build_memo, derive, export, robustness, simulate, write_memo
     from .input.reader import load_design, parse_design
     from .model.design import Design, Parameter, Plant, Signal
     from .model.results import (
@@ -74,6 +91,8 @@ if TYPE_CHECKING:  # pragma: no cover
         SeparatedLoop,
         StructureReport,
     )
+    from .render.export import ExportResult
+    from .render.memo import MemoDocument, MemoResult
 
 
 def __getattr__(name: str):
@@ -98,22 +117,33 @@ __all__ = [
     "Derivation",
     "Design",
     "DesignFileError",
+    "ExportResult",
     "ExpressionError",
     "GainResult",
     "GainsmithError",
     "GainsmithWarning",
+    "MemoDocument",
+    "MemoResult",
     "Parameter",
     "Plant",
     "PoleChoice",
     "ReferenceGainResult",
     "RenderError",
+    "RequirementTable",
+    "RobustnessReport",
     "SeparatedLoop",
     "Signal",
+    "SimulationRun",
     "SpecificationError",
     "StructureError",
     "StructureReport",
     "__version__",
+    "build_memo",
     "derive",
+    "export",
     "load_design",
     "parse_design",
+    "robustness",
+    "simulate",
+    "write_memo",
 ]

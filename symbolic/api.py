@@ -1,4 +1,18 @@
-"""The public entry points of the package, above every layer: :func:`derive`.
+"""The public entry points of the package, above every layer: what a notebook user calls.
+
+Each function takes a design (a :class:`~symbolic.model.design.Design`, a path to a design
+file, or a finished :class:`~symbolic.model.results.Derivation`) and returns a result object;
+nothing is printed (the command line prints, :mod:`symbolic.cli`).  The result objects show
+themselves in Jupyter (``_repr_html_`` / ``_repr_markdown_``).
+
+===================  =============================================================
+:func:`derive`       K, L, the reference gain, the separated loop, every check
+:func:`simulate`     the shipped controller's step responses and the requirements
+:func:`robustness`   parameter mismatch, sensitivities, margins over the ranges
+:func:`build_memo`   the memo's sources and figures, in memory
+:func:`write_memo`   the memo published to a folder (PDF with TeX)
+:func:`export`       C99 or Python code of the gains or of the digital controller
+===================  =============================================================
 
 :func:`symbolic.derive` is :func:`derive` here.  It is the derivation of
 :func:`symbolic.derivation.pipeline.derive` with the refinement of specification-based
@@ -9,12 +23,24 @@ takes as a hook because the refinement belongs to the verification layer above i
 
 from __future__ import annotations
 
+import os
+from typing import TYPE_CHECKING
+
 from .derivation import pipeline
 from .model.design import Design
 from .model.results import Derivation
 from .verification.refine import refine_controller_poles
 
-__all__ = ["derive"]
+if TYPE_CHECKING:  # pragma: no cover - the analysis and render layers load on first use
+    from .analysis.robust import RobustnessReport
+    from .analysis.study import SimulationRun
+    from .render.export import ExportResult
+    from .render.memo import MemoDocument, MemoResult
+
+__all__ = ["build_memo", "derive", "export", "robustness", "simulate", "write_memo"]
+
+#: What the functions below accept: a design, the path of a design file, or a derivation.
+Subject = Design | Derivation | str | os.PathLike
 
 
 def derive(design: Design, *, budget: float | None = None) -> Derivation:
@@ -58,3 +84,138 @@ def derive(design: Design, *, budget: float | None = None) -> Derivation:
     Matrix([[6, 5]])
     """
     return pipeline.derive(design, budget=budget, refine=refine_controller_poles)
+
+
+def derived(subject: Subject) -> Derivation:
+    """The derivation of ``subject``: itself if it is one, else :func:`derive` of the design
+    (loaded first when ``subject`` is a path)."""
+    if isinstance(subject, Derivation):
+        return subject
+    if isinstance(subject, Design):
+        return derive(subject)
+    from .input.reader import load_design
+
+    return derive(load_design(subject))
+
+
+def simulate(subject: Subject) -> SimulationRun:
+    """Simulate the shipped controller and judge every requirement on it.
+
+    Returns
+    -------
+    SimulationRun
+        ``.study`` (the step responses, matched and mismatched estimate, the limited input,
+        the observer-speed sweep), ``.requirements`` (the numbered rows) and ``.passed``.
+
+    Examples
+    --------
+    >>> import symbolic
+    >>> run = symbolic.simulate("worked_designs/focus_actuator.toml")  # doctest: +SKIP
+    >>> run.passed  # doctest: +SKIP
+    True
+    """
+    from .analysis.study import simulation_run
+
+    return simulation_run(derived(subject))
+
+
+def robustness(subject: Subject, *, points: int = 5) -> RobustnessReport:
+    """Parameter mismatch over the ranges, gain sensitivities and stability margins.
+
+    Parameters
+    ----------
+    points : int
+        Grid points per parameter range (at least 2).
+
+    Returns
+    -------
+    RobustnessReport
+        ``.passed`` is False when a grid point is unstable, a margin falls short or a check
+        failed; ``.shipped`` holds the requirements rows of the shipped controller.
+    """
+    from .analysis.parameter_grid import parameter_grid
+    from .analysis.robust import robustness_study
+
+    d = derived(subject)
+    parameter_grid(d.design, points)  # a bad grid is refused with the design file's name
+    return robustness_study(d, points)
+
+
+def build_memo(subject: Subject) -> MemoDocument:
+    """The memo in memory: LaTeX and Markdown sources, figure files, the requirements table.
+
+    Nothing is written and no PDF is compiled (:func:`write_memo` does both).  With
+    ``SOURCE_DATE_EPOCH`` set, the sources are byte-identical from run to run.
+
+    Returns
+    -------
+    MemoDocument
+        ``.tex``, ``.markdown``, ``.figures`` (file name to bytes) and ``.requirements``.
+    """
+    from .render.memo import assemble_memo
+
+    return assemble_memo(derived(subject))
+
+
+def write_memo(subject: Subject, output: str | os.PathLike, *, pdf: bool = True) -> MemoResult:
+    """Publish the memo into the folder ``output`` (atomically) and compile its PDF.
+
+    Returns
+    -------
+    MemoResult
+        The files written, the warnings (a PDF skipped for want of TeX, for one), the
+        requirements table and ``.passed``.
+    """
+    from .render.memo import write_memo as publish_memo
+
+    return publish_memo(derived(subject), output, pdf=pdf)
+
+
+def export(
+    subject: Subject,
+    *,
+    lang: str = "python",
+    digital: bool = False,
+    form: str | None = None,
+    output: str | os.PathLike | None = None,
+) -> ExportResult:
+    """The gain formulas (or the digital controller) as C99 or Python code, self-checked.
+
+    Parameters
+    ----------
+    lang : {"python", "c"}
+    digital : bool
+        The digital controller's difference equations instead of the gain formulas.
+    form : {"current", "predictor", "reduced"}, optional
+        The digital controller's observer (only with ``digital``).
+    output : path, optional
+        Publish the files there.  Code for a loop around a machine is written only when
+        every check passed: otherwise :class:`~symbolic.RenderError` is raised and nothing
+        is written.
+
+    Returns
+    -------
+    ExportResult
+        ``.files`` (name to text), ``.check`` (the self-check of the generated code),
+        ``.passed``.
+    """
+    from .render.export import check_export_options, export_code, write_export
+
+    if isinstance(subject, Derivation):
+        design = subject.design
+    elif isinstance(subject, Design):
+        design = subject
+    else:
+        from .input.reader import load_design
+
+        design = load_design(subject)
+    check_export_options(design, lang=lang, digital=digital, form=form)
+    result = export_code(
+        derived(subject if isinstance(subject, Derivation) else design),
+        lang=lang,
+        digital=digital,
+        form=form,
+    )
+    if output is not None:
+        write_export(result, output)
+    return result

@@ -6,6 +6,7 @@ The rows are assembled by :mod:`symbolic.analysis.verdict`; ``simulate``, ``memo
 
 from __future__ import annotations
 
+import html
 import math
 from dataclasses import dataclass
 
@@ -72,6 +73,32 @@ class RequirementTable:
         if not failed:
             return f"every requirement met ({len(self.rows)} of {len(self.rows)})"
         return f"NOT ACCEPTABLE: {failed} of {len(self.rows)} requirements not met"
+
+    def _repr_html_(self) -> str:  # Jupyter
+        """The verdict and the numbered rows as an HTML table (every value escaped)."""
+        head = "".join(
+            f"<th>{h}</th>" for h in ("", "requirement", "requested", "achieved", "", "basis")
+        )
+        body = "".join(
+            "<tr>"
+            + "".join(
+                f"<td>{html.escape(text)}</td>"
+                for text in (
+                    r.number,
+                    r.label,
+                    r.requested,
+                    r.achieved,
+                    "pass" if r.passed else "FAIL",
+                    r.basis,
+                )
+            )
+            + "</tr>"
+            for r in self.rows
+        )
+        return (
+            f"<p><b>{html.escape(self.verdict)}</b> ({html.escape(self.controller)})</p>"
+            f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+        )
 
     def to_json(self) -> dict:
         return {

@@ -106,6 +106,11 @@ class RobustnessReport:
             and (self.shipped is None or self.shipped.passed)
         )
 
+    def _repr_html_(self) -> str:  # Jupyter: the shipped controller's requirements rows
+        verdict = "passed" if self.passed else "NOT passed"
+        rows = "" if self.shipped is None else self.shipped._repr_html_()
+        return f"<p><b>robustness {verdict}</b></p>{rows}"
+
 
 CAUTION = (
     "These results describe the linear model. Before a loop built from these gains drives a"

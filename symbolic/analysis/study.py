@@ -356,6 +356,9 @@ class SimulationRun:
         """Every requirement met (the command then exits with 0, else with 1)."""
         return self.requirements.passed
 
+    def _repr_html_(self) -> str:  # Jupyter: the requirements table
+        return self.requirements._repr_html_()
+
 
 def simulation_run(d: Derivation) -> SimulationRun:
     """The ``gainsmith simulate`` command: simulate the derivation and judge every requirement."""
