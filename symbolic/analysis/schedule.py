@@ -376,22 +376,3 @@ def _compare_gain(A, B, G, poles, name: str, problems: list[str]) -> bool:
         return True
     problems.append(f"{name}: {how}; the closed form's poles are off by {verdict.residual:.1e}")
     return False
-
-
-def _compare_gain(A, B, G, poles, name: str, problems: list[str]) -> bool:
-    """Compare a gain with place_poles; where SciPy refuses, check the eigenvalues instead."""
-    reference, how = scipy_placement(A, B, poles)
-    if reference is not None:
-        diff = _relative(G, reference)
-        if diff <= GAIN_TOLERANCE:
-            return True
-        problems.append(f"{name} differs from scipy.signal.place_poles by {diff:.1e} (relative)")
-        return False
-    verdict = check_eigenvalues(
-        A - B @ G, poles, terms=(A, (B, G)), weights=np.abs(A) + np.abs(B) @ np.abs(G)
-    )
-    if verdict.passed:
-        problems.append(f"{name}: {how}; the eigenvalues of the closed form's loop match instead")
-        return True
-    problems.append(f"{name}: {how}; the closed form's poles are off by {verdict.residual:.1e}")
-    return False
