@@ -23,6 +23,7 @@ import numpy as np
 if TYPE_CHECKING:
     from matplotlib.figure import Figure
 
+from .figure_layout import axis_label, place_legend
 from .figures import blank_figure, plain_label
 
 __all__ = ["anti_windup_figure", "integral_action_figure", "sampled_data_figure"]
@@ -41,7 +42,7 @@ def _figure(rows: int, height: float = 5.2) -> tuple[Figure, list]:
 
 
 def _label(name: str, unit: str) -> str:
-    return plain_label(f"{name} [{unit}]" if unit else name)
+    return plain_label(axis_label(name, unit))
 
 
 def sampled_data_figure(
@@ -102,7 +103,6 @@ def sampled_data_figure(
     top.axhline(reference, color="#888888", linewidth=0.8, linestyle=(0, (1, 3)), label="reference")
     top.set_ylabel(_label(output_name, output_unit))
     top.set_xlim(0.0, t_end)
-    top.legend(loc="best", fontsize=7)
     bottom.step(
         study.sample_times,
         study.controls[:, 0],
@@ -114,7 +114,8 @@ def sampled_data_figure(
     bottom.set_xlim(0.0, t_end)
     bottom.set_xlabel("time [s]")
     bottom.set_ylabel(_label(input_name, input_unit))
-    bottom.legend(loc="best", fontsize=7)
+    place_legend(top, fontsize=7)
+    place_legend(bottom, fontsize=7)
     return fig
 
 
@@ -155,12 +156,12 @@ def integral_action_figure(study, output_name: str, output_unit: str) -> Figure:
         fontsize=7,
         va="bottom",
     )
-    top.legend(loc="best", fontsize=7, title="nominal plant", title_fontsize=7)
+    bottom.set_xlabel("time [s]")
+    place_legend(top, fontsize=7, title="nominal plant", title_fontsize=7)
     if mismatched:
-        bottom.legend(loc="best", fontsize=7, title="mismatched plants", title_fontsize=7)
+        place_legend(bottom, fontsize=7, title="mismatched plants", title_fontsize=7)
     else:
         bottom.text(0.5, 0.5, "no parameters: no mismatch", transform=bottom.transAxes, ha="center")
-    bottom.set_xlabel("time [s]")
     return fig
 
 
@@ -198,7 +199,7 @@ def anti_windup_figure(
             color=_PURPLE,
             linewidth=0.9,
             linestyle=(0, (4, 1, 1, 1)),
-            label="actuator limit" if sign == 1 else None,
+            label=f"actuator limit ±{u_max:g}" if sign == 1 else None,
         )
     top.set_ylabel(_label(output_name, output_unit))
     bottom.set_ylabel(_label(input_name, input_unit))
@@ -206,5 +207,5 @@ def anti_windup_figure(
     t_end = float(runs[0].time[-1]) / 2  # the reference step: the first half of the study
     for ax in (top, bottom):
         ax.set_xlim(0.0, t_end)
-        ax.legend(loc="best", fontsize=7)
+        place_legend(ax, fontsize=7)
     return fig

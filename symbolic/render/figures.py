@@ -10,28 +10,49 @@ figures are drawn by the processes of :mod:`symbolic.render.figure_server`.
 
 from __future__ import annotations
 
-import functools
 import io
-import re
 from collections.abc import Sequence
 from typing import TYPE_CHECKING
 
 import numpy as np
+
+from ..model.numbers import format_poles
+from .figure_layout import (
+    DIMENSIONLESS,
+    ROUNDOFF_FLOOR,
+    above_floor,
+    axis_label,
+    coincidence_sentence,
+    coincident_pairs,
+    marker_style,
+    mixed_unit,
+    place_legend,
+    plain_log_labels,
+)
 
 if TYPE_CHECKING:
     from matplotlib.axes import Axes
     from matplotlib.figure import Figure
 
 __all__ = [
+    "POLE_MARKERS",
     "blank_figure",
     "control_effort_figure",
+    "curve_label",
+    "curves_coincidence",
     "estimation_error_figure",
+    "estimation_plan",
     "figure_files",
     "figure_names",
+    "input_curves",
     "observer_study_figure",
+    "output_curves",
     "plain_label",
     "plot_design_poles",
+    "plot_pole_kind",
     "pole_map_figure",
+    "pole_map_view",
+    "split_zeros",
     "step_response_figure",
     "warm_up",
 ]
@@ -44,14 +65,46 @@ _STYLES = {
     "limited": ("#6a3d9a", (0, (6, 2, 1, 2))),
 }
 
+#: Pole-map markers: (marker, colour, size, edge width) per kind.  Zeros are circles and only
+#: zeros are; poles are crosses of different shapes or squares (practitioners read circles as
+#: zeros).
+POLE_MARKERS = {
+    "controller": ("x", "#000000", 9, 2.0),
+    "observer": ("+", "#c0392b", 11, 2.0),
+    "plant": ("s", "#555555", 7, 1.2),
+    "zero": ("o", "#1f5fa8", 8, 1.5),
+}
+
 
 def _style(r) -> tuple[str, object]:
     key = "limited" if getattr(r, "saturated", False) else r.slug
     return _STYLES.get(key, ("#555555", "-"))
 
 
-def _name(r) -> str:
-    return plain_label(r.name + (" (limited)" if getattr(r, "saturated", False) else ""))
+def curve_label(r) -> str:
+    """The legend label of a simulated case (``(limited)`` added unless its name says so)."""
+    limited = getattr(r, "saturated", False) and "limited" not in r.name
+    return plain_label(r.name + (" (limited)" if limited else ""))
+
+
+def output_curves(responses: Sequence) -> list[tuple[np.ndarray, np.ndarray]]:
+    """``(time, tracked output)`` of each case, as :func:`step_response_figure` draws them."""
+    return [(np.asarray(r.time), np.asarray(r.tracked_output)) for r in responses]
+
+
+def input_curves(responses: Sequence) -> list[tuple[np.ndarray, np.ndarray]]:
+    """``(time, first input)`` of each case, as :func:`control_effort_figure` draws them."""
+    out = []
+    for r in responses:
+        u = np.asarray(r.control)
+        out.append((np.asarray(r.time), u[:, 0] if u.ndim == 2 else u))
+    return out
+
+
+def curves_coincidence(responses: Sequence, curves) -> str:
+    """The caption's sentence on the cases whose curves coincide (:func:`coincident_pairs`)."""
+    labels = [curve_label(r) for r in responses]
+    return coincidence_sentence(labels, coincident_pairs(curves))
 
 
 _WIDTH = (6.4, 3.4)
@@ -75,13 +128,18 @@ def _new(size=_WIDTH) -> tuple[Figure, Axes]:
     return fig, ax
 
 
-def _label(name: str, unit: str) -> str:
-    return f"{name} [{unit}]" if unit else name
-
-
 def plain_label(text: str) -> str:
     """Keep matplotlib from reading $...$ in user text as mathtext."""
     return text.replace("$", r"\$")
+
+
+def _draw_cases(ax: Axes, responses: Sequence, curves: list) -> None:
+    """One line per case; a curve that coincides with an earlier one gets markers."""
+    marked = [j for _i, j in coincident_pairs(curves)]
+    for k, (r, (t, y)) in enumerate(zip(responses, curves)):
+        colour, style = _style(r)
+        extra = marker_style(marked.index(k), len(marked), t.size) if k in marked else {}
+        ax.plot(t, y, color=colour, linestyle=style, linewidth=1.6, label=curve_label(r), **extra)
 
 
 def plot_design_poles(
@@ -91,30 +149,28 @@ def plot_design_poles(
     *,
     controller_label: str = "controller poles (A − BK)",
     observer_label: str = "observer poles (A − LC)",
-    observer_colour: str = "#c0392b",
-    observer_size: float = 7,
 ) -> None:
-    """Controller poles as crosses and observer poles as open circles (shared by the maps)."""
+    """Controller poles as ×, observer poles as + (shared by the maps; circles mean zeros)."""
+    for kind, values, label in (
+        ("controller", controller, controller_label),
+        ("observer", observer, observer_label),
+    ):
+        plot_pole_kind(ax, kind, np.asarray(values, dtype=complex), label)
+
+
+def plot_pole_kind(ax: Axes, kind: str, values: np.ndarray, label: str) -> None:
+    """Points of one kind of :data:`POLE_MARKERS` in the s-plane."""
+    marker, colour, size, width = POLE_MARKERS[kind]
     ax.plot(
-        controller.real,
-        controller.imag,
+        values.real,
+        values.imag,
         linestyle="none",
-        marker="x",
-        markersize=9,
-        markeredgewidth=2,
-        color="#000000",
-        label=controller_label,
-    )
-    ax.plot(
-        observer.real,
-        observer.imag,
-        linestyle="none",
-        marker="o",
-        markersize=observer_size,
+        marker=marker,
+        markersize=size,
+        markeredgewidth=width,
         markerfacecolor="none",
-        markeredgewidth=1.5,
-        color=observer_colour,
-        label=observer_label,
+        color=colour,
+        label=label,
     )
 
 
@@ -123,47 +179,77 @@ def step_response_figure(
 ) -> Figure:
     """Tracked output of each simulated case against time, with the reference."""
     fig, ax = _new()
-    for r in responses:
-        colour, style = _style(r)
-        ax.plot(
-            r.time, r.tracked_output, color=colour, linestyle=style, linewidth=1.6, label=_name(r)
-        )
+    _draw_cases(ax, responses, output_curves(responses))
     t = responses[0].time
     ax.axhline(reference, color="#888888", linewidth=0.8, linestyle=(0, (1, 3)), label="reference")
     ax.set_xlabel("time [s]")
-    ax.set_ylabel(plain_label(_label(output_name, output_unit)))
+    ax.set_ylabel(plain_label(axis_label(output_name, output_unit)))
     ax.set_xlim(t[0], t[-1])
-    ax.legend(loc="best", fontsize=8, frameon=True)
+    place_legend(ax)
     return fig
 
 
-def estimation_error_figure(responses: Sequence) -> Figure:
-    """Norm of the estimation error x − x̂ on a log scale (observer cases only)."""
+def estimation_plan(responses: Sequence) -> dict:
+    """What :func:`estimation_error_figure` draws: the round-off floor (:data:`ROUNDOFF_FLOOR`
+    times the largest state norm of the runs), the cases drawn, the cases whose error is zero
+    to rounding (not drawn) and the case whose initial error sets the 2 % line (or None)."""
+    observed = [k for k, r in enumerate(responses) if r.estimation_error_norm is not None]
+    scale = max(
+        (
+            float(np.max(np.linalg.norm(np.atleast_2d(responses[k].state), axis=1)))
+            for k in observed
+        ),
+        default=0.0,
+    )
+    floor = ROUNDOFF_FLOOR * scale
+    drawn = [k for k in observed if above_floor(responses[k].estimation_error_norm, scale)]
+    zero = [k for k in observed if k not in drawn]
+    starts = {k: float(responses[k].estimation_error_norm[0]) for k in drawn}
+    first = max((k for k in drawn if starts[k] > floor), key=starts.get, default=None)
+    return {"floor": floor, "drawn": drawn, "zero": zero, "initial": first}
+
+
+def estimation_error_figure(responses: Sequence, state_units: Sequence[str] = ()) -> Figure:
+    """Norm of the estimation error x − x̂ on a log scale (observer cases only).
+
+    Values below the round-off floor (:func:`estimation_plan`) are not drawn, and a case
+    whose whole error lies below it is named in the legend as zero to rounding.
+    """
     fig, ax = _new()
-    plotted = False
-    for r in responses:
-        e = getattr(r, "estimation_error_norm", None)
-        if e is None or not np.any(e > 0):
-            continue
+    plan = estimation_plan(responses)
+    floor = plan["floor"]
+    for k in plan["drawn"]:
+        r = responses[k]
+        e = np.asarray(r.estimation_error_norm, dtype=float)
         colour, style = _style(r)
-        positive = np.where(e > 0, e, np.nan)
-        ax.semilogy(r.time, positive, color=colour, linestyle=style, linewidth=1.6, label=_name(r))
-        e0 = e[0]
-        if e0 > 0:
-            ax.axhline(
-                0.02 * e0,
-                color="#888888",
-                linewidth=0.8,
-                linestyle=(0, (1, 3)),
-                label="2 % of initial error",
-            )
-        plotted = True
+        shown = np.where(e > floor, e, np.nan)
+        ax.semilogy(
+            r.time, shown, color=colour, linestyle=style, linewidth=1.6, label=curve_label(r)
+        )
+    if plan["initial"] is not None:
+        r = responses[plan["initial"]]
+        ax.axhline(
+            0.02 * float(r.estimation_error_norm[0]),
+            color="#888888",
+            linewidth=0.8,
+            linestyle=(0, (1, 3)),
+            label="2 % of the initial error",
+        )
+    for k in plan["zero"]:
+        ax.plot([], [], linestyle="none", label=curve_label(responses[k]) + ": zero to rounding")
     ax.set_xlabel("time [s]")
-    ax.set_ylabel("estimation error norm ‖x − x̂‖")
-    if plotted:
-        ax.legend(loc="best", fontsize=8)
+    ax.set_xlim(responses[0].time[0], responses[0].time[-1])
+    ax.set_ylabel(
+        plain_label(axis_label("error norm ‖x − x̂‖", mixed_unit(state_units))), fontsize=9
+    )
+    if plan["drawn"]:
+        top = ax.get_ylim()[1]
+        ax.set_ylim(max(floor, top * 1e-12), top)
+        place_legend(ax)
     else:
-        ax.text(0.5, 0.5, "no initial estimation error", transform=ax.transAxes, ha="center")
+        ax.set_yscale("log")
+        ax.set_ylim(max(floor, 1e-300), max(floor, 1e-300) * 1e3)
+        ax.text(0.5, 0.5, "estimation error zero to rounding", transform=ax.transAxes, ha="center")
     return fig
 
 
@@ -172,17 +258,7 @@ def control_effort_figure(
 ) -> Figure:
     """Control signal of each case, with the actuator limit drawn when given."""
     fig, ax = _new()
-    for r in responses:
-        colour, style = _style(r)
-        u = np.asarray(r.control)
-        ax.plot(
-            r.time,
-            u[:, 0] if u.ndim == 2 else u,
-            color=colour,
-            linestyle=style,
-            linewidth=1.6,
-            label=_name(r),
-        )
+    _draw_cases(ax, responses, input_curves(responses))
     if u_max is not None:
         for sign in (1, -1):
             ax.axhline(
@@ -190,63 +266,94 @@ def control_effort_figure(
                 color="#000000",
                 linewidth=1.0,
                 linestyle=(0, (4, 1, 1, 1)),
-                label="actuator limit" if sign == 1 else None,
+                label=f"actuator limit ±{u_max:g}" if sign == 1 else None,
             )
     ax.set_xlabel("time [s]")
-    ax.set_ylabel(plain_label(_label(input_name, input_unit)))
+    ax.set_ylabel(plain_label(axis_label(input_name, input_unit)))
     ax.set_xlim(responses[0].time[0], responses[0].time[-1])
-    ax.legend(loc="best", fontsize=8)
+    place_legend(ax)
     return fig
 
 
+def split_zeros(zeros, left: float, span: float) -> tuple[np.ndarray, np.ndarray]:
+    """The plant zeros inside the pole map's view (:func:`pole_map_view`), and those outside."""
+    zeros = np.asarray(zeros, dtype=complex).ravel()
+    inside = (zeros.real >= left) & (zeros.real <= 0.12 * span)
+    inside &= np.abs(zeros.imag) <= 0.75 * span
+    return zeros[inside], zeros[~inside]
+
+
 def pole_map_figure(
-    controller: np.ndarray, observer: np.ndarray, region=None, plant: np.ndarray | None = None
+    controller: np.ndarray,
+    observer: np.ndarray,
+    region=None,
+    plant: np.ndarray | None = None,
+    zeros: np.ndarray | None = None,
+    *,
+    controller_label: str = "controller poles (A − BK)",
+    observer_label: str = "observer poles (A − LC)",
 ) -> Figure:
-    """Controller and observer poles in the s-plane with the region that meets the specs.
+    """Controller poles (×), observer poles (+), plant poles (□) and plant zeros (○) in the
+    s-plane, with the region that meets the specs.
 
     ``region`` has ``min_damping_ratio``, ``min_real_part``,
-    ``min_natural_frequency`` (see :class:`symbolic.derivation.specs.SpecRegion`).
+    ``min_natural_frequency`` (see :class:`symbolic.derivation.specs.SpecRegion`).  Plant
+    zeros too far out for the view are named in the legend (:func:`pole_map_view`).
     """
     fig, ax = _new((6.4, 5.0))
     fig.subplots_adjust(bottom=0.27)
-    allp = np.concatenate([controller, observer] + ([plant] if plant is not None else []))
-    span = max(1.0, float(np.max(np.abs(allp)))) * 1.15
-    left = -span
+    left, span = pole_map_view(controller, observer, plant)
     ax.set_xlim(left, 0.12 * span)
     ax.set_ylim(-0.75 * span, 0.75 * span)
     if region is not None:
-        zeta = region.min_damping_ratio
-        sigma = region.min_real_part
-        wn = region.min_natural_frequency
-        # the admissible set: Re ≤ −σ, inside the damping wedge, outside |s| = ωn
-        x = np.linspace(left, 0, 400)
-        y = np.linspace(-0.75 * span, 0.75 * span, 400)
-        X, Y = np.meshgrid(x, y)
-        S = X + 1j * Y
-        ok = (X <= -sigma) & (np.abs(S) >= wn)
-        if zeta > 0:
-            ok &= -X >= zeta * np.abs(S)
-        ax.contourf(X, Y, ok.astype(float), levels=[0.5, 1.5], colors=["#d9ead3"], alpha=0.8)
-        ax.contour(X, Y, ok.astype(float), levels=[0.5], colors=["#2e7d32"], linewidths=0.8)
-        ax.plot([], [], color="#2e7d32", linewidth=6, alpha=0.4, label="meets the specifications")
+        _draw_region(ax, region, left, span)
     ax.axvline(0, color="#000000", linewidth=0.8)
     ax.axhline(0, color="#000000", linewidth=0.5)
     if plant is not None:
-        ax.plot(
-            plant.real,
-            plant.imag,
-            linestyle="none",
-            marker="s",
-            markersize=7,
-            markerfacecolor="none",
-            markeredgecolor="#555555",
-            label="open-loop plant poles",
-        )
-    plot_design_poles(ax, controller, observer)
+        plot_pole_kind(ax, "plant", np.asarray(plant, dtype=complex), "open-loop plant poles")
+    plot_design_poles(
+        ax, controller, observer, controller_label=controller_label, observer_label=observer_label
+    )
+    if zeros is not None:
+        shown, off = split_zeros(zeros, left, span)
+        far = format_poles(off, 3).replace("-", "−")
+        if shown.size:
+            label = "plant zeros" + (f" (also at {far}, outside the view)" if off.size else "")
+            plot_pole_kind(ax, "zero", shown, plain_label(label))
+        else:
+            label = f"plant zeros: at {far}, outside the view" if off.size else "plant zeros: none"
+            ax.plot([], [], linestyle="none", label=plain_label(label))
     ax.set_xlabel("real part [1/s]")
     ax.set_ylabel("imaginary part [rad/s]")
     ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=2, fontsize=8)
     return fig
+
+
+def pole_map_view(controller, observer, plant=None) -> tuple[float, float]:
+    """The left edge and the half-span of the pole map's view (zeros do not widen it)."""
+    allp = np.concatenate(
+        [np.asarray(controller), np.asarray(observer)]
+        + ([np.asarray(plant)] if plant is not None else [])
+    )
+    span = max(1.0, float(np.max(np.abs(allp)))) * 1.15
+    return -span, span
+
+
+def _draw_region(ax: Axes, region, left: float, span: float) -> None:
+    """The admissible set: Re ≤ −σ, inside the damping wedge, outside |s| = ωn."""
+    zeta = region.min_damping_ratio
+    sigma = region.min_real_part
+    wn = region.min_natural_frequency
+    x = np.linspace(left, 0, 400)
+    y = np.linspace(-0.75 * span, 0.75 * span, 400)
+    X, Y = np.meshgrid(x, y)
+    S = X + 1j * Y
+    ok = (X <= -sigma) & (np.abs(S) >= wn)
+    if zeta > 0:
+        ok &= -X >= zeta * np.abs(S)
+    ax.contourf(X, Y, ok.astype(float), levels=[0.5, 1.5], colors=["#d9ead3"], alpha=0.8)
+    ax.contour(X, Y, ok.astype(float), levels=[0.5], colors=["#2e7d32"], linewidths=0.8)
+    ax.plot([], [], color="#2e7d32", linewidth=6, alpha=0.4, label="meets the specifications")
 
 
 def observer_study_figure(
@@ -256,85 +363,66 @@ def observer_study_figure(
     peak_u: np.ndarray,
     input_name: str,
     input_unit: str,
+    chosen: tuple[float, float] | None = None,
+    chosen_values: tuple[float | None, float | None, float | None] | None = None,
 ) -> Figure:
-    """Overshoot, settling time and peak control against the observer speed factor."""
-    fig = blank_figure((6.4, 5.2))
-    fig.subplots_adjust(left=0.13, right=0.97, bottom=0.1, top=0.97, hspace=0.12)
+    """Overshoot, settling time and peak control against the observer speed factor.
+
+    ``chosen`` marks the design: a vertical line at its speed factor (``lo == hi``) or a band
+    over the ratios of its observer to its controller pole magnitudes; ``chosen_values`` (the
+    shipped loop's own overshoot, settling time and peak input) are drawn as stars on it.
+    """
+    fig = blank_figure((6.4, 5.4))
+    fig.subplots_adjust(left=0.13, right=0.97, bottom=0.16, top=0.97, hspace=0.12)
     axes = fig.subplots(3, 1, sharex=True)
-    for ax, values, label, marker in (
-        (axes[0], overshoot, "overshoot [%]", "o"),
-        (axes[1], settling, "settling time 2 % [s]", "s"),
+    for k, (ax, values, label, marker) in enumerate(
         (
-            axes[2],
-            peak_u,
-            plain_label(f"peak |{input_name}|" + (f" [{input_unit}]" if input_unit else "")),
-            "^",
-        ),
+            (axes[0], overshoot, "overshoot [%]", "o"),
+            (axes[1], settling, "settling time 2 % [s]", "s"),
+            (axes[2], peak_u, plain_label(axis_label(f"peak |{input_name}|", input_unit)), "^"),
+        )
     ):
-        ax.plot(factors, values, color="#000000", marker=marker, markersize=4, linewidth=1.2)
+        ax.plot(
+            factors,
+            values,
+            color="#000000",
+            marker=marker,
+            markersize=4,
+            linewidth=1.2,
+            label="sweep",
+        )
+        if chosen is not None:
+            lo, hi = chosen
+            if np.isclose(lo, hi, rtol=1e-6):
+                ax.axvline(
+                    lo,
+                    color="#c0392b",
+                    linewidth=1.2,
+                    linestyle=(0, (4, 2)),
+                    label=f"design: {lo:.3g}",
+                )
+            else:
+                ax.axvspan(lo, hi, color="#c0392b", alpha=0.18, label=f"design: {lo:.3g}–{hi:.3g}")
+        v = None if chosen_values is None else chosen_values[k]
+        if v is not None and chosen is not None and np.isclose(chosen[0], chosen[1], rtol=1e-6):
+            ax.plot(
+                [chosen[0]],
+                [v],
+                linestyle="none",
+                marker="*",
+                markersize=11,
+                color="#c0392b",
+                label="shipped design",
+            )
         ax.set_ylabel(label, fontsize=8)
         ax.grid(True, color="#cccccc", linewidth=0.6)
-    axes[-1].set_xlabel("observer speed factor (observer poles / controller poles)")
+    axes[-1].set_xlabel(
+        f"observer speed factor (observer poles / controller poles) [{DIMENSIONLESS}]"
+    )
     axes[-1].set_xscale("log")
+    handles, labels = axes[0].get_legend_handles_labels()
+    fig.legend(handles, labels, loc="lower center", ncol=len(handles), fontsize=8, frameon=False)
     return fig
-
-
-_SUPERSCRIPT = str.maketrans(
-    "-0123456789", "\u207b\u2070\u00b9\u00b2\u00b3\u2074\u2075\u2076\u2077\u2078\u2079"
-)
-#: The labels matplotlib's log-axis formatter writes: $\mathdefault{10^{-2}}$ and
-#: $\mathdefault{2\times10^{-1}}$ (minor ticks of a short range).
-_LOG_LABEL = re.compile(r"^\$\\mathdefault\{(?:([0-9.]+)\\times\s*)?10\^\{(-?[0-9]+)\}\}\$$")
-
-
-def _unicode_label(label: str) -> str:
-    """10⁻² for $\\mathdefault{10^{-2}}$: plain text, set without the mathtext parser."""
-    match = _LOG_LABEL.match(label)
-    if match is None:
-        return label  # anything else stays as matplotlib wrote it
-    factor, exponent = match.groups()
-    power = "10" + exponent.translate(_SUPERSCRIPT)
-    return f"{factor}\u00d7{power}" if factor else power
-
-
-@functools.cache
-def _plain_log_labels_class() -> type:
-    from matplotlib.ticker import Formatter
-
-    class PlainLogLabels(Formatter):
-        """The labels of a log-axis formatter, as plain Unicode text instead of mathtext.
-
-        Parsing mathtext took about a fifth of the time of saving the memo's figures
-        (measured: the log axes of the estimation-error, observer-study and Bode figures);
-        which ticks get a label is still decided by matplotlib's formatter.
-        """
-
-        def __init__(self, inner: Formatter):
-            self.inner = inner
-
-        def set_axis(self, axis) -> None:
-            super().set_axis(axis)
-            self.inner.set_axis(axis)
-
-        def set_locs(self, locs) -> None:
-            self.inner.set_locs(locs)
-
-        def __call__(self, x, pos=None) -> str:
-            return _unicode_label(self.inner(x, pos))
-
-    return PlainLogLabels
-
-
-def _plain_log_labels(fig: Figure) -> None:
-    from matplotlib.ticker import LogFormatterSciNotation
-
-    plain = _plain_log_labels_class()
-    for ax in fig.axes:
-        for axis in (ax.xaxis, ax.yaxis):
-            if isinstance(axis.get_major_formatter(), LogFormatterSciNotation):
-                axis.set_major_formatter(plain(axis.get_major_formatter()))
-            if isinstance(axis.get_minor_formatter(), LogFormatterSciNotation):
-                axis.set_minor_formatter(plain(axis.get_minor_formatter()))
 
 
 def figure_files(fig: Figure, stem: str) -> dict[str, bytes]:
@@ -344,7 +432,7 @@ def figure_files(fig: Figure, stem: str) -> dict[str, bytes]:
     left out so the same design gives the same files.  Log-axis tick labels are
     set as plain text (``10⁻²``) rather than mathtext, which is slow to lay out.
     """
-    _plain_log_labels(fig)
+    plain_log_labels(fig)
     out = {}
     buf = io.BytesIO()
     fig.savefig(

@@ -24,6 +24,7 @@ if TYPE_CHECKING:
 
     from ..analysis.margins import MarginReport
 
+from .figure_layout import DIMENSIONLESS
 from .figures import blank_figure, plain_label, plot_design_poles
 
 __all__ = ["loop_magnitude_phase_figure", "loop_polar_figure", "mismatch_pole_figure"]
@@ -140,6 +141,28 @@ def _compressed(z: np.ndarray) -> np.ndarray:
         return np.where(mag > 0, z * (np.log10(1.0 + mag) / np.where(mag > 0, mag, 1.0)), 0)
 
 
+def _polar_view(ax, loops: Sequence[MarginReport], compressed: bool, zoom: float) -> None:
+    """Limits, title and axis labels of one panel of :func:`loop_polar_figure`."""
+    if compressed:
+        reach = [0.5]
+        for r in loops:
+            L = r.response[np.isfinite(r.response)]
+            if L.size:
+                reach.append(float(np.max(np.abs(_compressed(L)))))
+        R = max(reach) * 1.08
+        ax.set_xlim(-R, R)
+        ax.set_ylim(-R, R)
+        ax.set_title("whole curve, radius log10(1 + |L|)", fontsize=8)
+        ax.set_xlabel(f"compressed Re L(jω) [{DIMENSIONLESS}]")
+        ax.set_ylabel(f"compressed Im L(jω) [{DIMENSIONLESS}]")
+    else:
+        ax.set_xlim(-1 - zoom, -1 + zoom)
+        ax.set_ylim(-zoom, zoom)
+        ax.set_title("near −1, true scale", fontsize=8)
+        ax.set_xlabel(f"Re L(jω) [{DIMENSIONLESS}]")
+        ax.set_ylabel(f"Im L(jω) [{DIMENSIONLESS}]")
+
+
 def loop_polar_figure(loops: Sequence[MarginReport], zoom: float = 2.0) -> Figure:
     """Nyquist plot of each loop with the critical point −1 and the unit circle.
 
@@ -189,25 +212,17 @@ def loop_polar_figure(loops: Sequence[MarginReport], zoom: float = 2.0) -> Figur
                     xytext=(z[i].real, z[i].imag),
                     arrowprops={"arrowstyle": "-|>", "color": colour, "linewidth": 1.2},
                 )
-        ax.plot([crit.real], [0], marker="+", markersize=12, markeredgewidth=2, color="#000000")
-        if compressed:
-            reach = [0.5]
-            for r in loops:
-                L = r.response[np.isfinite(r.response)]
-                if L.size:
-                    reach.append(float(np.max(np.abs(_compressed(L)))))
-            R = max(reach) * 1.08
-            ax.set_xlim(-R, R)
-            ax.set_ylim(-R, R)
-            ax.set_title("whole curve, radius log10(1 + |L|)", fontsize=8)
-            ax.set_xlabel("compressed Re L(jω)")
-            ax.set_ylabel("compressed Im L(jω)")
-        else:
-            ax.set_xlim(-1 - zoom, -1 + zoom)
-            ax.set_ylim(-zoom, zoom)
-            ax.set_title("near −1, true scale", fontsize=8)
-            ax.set_xlabel("Re L(jω)")
-            ax.set_ylabel("Im L(jω)")
+        ax.plot(
+            [crit.real],
+            [0],
+            linestyle="none",
+            marker="+",
+            markersize=12,
+            markeredgewidth=2,
+            color="#000000",
+            label="critical point −1",
+        )
+        _polar_view(ax, loops, compressed, zoom)
         ax.set_aspect("equal", adjustable="box")
         ax.grid(True, color="#eeeeee", linewidth=0.5)
     handles, labels = ax_zoom.get_legend_handles_labels()
@@ -215,7 +230,7 @@ def loop_polar_figure(loops: Sequence[MarginReport], zoom: float = 2.0) -> Figur
         handles + [ax_zoom.lines[0]],
         labels + ["unit circle"],
         loc="lower center",
-        ncol=3,
+        ncol=4,
         fontsize=8,
         frameon=False,
     )
@@ -237,7 +252,7 @@ def mismatch_pole_figure(
         Eigenvalues of the mismatched loop at each point.
     stable : (P,) bool array
     controller, observer : arrays
-        The nominal controller (×) and observer (○) poles.
+        The nominal controller (×) and observer (+) poles (the loop at the nominal point).
     seed : int
         For the reproducible subset drawn when there are more than
         :data:`MAX_SCATTER` poles.
@@ -279,10 +294,8 @@ def mismatch_pole_figure(
         ax,
         controller,
         observer,
-        controller_label="nominal controller poles",
-        observer_label="nominal observer poles",
-        observer_colour="#1f5fa8",
-        observer_size=8,
+        controller_label="nominal controller poles (A − BK)",
+        observer_label="nominal observer poles (A − LC)",
     )
     allp = np.concatenate([poles.ravel(), controller, observer])
     allp = allp[np.isfinite(allp)]

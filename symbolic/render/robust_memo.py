@@ -105,42 +105,70 @@ def _figures_and_captions(d: Derivation, r: RobustnessReport) -> tuple[dict, lis
             d.observer_poles.values,
         )
     }
-    captions = [
-        {
-            "stem": f"{name}-mismatch-poles",
-            "caption": (
-                f"Closed-loop poles of the observer-based loop at {m.grid.values.shape[0]} parameter"
-                " points (controller and observer designed at the nominal values); nominal"
-                " controller poles are crosses, observer poles circles, poles at unstable points"
-                " triangles."
-            ),
-        }
-    ]
+    captions = [{"stem": f"{name}-mismatch-poles", "caption": _mismatch_caption(d, r)}]
     if r.margins is None:
         return makers, captions
     loops = (r.margins.state_feedback, r.margins.observer_based)
     makers[f"{name}-loop-bode"] = functools.partial(rf.loop_magnitude_phase_figure, loops)
     makers[f"{name}-loop-nyquist"] = functools.partial(rf.loop_polar_figure, loops)
-    captions.append(
-        {
-            "stem": f"{name}-loop-bode",
-            "caption": (
-                "Bode plot of the loop broken at the plant input: state feedback with the true"
-                " state (solid) and the observer-based compensator (dashed); gain crossovers"
-                " are marked by circles and phase crossovers by diamonds."
-            ),
-        }
-    )
+    captions.append({"stem": f"{name}-loop-bode", "caption": _bode_caption(loops)})
     captions.append(
         {
             "stem": f"{name}-loop-nyquist",
             "caption": (
                 "Nyquist plot of both loops (ω from −∞ to ∞; the mirror image for negative ω"
-                " is drawn thin) with the unit circle and the critical point −1; right: near −1."
+                " is drawn thin) with the unit circle and the critical point −1 (a plus sign);"
+                " left: the whole curve with its radius compressed to log10(1 + |L|); right:"
+                " near −1, true scale."
             ),
         }
     )
     return makers, captions
+
+
+def _mismatch_caption(d: Derivation, r: RobustnessReport) -> str:
+    """The caption of the mismatch pole figure, from what it draws."""
+    m = r.mismatch
+    varied = m.grid.varied
+    points = m.grid.values.shape[0] - (1 if varied else 0)
+    text = (
+        f"Closed-loop poles of the continuous loop of K with the full-order observer L at"
+        f" {points} parameter {'point' if points == 1 else 'points'} (grey dots; controller and"
+        " observer designed at the"
+        " nominal values); the nominal point is marked by its controller poles (crosses, ×)"
+        " and observer poles (plus signs, +)."
+    )
+    if m.unstable_count:
+        count = m.unstable_count
+        where = "the unstable point" if count == 1 else f"the {count} unstable points"
+        text += f" Poles at {where} are red triangles."
+    else:
+        text += " Every point is stable."
+    if d.integral is not None or d.reduced_observer is not None or d.discrete is not None:
+        text += (
+            " The shipped controller (integral action, reduced-order observer or digital, as"
+            " the design asks) is judged separately in the requirements table."
+        )
+    return text
+
+
+def _bode_caption(loops) -> str:
+    """The Bode caption: the crossovers it marks, and which are absent."""
+    gain = any(len(x.gain_crossovers_rad_s) for x in loops)
+    phase = any(w > 0 for x in loops for w in x.phase_crossovers_rad_s)
+    text = (
+        "Bode plot of the loop broken at the plant input: state feedback with the true state"
+        " (solid) and the observer-based compensator (dashed)"
+    )
+    marks = []
+    if gain:
+        marks.append("gain crossovers by circles, with the phase margin as a bar to −180°")
+    if phase:
+        marks.append("phase crossovers by diamonds, with the gain margin as a bar to 0 dB")
+    text += "; " + " and ".join(marks) + "." if marks else "."
+    if not phase:
+        text += " Neither loop crosses −180° at a positive frequency."
+    return text
 
 
 def _margins_context(r: RobustnessReport) -> dict:

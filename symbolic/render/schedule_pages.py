@@ -22,6 +22,7 @@ from matplotlib.figure import Figure
 from ..analysis.schedule import GainSchedule, value_text
 from ..model.results import Derivation
 from ..runtime.publish import publish
+from .figure_layout import DIMENSIONLESS, coincident_pairs, marker_style, ratio_unit, unit_text
 from .figures import figure_files
 from .gain_formulas import CODE_OK
 from .schedule_code import gain_schedule
@@ -108,6 +109,7 @@ def schedule_figure(s: GainSchedule) -> Figure:
         bad_x |= _draw_panel(ax, titles[c], x_axis.values, table[..., c], valid, lines, c == 0)
     for c in range(len(columns), nrows * ncols):
         axs[c // ncols][c % ncols].set_visible(False)
+    _mark_nominal(s, [axs[c // ncols][c % ncols] for c in range(len(columns))])
     for c in range(len(columns)):
         ax = axs[c // ncols][c % ncols]
         for k, xb in enumerate(sorted(bad_x)):
@@ -118,7 +120,7 @@ def schedule_figure(s: GainSchedule) -> Figure:
                 linestyle=(0, (1, 2)),
                 label="invalid point" if (c == 0 and k == 0) else None,
             )
-    unit = f" [{x_axis.unit}]" if x_axis.unit else ""
+    unit = f" [{unit_text(x_axis.unit) or DIMENSIONLESS}]"
     for c in range(max(0, len(columns) - ncols), len(columns)):
         axs[c // ncols][c % ncols].set_xlabel(_plain(f"{x_axis.name}{unit}"), fontsize=8)
         axs[c // ncols][c % ncols].xaxis.set_tick_params(labelbottom=True)
@@ -139,6 +141,50 @@ def schedule_figure(s: GainSchedule) -> Figure:
         wspace=0.35,
     )
     return fig
+
+
+def nominal_gains(s: GainSchedule) -> np.ndarray:
+    """The derivation's gains at the nominal parameter values, in the schedule's columns."""
+    d = s.derivation
+    n_value = float(np.ravel(d.reference.value)[0]) if d.reference is not None else np.nan
+    return np.concatenate([np.ravel(d.K.value), np.ravel(d.L.value), [n_value]])
+
+
+def gain_units(s: GainSchedule) -> list[str]:
+    """The unit of each column from the design's signal units: K_ij [u_i/x_j],
+    L_ij [x_i/(y_j s)], N [u/r]."""
+    plant = s.derivation.design.plant
+    n, m, p = s.formulas.shape
+    units = [
+        ratio_unit(plant.inputs[i].unit, plant.states[j].unit) for i in range(m) for j in range(n)
+    ]
+    units += [
+        ratio_unit(plant.states[i].unit, f"{plant.outputs[j].unit} s".strip())
+        for i in range(n)
+        for j in range(p)
+    ]
+    tracked = s.derivation.reference.tracked.unit if s.derivation.reference else ""
+    return [*units, ratio_unit(plant.inputs[0].unit, tracked)]
+
+
+def _mark_nominal(s: GainSchedule, axes: list) -> None:
+    """The nominal design on every panel: a star at the nominal gain, a line at the nominal
+    value of the first varying parameter; each panel's y-axis gets the gain's unit."""
+    design = s.derivation.design
+    name = s.axes[0].name
+    x0 = float(next(p.value for p in design.parameters if p.name == name))
+    for ax, g, unit in zip(axes, nominal_gains(s), gain_units(s)):
+        ax.axvline(x0, color="#555555", linewidth=0.8, linestyle=(0, (4, 2)), label=None)
+        ax.plot(
+            [x0],
+            [g],
+            linestyle="none",
+            marker="*",
+            markersize=9,
+            color="#c0392b",
+            label="nominal design" if ax is axes[0] else None,
+        )
+        ax.set_ylabel(_plain(f"[{unit or DIMENSIONLESS}]"), fontsize=7)
 
 
 def _lines(s: GainSchedule) -> tuple[list[tuple[str, tuple]], list[str]]:
@@ -180,22 +226,30 @@ def _panel_titles(columns: list[str], states: list[str]) -> list[str]:
 
 
 def _draw_panel(ax, title: str, x: np.ndarray, gain: np.ndarray, valid: np.ndarray, lines, first):
-    """One gain's panel: a line per value of the second parameter; returns the invalid x."""
+    """One gain's panel: a line per value of the second parameter; returns the invalid x.
+
+    Lines that coincide (:func:`symbolic.render.figure_layout.coincident_pairs`) get markers
+    of their own, and the title says so.
+    """
     bad_x = set()
+    marked = [j for _i, j in coincident_pairs([(x, gain[index]) for _label, index in lines])]
     for k, (label, index) in enumerate(lines):
         ok = valid[index]
         bad_x.update(x[~ok].tolist())
+        style = {"marker": "." if x.size <= 25 else None, "markersize": 3}
+        if k in marked:
+            style = marker_style(marked.index(k), len(marked), x.size)
+            style["markevery"] = (marked.index(k) % 2, 2) if x.size <= 25 else style["markevery"]
         ax.plot(
             x,
             gain[index],
             color=_COLOURS[k % len(_COLOURS)],
             linestyle=_STYLES[k % len(_STYLES)],
             linewidth=1.3,
-            marker="." if x.size <= 25 else None,
-            markersize=3,
             label=_plain(label) if label and first else None,
+            **style,
         )
-    ax.set_title(_plain(title), fontsize=9)
+    ax.set_title(_plain(title + (" (lines coincide)" if marked else "")), fontsize=9)
     ax.grid(True, color="#cccccc", linewidth=0.6)
     ax.tick_params(labelsize=7)
     ax.yaxis.get_offset_text().set_fontsize(7)

@@ -12,6 +12,7 @@ from functools import partial
 import numpy as np
 
 from ..analysis.study import SimulationStudy, simulation_study
+from ..model.numbers import format_poles
 from ..model.results import Derivation
 from . import figures as fig
 from .figure_server import render_figures
@@ -57,7 +58,8 @@ def memo_simulation(
         "colspec": own_math("@{}p{0.3\\textwidth}" + "r" * len(cases_ctx) + "@{}"),
         "table": table,
         "remarks": list(s.remarks),
-        "figures": _captions(s, out_sig, in_sig),
+        "figures": _captions(d, s, out_sig, in_sig),
+        "pole_map_caption": _pole_map_caption(d, s),
         "study": _speed_study_context(s),
     }
     return ctx, figures
@@ -72,31 +74,34 @@ def _figure_makers(d: Derivation, s: SimulationStudy, out_sig, in_sig) -> dict:
     ctrl = s.controller
     responses = [c.response for c in s.cases]
     region = d.controller_poles.dominant.region if d.controller_poles.dominant else None
-    plant_poles = np.linalg.eigvals(d.plant.A)
+    controller_label, observer_label = _pole_labels(d, ctrl)
     figs = {
         "step": partial(
             fig.step_response_figure, responses, out_sig.name, out_sig.unit, s.reference
         ),
-        "estimation-error": partial(fig.estimation_error_figure, responses),
+        "estimation-error": partial(
+            fig.estimation_error_figure,
+            responses,
+            tuple(x.unit for x in d.design.plant.states),
+        ),
         "control": partial(
-            fig.control_effort_figure,
-            responses + ([s.saturated[2].response] if s.saturated else []),
-            in_sig.name,
-            in_sig.unit,
-            s.u_max,
+            fig.control_effort_figure, _control_cases(s), in_sig.name, in_sig.unit, s.u_max
         ),
         "pole-map": partial(
             fig.pole_map_figure,
             np.asarray(ctrl.controller_poles),
             np.asarray(ctrl.observer_poles),
             region,
-            plant_poles,
+            np.linalg.eigvals(d.plant.A),
+            np.asarray(s.plant_zeros, dtype=complex),
+            controller_label=controller_label,
+            observer_label=observer_label,
         ),
     }
     if s.saturated:
         figs["saturation"] = partial(
             fig.step_response_figure,
-            [s.cases[2].response, s.saturated[2].response],
+            _saturation_cases(s),
             out_sig.name,
             out_sig.unit,
             s.reference,
@@ -109,6 +114,7 @@ def _figure_makers(d: Derivation, s: SimulationStudy, out_sig, in_sig) -> dict:
                 [np.nan if getattr(m, key) is None else getattr(m, key) for _, m in s.speed_study]
             )
 
+        chosen, values = _chosen_speed(d, s)
         figs["observer-study"] = partial(
             fig.observer_study_figure,
             f,
@@ -117,9 +123,54 @@ def _figure_makers(d: Derivation, s: SimulationStudy, out_sig, in_sig) -> dict:
             col("peak_control"),
             in_sig.name,
             in_sig.unit,
+            chosen,
+            values,
         )
     name = d.design.slug
     return {f"{name}-{stem}": make for stem, make in figs.items()}
+
+
+def _control_cases(s: SimulationStudy) -> list:
+    """The runs the control-input figure draws: the three cases, and the limited run."""
+    return [c.response for c in s.cases] + ([s.saturated[2].response] if s.saturated else [])
+
+
+def _saturation_cases(s: SimulationStudy) -> list:
+    """The runs of the saturation figure: mismatched estimate without and with the limit."""
+    return [s.cases[2].response, s.saturated[2].response]
+
+
+def _pole_labels(d: Derivation, ctrl) -> tuple[str, str]:
+    """Legend labels of the shipped controller's poles on the pole map."""
+    n = d.plant.A.shape[0]
+    controller = "controller poles (A − BK)"
+    if len(ctrl.controller_poles) > n:
+        controller = "controller poles (A − BK, with the integral pole)"
+    observer = "observer poles (A − LC)"
+    if ctrl.observer == "reduced-order observer":
+        observer = "reduced-order observer poles"
+    return controller, observer
+
+
+def _chosen_speed(d: Derivation, s: SimulationStudy):
+    """Where the design sits on the observer-speed sweep: ``(lo, hi)`` and, for a design set
+    by a speed factor, the shipped loop's own values (mismatched estimate) to mark there."""
+    ctrl = s.controller
+    obs = d.design.observer
+    explicit = obs.poles is not None or (
+        ctrl.observer == "reduced-order observer" and obs.reduced_poles is not None
+    )
+    if not explicit:
+        m = s.cases[2].metrics
+        f = float(obs.speed_factor)
+        return (f, f), (m.overshoot_percent, m.settling_time_2pct, m.peak_control)
+    n = d.plant.A.shape[0]
+    c = np.abs(np.asarray(ctrl.controller_poles, dtype=complex)[:n])
+    o = np.abs(np.asarray(ctrl.observer_poles, dtype=complex))
+    if not (c.size and o.size and c.min() > 0):
+        return None, None
+    ratios = sorted((float(o.min() / c.min()), float(o.max() / c.max())))
+    return (ratios[0], ratios[1]), None
 
 
 def _summary(s: SimulationStudy) -> list[dict]:
@@ -167,42 +218,152 @@ def _metrics_table(s: SimulationStudy, in_sig) -> tuple[list[dict], list[dict]]:
     return cases_ctx, table
 
 
-def _captions(s: SimulationStudy, out_sig, in_sig) -> list[dict]:
-    """The captions of the section's figures, in the order they are shown."""
+def _captions(d: Derivation, s: SimulationStudy, out_sig, in_sig) -> list[dict]:
+    """The captions of the section's figures, in the order they are shown, each built from
+    what its figure draws (the same planning functions of :mod:`symbolic.render.figures`)."""
+    responses = [c.response for c in s.cases]
+    step = (
+        f"Step response of {out_sig.name}: state feedback with the true state (reference), and"
+        f" the shipped controller ({s.controller.description}) with a matched and with a"
+        " mismatched initial estimate."
+        + fig.curves_coincidence(responses, fig.output_curves(responses))
+    )
+    control_runs = _control_cases(s)
+    control = f"Control input {in_sig.name} of each case" + (
+        f", with the actuator limit ±{s.u_max:g}" if s.u_max is not None else ""
+    )
+    if s.saturated:
+        control += "; the dash-dotted curve is the run with the input limited"
+    elif s.u_max is not None:
+        control += " (the linear runs stay within it, so no limited run is drawn)"
+    control += "." + fig.curves_coincidence(control_runs, fig.input_curves(control_runs))
     captions = [
-        {
-            "stem": own_math("step"),
-            "caption": f"Step response of {out_sig.name}: state feedback with the true state (reference), and the shipped controller ({s.controller.description}) with a matched and with a mismatched initial estimate.",
-        },
+        {"stem": own_math("step"), "caption": step},
         {
             "stem": own_math("estimation-error"),
-            "caption": "Norm of the estimation error (log scale); the dotted line is 2 % of its initial value.",
+            "caption": _estimation_caption(responses, s.controller.sample_time),
         },
-        {
-            "stem": own_math("control"),
-            "caption": f"Control input {in_sig.name}"
-            + (
-                " with the actuator limit; the dash-dotted curve is the limited (saturated) run."
-                if s.u_max is not None
-                else "."
-            ),
-        },
+        {"stem": own_math("control"), "caption": control},
     ]
     if s.saturated:
+        runs = _saturation_cases(s)
         captions.append(
             {
                 "stem": own_math("saturation"),
-                "caption": "Shipped controller, mismatched estimate, without and with the actuator limit (nonlinear simulation).",
+                "caption": "Shipped controller, mismatched estimate, without and with the"
+                " actuator limit (nonlinear simulation)."
+                + fig.curves_coincidence(runs, fig.output_curves(runs)),
             }
         )
     if s.speed_study:
-        captions.append(
-            {
-                "stem": own_math("observer-study"),
-                "caption": "Observer-speed study: overshoot, settling time and peak input against the speed factor (mismatched estimate).",
-            }
-        )
+        captions.append({"stem": own_math("observer-study"), "caption": _speed_caption(d, s)})
     return captions
+
+
+#: How the captions name the observer cases.
+_ESTIMATE_NAMES = {
+    "observer_matched": "the matched estimate",
+    "observer_mismatched": "the mismatched estimate",
+}
+
+
+def _estimation_caption(responses: list, sample_time: float | None) -> str:
+    """The estimation-error caption: what is drawn, and what is zero to rounding."""
+    plan = fig.estimation_plan(responses)
+
+    def name(k: int) -> str:
+        return _ESTIMATE_NAMES.get(responses[k].slug, responses[k].name)
+
+    drawn = [name(k) for k in plan["drawn"]]
+    text = "Norm of the estimation error (true state minus estimate; log scale)"
+    text += (" for " + " and ".join(drawn) + ".") if drawn else "."
+    if plan["initial"] is not None:
+        text += f" The dotted line is 2 % of the initial error of {name(plan['initial'])}."
+    zero = [name(k) for k in plan["zero"]]
+    floor = f"{fig.ROUNDOFF_FLOOR:g} of the largest state norm, {plan['floor']:.2g}"
+    if zero:
+        text += (
+            " With " + " and ".join(zero) + " the error is zero to rounding (below"
+            f" {floor}) and is not drawn"
+        )
+        text += "; nor are values of the other curves below that floor." if drawn else "."
+    elif drawn:
+        text += f" Values below round-off ({floor}) are not drawn."
+    if sample_time:
+        text += (
+            f" The controller is digital (T = {sample_time:g} s): its observer state is updated"
+            " at the samples only, so the error rises between the samples and falls back at"
+            " each one."
+        )
+    return text
+
+
+def _pole_map_caption(d: Derivation, s: SimulationStudy) -> str:
+    """The pole-map caption: which marker is which, and the plant zeros drawn or not."""
+    ctrl = s.controller
+    controller, observer = _pole_labels(d, ctrl)
+    plant = np.linalg.eigvals(d.plant.A)
+    shown, off = fig.split_zeros(
+        np.asarray(s.plant_zeros, dtype=complex),
+        *fig.pole_map_view(ctrl.controller_poles, ctrl.observer_poles, plant),
+    )
+    text = (
+        f"Pole map of the shipped controller: {controller} as crosses (×), {observer} as plus"
+        " signs (+), open-loop plant poles as open squares"
+    )
+    if shown.size:
+        text += ", zeros of the plant's transfer function to the tracked output as open circles"
+    if d.controller_poles.dominant:
+        text += "; the shaded region meets the specifications"
+    text += "."
+    if ctrl.sample_time:
+        text += (
+            f" The controller is digital (T = {ctrl.sample_time:g} s): its poles are drawn in the"
+            " s-plane, as designed; in z they are exp(sT)."
+        )
+    if off.size:
+        text += (
+            f" The plant {'zero' if off.size == 1 else 'zeros'} at"
+            f" {format_poles(off, 3).replace('-', '−')}"
+            f" {'lies' if off.size == 1 else 'lie'} outside the view (named in the legend)."
+        )
+    elif not shown.size:
+        text += " The plant has no finite zeros."
+    return text
+
+
+def _speed_caption(d: Derivation, s: SimulationStudy) -> str:
+    """The observer-study caption, with where the design sits on the sweep."""
+    text = (
+        "Observer-speed study: overshoot, settling time and peak input against the speed"
+        " factor (mismatched estimate)."
+    )
+    chosen, values = _chosen_speed(d, s)
+    if chosen is None:
+        text += " The design's observer poles are not a multiple of its controller poles."
+    elif values is not None:
+        text += (
+            f" The dashed line marks the design's speed factor {chosen[0]:g}; the stars are the"
+            " shipped loop's own values there."
+        )
+    elif np.isclose(chosen[0], chosen[1], rtol=1e-6):
+        text += (
+            " The design's observer poles are given explicitly; the dashed line marks the ratio"
+            f" of their magnitude to the controller poles' ({chosen[0]:.3g})."
+        )
+    else:
+        text += (
+            " The design's observer poles are given explicitly, not as a multiple of the"
+            " controller poles; the shaded band spans the ratios of their magnitudes to the"
+            f" controller poles' ({chosen[0]:.3g} to {chosen[1]:.3g})."
+        )
+    missing = [f for f, m in s.speed_study if m.settling_time_2pct is None]
+    if missing:
+        text += (
+            f" At {len(missing)} {'factor' if len(missing) == 1 else 'factors'} the response"
+            " does not settle within the simulated time: no settling time is drawn there."
+        )
+    return text
 
 
 def _speed_study_context(s: SimulationStudy) -> dict | None:
