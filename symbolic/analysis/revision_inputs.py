@@ -1,6 +1,7 @@
-"""The items of a revision comparison that the design files state: parameters, the plant's
-matrices and signals, and the requests (poles, specifications, observer, tracking, sample
-time, simulation settings, hand-calculated claims), each a
+"""The items of a revision comparison that the design files state: parameters, the plant's matrices and signals, and the requests.
+
+The requests are the poles, specifications, observer, tracking, sample time, simulation
+settings and hand-calculated claims; each item is a
 :class:`~symbolic.analysis.revision_items.Difference`.
 
 Exact values are compared exactly (parameter values are SymPy rationals, poles SymPy

@@ -1,5 +1,6 @@
-"""The items of a revision comparison that come out of the derivation and the verdict: chosen
-poles, gains, margins and requirement rows, each a :class:`Difference`.
+"""The items of a revision comparison that come out of the derivation and the verdict: chosen poles, gains, margins and requirement rows.
+
+Each item is a :class:`Difference`.
 
 :mod:`symbolic.analysis.revision_diff` assembles them (its docstring says when a number counts
 as unchanged); :mod:`symbolic.analysis.revision_inputs` compares what the design files say.
@@ -367,6 +368,11 @@ def _row_difference(a, b) -> Difference:
     note = f"requested {a.requested} → {b.requested}" if a.requested != b.requested else ""
     if a.key in ROUND_OFF_ROWS and not note:
         note = "a round-off residue: compared by verdict only"
+    elif change == "changed" and not note and a.achieved == b.achieved:
+        note = (
+            f"the number behind it {format_number(a.achieved_value)}"
+            f" → {format_number(b.achieved_value)}"
+        )
     return Difference(
         "requirements",
         b.label,
