@@ -58,9 +58,11 @@ _LAZY = {
     "MemoDocument": "render.memo",
     "MemoResult": "render.memo",
     "RequirementTable": "analysis.requirements",
+    "RevisionComparison": "analysis.revision_diff",
     "RobustnessReport": "analysis.robust",
     "SimulationRun": "analysis.study",
     "build_memo": "api",
+    "compare": "api",
     "derive": "api",
     "export": "api",
     "robustness": "api",
@@ -76,9 +78,10 @@ _LAZY = {
 
 if TYPE_CHECKING:  # pragma: no cover
     from .analysis.requirements import RequirementTable
+    from .analysis.revision_diff import RevisionComparison
     from .analysis.robust import RobustnessReport
     from .analysis.study import SimulationRun
-    from .api import build_memo, derive, export, robustness, simulate, write_memo
+    from .api import build_memo, compare, derive, export, robustness, simulate, write_memo
     from .input.reader import load_design, parse_design
     from .model.design import Design, Parameter, Plant, Signal
     from .model.results import (
@@ -130,6 +133,7 @@ __all__ = [
     "ReferenceGainResult",
     "RenderError",
     "RequirementTable",
+    "RevisionComparison",
     "RobustnessReport",
     "SeparatedLoop",
     "Signal",
@@ -139,6 +143,7 @@ __all__ = [
     "StructureReport",
     "__version__",
     "build_memo",
+    "compare",
     "derive",
     "export",
     "load_design",

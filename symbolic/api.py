@@ -12,6 +12,7 @@ themselves in Jupyter (``_repr_html_`` / ``_repr_markdown_``).
 :func:`build_memo`   the memo's sources and figures, in memory
 :func:`write_memo`   the memo published to a folder (PDF with TeX)
 :func:`export`       C99 or Python code of the gains or of the digital controller
+:func:`compare`      what changed between two revisions of a design
 ===================  =============================================================
 
 :func:`symbolic.derive` is :func:`derive` here.  It is the derivation of
@@ -32,12 +33,13 @@ from .model.results import Derivation
 from .verification.refine import refine_controller_poles
 
 if TYPE_CHECKING:  # pragma: no cover - the analysis and render layers load on first use
+    from .analysis.revision_diff import RevisionComparison
     from .analysis.robust import RobustnessReport
     from .analysis.study import SimulationRun
     from .render.export import ExportResult
     from .render.memo import MemoDocument, MemoResult
 
-__all__ = ["build_memo", "derive", "export", "robustness", "simulate", "write_memo"]
+__all__ = ["build_memo", "compare", "derive", "export", "robustness", "simulate", "write_memo"]
 
 #: What the functions below accept: a design, the path of a design file, or a derivation.
 Subject = Design | Derivation | str | os.PathLike
@@ -219,3 +221,38 @@ def export(
     if output is not None:
         write_export(result, output)
     return result
+
+
+def compare(old: Subject, new: Subject) -> RevisionComparison:
+    """What changed between two revisions of a design, item by item.
+
+    Each side is derived (:func:`derive`) and simulated, and its requirements are judged on
+    its own shipped controller (:func:`simulate`); then parameters, plant entries (as
+    expressions), requests, chosen poles, gains K, L, N (at each side's nominal values, and
+    their closed forms), margins, every requirement row and the verdicts are compared
+    (:func:`symbolic.analysis.revision_diff.compare_revisions`).
+
+    Parameters
+    ----------
+    old, new : Design, Derivation or path
+        The earlier and the later revision (the same file twice is allowed: no change).
+
+    Returns
+    -------
+    RevisionComparison
+        ``.differences`` (every item), ``.changes`` (those that changed), ``.unchanged``,
+        ``.section(name)``, ``.old`` and ``.new`` (file, revision, SHA-256, verdict) and
+        ``.passed`` (the new revision meets every requirement).
+
+    Examples
+    --------
+    >>> import symbolic
+    >>> result = symbolic.compare("worked_designs/focus_actuator.toml",
+    ...                           "worked_designs/focus_actuator.toml")  # doctest: +SKIP
+    >>> result.unchanged  # doctest: +SKIP
+    True
+    """
+    from .analysis.revision_diff import compare_revisions
+    from .analysis.study import simulation_run
+
+    return compare_revisions(simulation_run(derived(old)), simulation_run(derived(new)))

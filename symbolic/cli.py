@@ -64,8 +64,11 @@ def _cmd_memo(args) -> int:
     from .render.memo import write_memo
 
     design = _load(args)
+    previous = _previous_revision(args)  # --compare OLD: read before any work
     t0 = time.perf_counter()
-    result = write_memo(derive(design), args.output, pdf=not args.no_pdf)
+    d = derive(design)
+    comparison = None if previous is None else _compare(previous, d)
+    result = write_memo(d, args.output, pdf=not args.no_pdf, comparison=comparison)
     if args.json:
         from .render.report import dumps
 
@@ -186,6 +189,37 @@ def _cmd_robustness(args) -> int:
     return EXIT_OK if report.passed else EXIT_FAILED_CHECK
 
 
+def _previous_revision(args):
+    """The design of ``memo --compare OLD``, or None without the option."""
+    if getattr(args, "compare", None) is None:
+        return None
+    from .input.reader import load_design
+
+    return load_design(args.compare)
+
+
+def _compare(old, new):
+    from .api import compare
+
+    return compare(old, new)
+
+
+def _cmd_compare(args) -> int:
+    from .input.reader import load_design
+    from .render.report import dumps
+    from .render.revision_pages import comparison_json, comparison_text
+
+    old, new = load_design(args.old), load_design(args.new)  # both refused before any work
+    t0 = time.perf_counter()
+    result = _compare(old, new)
+    if args.json:
+        print(dumps(comparison_json(result)))
+    else:
+        print(comparison_text(result))
+        print(f"(compared in {time.perf_counter() - t0:.1f} s)")
+    return EXIT_OK if result.passed else EXIT_FAILED_CHECK
+
+
 def _common(p: argparse.ArgumentParser) -> None:
     p.add_argument("design", help="the design file (TOML)")
     p.add_argument(
@@ -214,6 +248,11 @@ def _add_memo(sub) -> None:
     _common(p)
     p.add_argument("-o", "--output", default="memo", help="output folder (default: ./memo)")
     p.add_argument("--no-pdf", action="store_true", help="do not compile the PDF")
+    p.add_argument(
+        "--compare",
+        metavar="OLD",
+        help='add a section "Changes since revision X" against the earlier design file OLD',
+    )
     _json_flag(p, "print the files written and the requirements table")
     p.set_defaults(func=_cmd_memo)
 
@@ -288,6 +327,18 @@ def _add_robustness(sub) -> None:
     p.set_defaults(func=_cmd_robustness)
 
 
+def _add_compare(sub) -> None:
+    p = sub.add_parser(
+        "compare",
+        help="what changed between two revisions of a design (exit 0 when NEW meets every"
+        " requirement)",
+    )
+    p.add_argument("old", metavar="OLD", help="the earlier design file (TOML)")
+    p.add_argument("new", metavar="NEW", help="the later design file (TOML)")
+    _json_flag(p, "print every compared item, machine-readable")
+    p.set_defaults(func=_cmd_compare)
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="gainsmith",
@@ -308,6 +359,7 @@ def build_parser() -> argparse.ArgumentParser:
         _add_export,
         _add_schedule,
         _add_robustness,
+        _add_compare,
     ):
         add(sub)
     return parser

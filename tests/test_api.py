@@ -50,10 +50,12 @@ PUBLIC = {
     "MemoDocument",
     "MemoResult",
     "RequirementTable",
+    "RevisionComparison",
     "RobustnessReport",
     "SimulationRun",
     # entry points
     "build_memo",
+    "compare",
     "derive",
     "export",
     "load_design",

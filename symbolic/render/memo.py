@@ -190,9 +190,15 @@ def build_memo(
     extended_context: dict | None = None,
     requirements=None,
     controller=None,
+    comparison=None,
 ) -> MemoDocument:
-    """Render the memo source of every format from a finished derivation."""
+    """Render the memo source of every format from a finished derivation (with a
+    :class:`~symbolic.analysis.revision_diff.RevisionComparison`, the section "Changes since
+    revision X")."""
+    from .memo_changes import changes_context
+
     ctx = build_context(d, study_context, claims_context, requirements, controller)
+    ctx["changes"] = changes_context(comparison)
     ctx["robustness"] = robustness_context
     ctx.update(extended_sections(d) if extended_context is None else extended_context)
     name = d.design.slug
@@ -204,7 +210,7 @@ def build_memo(
     return MemoDocument(name=name, sources=sources, figures=dict(figures or {}))
 
 
-def assemble_memo(d: Derivation) -> MemoDocument:
+def assemble_memo(d: Derivation, comparison=None) -> MemoDocument:
     """Simulate, check the claims, study robustness and render: everything but the PDF and
     the files.  ``d`` comes from :func:`symbolic.derive`."""
     from ..analysis.study import simulation_study
@@ -229,7 +235,15 @@ def assemble_memo(d: Derivation) -> MemoDocument:
         names = {**figures, **robustness_figures, **extended_figures}  # contents come later
         batch.start()  # the figures are drawn while the templates render
         doc = build_memo(
-            d, study_ctx, names, claims_ctx, robustness_ctx, extended_ctx, table, study.controller
+            d,
+            study_ctx,
+            names,
+            claims_ctx,
+            robustness_ctx,
+            extended_ctx,
+            table,
+            study.controller,
+            comparison,
         )
         files = batch.result()
     if set(files) != set(names):
@@ -256,7 +270,7 @@ def _compile(doc: MemoDocument, out: Path) -> tuple[bytes, float]:
     return data, time.perf_counter() - t1
 
 
-def write_memo(d: Derivation, out_dir: str | Path, pdf: bool = True) -> MemoResult:
+def write_memo(d: Derivation, out_dir: str | Path, pdf: bool = True, comparison=None) -> MemoResult:
     """Simulate, render, compile and publish the memo of a derivation.
 
     The memo is written whether or not every row of the requirements table passes (it
@@ -272,7 +286,7 @@ def write_memo(d: Derivation, out_dir: str | Path, pdf: bool = True) -> MemoResu
     from ..runtime.publish import publish
     from .pdf import find_tex_engine
 
-    doc = assemble_memo(d)
+    doc = assemble_memo(d, comparison)
     files: dict[str, bytes] = {
         f"{doc.name}{fmt.suffix}": doc.sources[fmt.name].encode("utf-8") for fmt in FORMATS
     }
