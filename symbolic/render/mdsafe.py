@@ -54,6 +54,8 @@ _SPACE_RUNS = re.compile(" {2,}")
 # ``list`` (the digits of an ordered-list marker are kept, the delimiter escaped).
 _MARKDOWN_SYNTAX = re.compile(
     r"""
+    (?= [`|$\[\]*_~\\<&:.#>+=^)0-9-] )          # the first characters of the rules (speed)
+    (?:
       [`|$]                                  # code spans and fences, table cells, math
     | (?P<bracket> [\[\]] )                  # links, images, definitions: see _inert_pair
     | (?P<flank> [*_~] )                     # emphasis and strikethrough: see _flanking
@@ -72,6 +74,7 @@ _MARKDOWN_SYNTAX = re.compile(
     | \A (?= [-: ]* - ) [-:] (?= [-: ]* \Z ) # thematic break, setext underline, table row
     | \A = (?= [= ]* \Z )                    # setext underline
     | \A (?P<list> \d{1,9} ) [.)] (?= [ ] | \Z )  # ordered list item
+    )
     """,
     re.VERBOSE,
 )
