@@ -24,8 +24,10 @@ Template authors, please note:
   ``set``/``endset`` or ``filter`` block) is layout whose values were already escaped; the
   environment marks it as such, so ``\\VAR{row(x)}`` prints a macro's LaTeX as is.  The
   mark belongs to the format whose environment produced the text.
-* See :mod:`symbolic.render.texsafe` for what the escapers do and what the LaTeX preamble
-  must contain.
+* See :mod:`symbolic.render.texsafe` for what the LaTeX escaper does and what the LaTeX
+  preamble must contain, and :mod:`symbolic.render.mdsafe` for the Markdown escaper: it
+  treats the start of a value as a possible line start, so a template may put a value
+  anywhere, but must write neither ``(``, ``[`` nor another value right after one.
 """
 
 from __future__ import annotations
@@ -274,7 +276,7 @@ def make_environment(kind: str) -> jinja2.Environment:
         variable raises), ``autoescape=False``, ``keep_trailing_newline``, ``trim_blocks``
         and ``lstrip_blocks``.  A ``finalize`` hook escapes every printed value with the
         format's escaper (:func:`~symbolic.render.texsafe.escape_latex` /
-        :func:`~symbolic.render.texsafe.escape_markdown`) unless it carries the format's
+        :func:`~symbolic.render.mdsafe.escape_markdown`) unless it carries the format's
         trust mark (:class:`~symbolic.render.texsafe.TrustedLatex` /
         :class:`~symbolic.render.texsafe.TrustedMarkdown`); other values are converted with
         ``str()`` first, and ``None`` prints as an em dash.  "tex" uses the delimiters

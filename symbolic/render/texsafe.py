@@ -7,9 +7,13 @@ whose ``finalize`` hook escapes every printed value with :func:`escape_latex` or
 :class:`TrustedLatex` (for the LaTeX memo) or :class:`TrustedMarkdown` (for the Markdown
 memo); each mark is honoured only by its own format.
 
-The escapers are single-pass character maps (``str.translate``), so an escape sequence is
-never escaped a second time, and TeX's ``^^5c`` notation cannot be formed because ``^`` is
-itself escaped.
+Each escaper reads its input once and writes each character once, so an escape sequence is
+never escaped a second time.  The LaTeX escaper is a character map (``str.translate``), and
+TeX's ``^^5c`` notation cannot be formed because ``^`` is itself escaped.  The Markdown
+escaper normalises the text with a character map, then escapes in one pass of a regular
+expression whose rules each name a character and the context in which Markdown reads it
+as syntax (a line start, the neighbouring characters), so that plain text keeps no
+needless backslash.
 
 Notes
 -----
@@ -25,11 +29,11 @@ Notes
 from __future__ import annotations
 
 import re
-import unicodedata
-from collections.abc import Callable
 from functools import lru_cache
 
 from ..runtime.errors import RenderError
+from .mdsafe import escape_markdown
+from .textchars import SPACES, CharMap, is_dropped, prepare_text
 
 __all__ = [
     "LATEX_COMMANDS",
@@ -155,35 +159,6 @@ class TrustedMarkdown(str):
 
 
 # --------------------------------------------------------------------------------------
-# Character classes shared by both escapers
-# --------------------------------------------------------------------------------------
-
-# Invisible characters that can reorder or hide text: bidirectional embeddings, overrides
-# and isolates, zero-width spaces and joiners, marks, the byte-order mark, the soft hyphen.
-_INVISIBLE = frozenset(
-    [*range(0x200B, 0x2010), *range(0x202A, 0x202F), *range(0x2060, 0x2065)]
-    + [*range(0x2066, 0x206A), 0xFEFF, 0x061C, 0x180E, 0x00AD]
-)
-# Characters that separate words or lines; each becomes one plain space.
-_SPACES = frozenset(
-    [0x09, 0x0A, 0x0B, 0x0C, 0x0D, 0x1C, 0x1D, 0x1E, 0x1F, 0x85, 0x1680, 0x2028, 0x2029]
-    + [*range(0x2000, 0x200B), 0x202F, 0x205F, 0x3000]
-)
-_SURROGATES = re.compile("[\ud800-\udfff]")
-
-
-def _prepare(text: str, function: str) -> str:
-    """Replace lone surrogates by U+FFFD and compose to NFC (é as one character)."""
-    if not isinstance(text, str):
-        raise TypeError(f"{function} expects a str, got {type(text).__name__}")
-    return unicodedata.normalize("NFC", _SURROGATES.sub("\ufffd", text))
-
-
-def _is_dropped(codepoint: int) -> bool:
-    return codepoint in _INVISIBLE or unicodedata.category(chr(codepoint)) == "Cc"
-
-
-# --------------------------------------------------------------------------------------
 # LaTeX
 # --------------------------------------------------------------------------------------
 
@@ -269,9 +244,9 @@ def _latex_for(codepoint: int) -> str:
     char = chr(codepoint)
     if char in _LATEX_SPECIALS:
         return _LATEX_SPECIALS[char]
-    if codepoint in _SPACES:
+    if codepoint in SPACES:
         return " "
-    if _is_dropped(codepoint):
+    if is_dropped(codepoint):
         return ""
     if 0x20 <= codepoint < 0x7F or char in LATEX_KEPT:
         return char
@@ -280,19 +255,7 @@ def _latex_for(codepoint: int) -> str:
     return _codepoint_latex(codepoint)
 
 
-class _CharMap:
-    """A read-only mapping for ``str.translate`` that computes each entry on demand."""
-
-    __slots__ = ("_function",)
-
-    def __init__(self, function: Callable[[int], str]) -> None:
-        self._function = function
-
-    def __getitem__(self, codepoint: int) -> str:
-        return self._function(codepoint)
-
-
-_LATEX_MAP = _CharMap(_latex_for)
+_LATEX_MAP = CharMap(_latex_for)
 
 
 def escape_latex(text: str) -> str:
@@ -356,7 +319,7 @@ def escape_latex(text: str) -> str:
     >>> escape_latex("ω = 2π f")
     '\\\\ensuremath{\\\\omega} = 2\\\\ensuremath{\\\\pi} f'
     """
-    text = _prepare(text, "escape_latex")
+    text = prepare_text(text, "escape_latex")
     if not _LONG_RUN.search(text):
         return text.translate(_LATEX_MAP)
     pieces: list[str] = []
@@ -369,93 +332,3 @@ def escape_latex(text: str) -> str:
         position = match.end()
     pieces.append(text[position:].translate(_LATEX_MAP))
     return "".join(pieces)
-
-
-# --------------------------------------------------------------------------------------
-# Markdown
-# --------------------------------------------------------------------------------------
-
-# CommonMark lets a backslash escape any ASCII punctuation (spec 0.31.2, section 2.4).  We
-# escape the characters that start Markdown syntax (emphasis, links, images, headings,
-# lists, tables, code, block quotes, GitHub math, strikethrough, setext underlines) and
-# ``: @`` that trigger GitHub's autolinks and mentions; < > & become HTML entities so that
-# no HTML tag can form.
-_MARKDOWN_BACKSLASHED = "\\`*_{}[]()#+-.!|$~=:@"
-_MARKDOWN_ENTITIES = {"<": "&lt;", ">": "&gt;", "&": "&amp;"}
-
-
-@lru_cache(maxsize=4096)
-def _markdown_for(codepoint: int) -> str:
-    """The Markdown for one code point; the single source of the Markdown character map."""
-    char = chr(codepoint)
-    if char in _MARKDOWN_ENTITIES:
-        return _MARKDOWN_ENTITIES[char]
-    if char in _MARKDOWN_BACKSLASHED:
-        return "\\" + char
-    if codepoint in _SPACES:
-        return " "
-    if _is_dropped(codepoint):
-        return ""
-    category = unicodedata.category(char)
-    if category in ("Cf", "Co", "Cn", "Cs"):
-        # Other format characters (e.g. the invisible tag characters), private-use and
-        # unassigned code points are shown by number.
-        return rf"\[U\+{codepoint:04X}\]"
-    return char
-
-
-_MARKDOWN_MAP = _CharMap(_markdown_for)
-_SPACE_RUNS = re.compile(" {2,}")
-
-
-def escape_markdown(text: str) -> str:
-    """Escape text so that a Markdown renderer (GitHub's) shows it literally and inertly.
-
-    Parameters
-    ----------
-    text : str
-        Any text, e.g. a title or a parameter description from a design file.
-
-    Returns
-    -------
-    str
-        Markdown for a paragraph or a table cell (not for a code span, where the
-        backslashes would show).
-
-    Raises
-    ------
-    TypeError
-        If `text` is not a ``str``.
-
-    Notes
-    -----
-    One pass of ``str.translate``:
-
-    * ``\\ ` * _ { } [ ] ( ) # + - . ! | $ ~ = : @`` get a backslash, so no emphasis, link,
-      image, heading, list, table, code span, math or autolink can start;
-    * ``< > &`` become ``&lt; &gt; &amp;``, so no HTML tag or entity can form;
-    * newlines, tabs and other separators become a space, runs of spaces become one
-      space and the ends are trimmed (no indented code block, no hard line break);
-    * control characters, bidirectional overrides and isolates, zero-width characters,
-      the byte-order mark and the soft hyphen are dropped; other invisible format
-      characters, private-use and unassigned code points become ``[U+XXXX]``;
-    * the text is composed to NFC first and lone surrogates become U+FFFD.
-
-    Other Unicode text (Cyrillic, CJK, emoji) is kept: Markdown is UTF-8.
-
-    References
-    ----------
-    .. [1] J. MacFarlane, *CommonMark Spec*, version 0.31.2, 2024, section 2.4 "Backslash
-       escapes" and section 2.5 "Entity and numeric character references".
-    .. [2] GitHub, *GitHub Flavored Markdown Spec*, version 0.29-gfm, 2019, sections 6.5
-       (strikethrough) and 6.9 (autolinks, extension).
-
-    Examples
-    --------
-    >>> escape_markdown("[x](javascript:alert(1))")
-    '\\\\[x\\\\]\\\\(javascript\\\\:alert\\\\(1\\\\)\\\\)'
-    >>> escape_markdown("<b>bold</b>")
-    '&lt;b&gt;bold&lt;/b&gt;'
-    """
-    text = _prepare(text, "escape_markdown").translate(_MARKDOWN_MAP)
-    return _SPACE_RUNS.sub(" ", text).strip(" ")
