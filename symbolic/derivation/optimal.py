@@ -143,7 +143,8 @@ def optimal_controller_choice(design: Design) -> PoleChoice:
         " the integral of xᵀQx + uᵀRu over time, with Q = controller.state_weights and"
         " R = controller.input_weights, P from the algebraic Riccati equation"
         " AᵀP + PA − PBR⁻¹BᵀP + Q = 0 solved at the nominal parameter values"
-        " (scipy.linalg.solve_continuous_are; Anderson and Moore 1990), rounded to {OPTIMAL_POLE_DIGITS} significant digits"
+        " (scipy.linalg.solve_continuous_are; Anderson and Moore 1990), rounded to"
+        f" {OPTIMAL_POLE_DIGITS} significant digits"
     )
     rule += _digital_note(design)
     return PoleChoice(poles, "optimal", rule, cf.desired_coefficients(poles), optimal=optimal)
