@@ -28,7 +28,14 @@ import sympy as sp
 
 import symbolic
 from symbolic import DesignFileError, derive, load_design
-from symbolic.derivation.optimal import OPTIMAL_POLE_DIGITS, rounded_poles
+from symbolic.derivation.numeric import numeric_ackermann
+from symbolic.derivation.optimal import (
+    OPTIMAL_POLE_DIGITS,
+    ROUNDING_TOLERANCE,
+    entrywise_difference,
+    rounded_poles,
+    rounding_for,
+)
 from symbolic.derivation.pole_rules import requested_rule
 from symbolic.derivation.riccati import riccati_gain
 
@@ -132,7 +139,7 @@ def test_double_integrator_design_ships_the_optimal_gain(write_design):
     r2 = math.sqrt(2.0)
     assert d.controller_poles.origin == "optimal" and d.observer_poles.origin == "optimal"
     # the exact closed form at b = 1 is the LQR gain [1, √2] (Anderson and Moore, from memory),
-    # up to rounding the poles to 6 digits (relative 5e-7 per pole)
+    # up to rounding the poles (to within 1e-7 of the gain, entry by entry)
     assert relative(d.K.value, [[1.0, r2]]) < 2e-6
     # the dual problem with W = diag(0, 1), V = 1 is the same Riccati equation transposed
     assert relative(d.L.value, [[r2], [1.0]]) < 2e-6
@@ -413,4 +420,26 @@ def test_bad_weights_are_one_line_naming_the_key(write_design, old, new, key, wo
 
 def test_public_api_reaches_the_rule(write_design):
     d = symbolic.derive(symbolic.load_design(write_design(DOUBLE_INTEGRATOR)))
-    assert d.controller_poles.optimal is not None and d.controller_poles.optimal.digits == 6
+    optimal = d.controller_poles.optimal
+    assert optimal is not None and optimal.digits >= OPTIMAL_POLE_DIGITS
+    assert optimal.rounding <= ROUNDING_TOLERANCE
+    assert f"rounded to {optimal.digits} significant digits" in d.controller_poles.rule
+
+
+def test_rounding_takes_more_digits_where_the_gain_is_sensitive():
+    # a fast open-loop pole the Kalman filter hardly moves (the camera pan axis of the worked
+    # designs, dual pair): rounding its pole to 6 digits would move the third entry of L by
+    # about 15 %, so the rule keeps more digits
+    J, b, kt, Rw, Lw = 0.0024, 0.004, 0.085, 2.6, 0.0012
+    A = np.array([[0, 1, 0], [0, -b / J, kt / J], [0, -kt / Lw, -Rw / Lw]])
+    C = np.array([[1.0, 0.0, 0.0]])
+    W, V = np.diag([0.0, 400.0, 0.0]), np.array([[1e-7]])
+    P = hamiltonian_riccati(A.T, C.T, W, V)
+    L_ref = (P @ C.T / V[0, 0]).T  # the dual gain Lᵀ (Kalman and Bucy 1961)
+    poles = np.linalg.eigvals(A - L_ref.T @ C)
+    coarse = [complex(z) for z in rounded_poles(poles, OPTIMAL_POLE_DIGITS)]
+    assert entrywise_difference(numeric_ackermann(A.T, C.T, coarse), L_ref) > 1e-3
+    rounded, digits, effect = rounding_for(A.T, C.T, poles)
+    assert digits > OPTIMAL_POLE_DIGITS and effect <= ROUNDING_TOLERANCE
+    placed = numeric_ackermann(A.T, C.T, [complex(z) for z in rounded])
+    assert entrywise_difference(placed, L_ref) < 1e-6

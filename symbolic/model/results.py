@@ -69,6 +69,7 @@ class OptimalPoles:
     poles: np.ndarray  # the eigenvalues of A − BK (A − LC) before rounding
     residual: float  # relative residual of the Riccati equation
     digits: int  # significant digits the poles are rounded to
+    rounding: float  # what that rounding does to the gain, relative, entry by entry
 
 
 @dataclass(frozen=True)

@@ -114,7 +114,9 @@ def optimal_context(d: Derivation, controller) -> dict | None:
         "blocks": blocks,
         "columns": [loop.label for loop in loops],
         "rows": _rows(loops, comparison.settling_band, unit),
-        "colspec": own_math("@{}p{0.3\\textwidth}" + "p{0.3\\textwidth}" * len(loops) + "@{}"),
+        "colspec": own_math(
+            "@{}" + ">{\\raggedright\\arraybackslash}p{0.3\\textwidth}" * (1 + len(loops)) + "@{}"
+        ),
         "alternative_rule": comparison.alternative_rule,
         "compared": comparison.alternative is not None,
         "horizon": own_math(latex_number(comparison.horizon, 4)),
