@@ -223,9 +223,9 @@ def optimal_observer_choice(design: Design) -> PoleChoice:
 def _residual_check(what: str, optimal: OptimalPoles) -> Check:
     return Check(
         f"{what}: residual of the algebraic Riccati equation (relative, scipy.linalg)",
-        optimal.residual,
+        float(optimal.residual),
         RICCATI_TOLERANCE,
-        optimal.residual <= RICCATI_TOLERANCE,
+        bool(optimal.residual <= RICCATI_TOLERANCE),
     )
 
 
@@ -243,25 +243,27 @@ def _gain_checks(label: str, A, B, shipped: np.ndarray, optimal: OptimalPoles):
     exact = numeric_ackermann(A, B, optimal.poles)
     diff = relative_difference(exact, reference)
     # Ackermann's formula in floating point loses about cond(𝒞) units of round-off
-    floor = max(GAIN_TOLERANCE, 10.0 * np.finfo(float).eps * _controllability_condition(A, B))
+    floor = float(
+        max(GAIN_TOLERANCE, 10.0 * np.finfo(float).eps * _controllability_condition(A, B))
+    )
     # every entry: the rounding of the poles and the floating point of the evaluation allow
-    tolerance = 10.0 * max(optimal.rounding, floor)
+    tolerance = float(10.0 * max(optimal.rounding, floor))
     shipped_diff = entrywise_difference(shipped, reference)
     return [
         Check(
             f"{label}: Ackermann's formula at the unrounded Riccati poles vs the optimal gain"
             " (relative; a single-input pair, so the gain that places them is unique)",
-            diff,
+            float(diff),
             floor,
-            diff <= floor,
+            bool(diff <= floor),
         ),
         Check(
             f"{label}: the derived gain at the evaluated values vs the optimal gain (relative,"
             f" entry by entry; ten times what rounding the poles to {optimal.digits} digits"
             " does)",
-            shipped_diff,
+            float(shipped_diff),
             tolerance,
-            shipped_diff <= tolerance,
+            bool(shipped_diff <= tolerance),
         ),
     ]
 
