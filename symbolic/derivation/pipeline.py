@@ -34,6 +34,7 @@ from . import closed_form as cf
 from .extensions import add_extensions, cancel_extensions, start_extensions
 from .gains import compensator, feedback_gains, pole_checks, reference_gain, separated_loop
 from .numeric import evaluate_matrix
+from .optimal import optimal_checks
 from .pole_rules import select_controller_poles, select_observer_poles, shipped_pole_sets
 from .structure import plant_structure, values_text
 
@@ -238,6 +239,7 @@ def _derive(
     controllability, observability = plant_structure(design, forms, num, notes)
     K, L = feedback_gains(design, forms, num, ctrl, obs, notes, checks)
     pole_checks(num, K, L, ctrl, obs, notes, checks)
+    checks.extend(optimal_checks(num, K, L, ctrl, obs))
     separated = separated_loop(num, K, L, ctrl, obs, sep_forms, checks)
     A, B, C, D = num.A, num.B, num.C, num.D
     reference = reference_gain(design, forms, A, B, C, D, K.value, values, checks, notes)

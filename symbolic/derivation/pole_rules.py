@@ -31,6 +31,7 @@ from ..model.results import PoleChoice
 from ..runtime import sidecar as _sidecar
 from . import closed_form as cf
 from .dominant import dominant_pair, refined_pair, round_sig3
+from .optimal import optimal_controller_choice, optimal_observer_choice
 
 if TYPE_CHECKING:
     from ..model.design import Design
@@ -81,13 +82,18 @@ def pole_rule(kind: str, name: str) -> Callable[[Callable], Callable]:
 def requested_rule(kind: str, design: Design) -> str:
     """The name of the rule the design file asks for, for the ``kind`` poles.
 
-    Explicit poles in the design file select ``"given"``; otherwise the controller poles
-    come from the specifications, the observer poles from the speed factor, the integral
-    pole from the default rule and the reduced observer's from the full-order observer's.
+    ``method = "optimal"`` selects ``"optimal"``; explicit poles in the design file select
+    ``"given"``; otherwise the controller poles come from the specifications, the observer
+    poles from the speed factor, the integral pole from the default rule and the reduced
+    observer's from the full-order observer's.
     """
     if kind == "controller":
+        if design.controller.optimal:
+            return "optimal"
         return "given" if design.controller.poles is not None else "specifications"
     if kind == "observer":
+        if design.observer.optimal:
+            return "optimal"
         return "given" if design.observer.poles is not None else "speed factor"
     if kind == "integral":
         return "given" if design.tracking.integral_pole is not None else "default"
@@ -164,6 +170,13 @@ def poles_from_specifications(design: Design) -> PoleChoice:
     """The dominant pair that meets the specifications, and the remaining poles by rule."""
     pair = _sidecar.call(dominant_pair, design.controller.specifications)  # root finding: SciPy
     return poles_for_pair(design, pair)
+
+
+@pole_rule("controller", "optimal")
+def optimal_controller_poles(design: Design) -> PoleChoice:
+    """The poles of the linear-quadratic regulator of the design's weights (``controller.method
+    = "optimal"``), by :func:`symbolic.derivation.optimal.optimal_controller_choice`."""
+    return optimal_controller_choice(design)
 
 
 def poles_for_pair(design: Design, pair: DominantPair) -> PoleChoice:
@@ -298,6 +311,13 @@ def observer_poles_by_speed_factor(design: Design, controller: PoleChoice) -> Po
     )
     rule = f"observer poles = {req.speed_factor:g} × controller poles{why}"
     return PoleChoice(poles, "speed factor", rule, cf.desired_coefficients(poles))
+
+
+@pole_rule("observer", "optimal")
+def optimal_observer_poles(design: Design, controller: PoleChoice) -> PoleChoice:
+    """The poles of the steady-state Kalman–Bucy filter of the design's noise intensities
+    (``observer.method = "optimal"``); they do not depend on the controller."""
+    return optimal_observer_choice(design)
 
 
 # --------------------------------------------------------------------------

@@ -2,7 +2,10 @@
 
 With specifications the table may also give the rule for the poles beyond the
 dominant pair (``remaining_pole_factor`` or ``remaining_poles``) and whether the
-pair is refined on the simulated step (``refine``).
+pair is refined on the simulated step (``refine``).  ``method = "optimal"`` takes the
+poles from the linear-quadratic regulator of ``state_weights`` and ``input_weights``
+(:mod:`symbolic.input.weights`); specifications may be given beside it, to be judged and
+compared with.
 """
 
 from __future__ import annotations
@@ -11,11 +14,17 @@ from typing import Any
 
 import sympy as sp
 
-from ..model.design import DEFAULT_REMAINING_POLE_FACTOR, ControllerRequest, Plant
+from ..model.design import (
+    CONTROLLER_METHODS,
+    DEFAULT_REMAINING_POLE_FACTOR,
+    ControllerRequest,
+    Plant,
+)
 from ..model.specifications import Specifications
 from ..runtime.errors import SpecificationError
 from .fields import FieldReader, short
 from .pole_lists import read_poles
+from .weights import read_weight_matrix
 
 __all__ = ["read_controller"]
 
@@ -29,7 +38,11 @@ _CONTROLLER_KEYS = (
     "remaining_pole_factor",
     "remaining_poles",
     "refine",
+    "method",
+    "state_weights",
+    "input_weights",
 )
+_WEIGHT_KEYS = ("state_weights", "input_weights")
 _SPECIFICATION_KEYS = ("overshoot_percent", "settling_time", "rise_time", "peak_time")
 
 
@@ -46,6 +59,13 @@ def read_controller(fields: FieldReader, data: Any, plant: Plant) -> ControllerR
             minimum=1.0,
             maximum=100.0,
         )
+    method = fields.choice(data.get("method"), "controller.method", CONTROLLER_METHODS, "")
+    if method == "optimal" or any(k in data for k in _WEIGHT_KEYS):
+        return _optimal(fields, data, plant, method, spec_keys, factor)
+    if method == "poles" and "poles" not in data:
+        fields.fail("controller.poles", 'method = "poles" needs poles = [...]')
+    if method == "specifications" and "poles" in data:
+        fields.fail("controller.poles", 'not used with method = "specifications"')
     if "poles" in data:
         return _explicit_poles(fields, data, n, spec_keys)
     if not spec_keys:
@@ -68,6 +88,55 @@ def read_controller(fields: FieldReader, data: Any, plant: Plant) -> ControllerR
         remaining_pole_factor=factor,
         remaining_poles=remaining,
         refine=refine,
+    )
+
+
+def _optimal(
+    fields: FieldReader, data: dict, plant: Plant, method: str, spec_keys: list[str], factor
+) -> ControllerRequest:
+    """The request of ``method = "optimal"``: the weights, and specifications if given."""
+    if method != "optimal":
+        key = next(k for k in _WEIGHT_KEYS if k in data)
+        fields.fail(f"controller.{key}", 'only used with method = "optimal"')
+    if "poles" in data:
+        fields.fail("controller.poles", 'not used with method = "optimal" (the weights set them)')
+    for key in _WEIGHT_KEYS:
+        if key not in data:
+            fields.fail(f"controller.{key}", 'missing: method = "optimal" needs both weights')
+    if plant.n_inputs != 1:
+        fields.fail(
+            "controller.method",
+            f'"optimal" needs a single-input plant (this one has {plant.n_inputs} inputs):'
+            " with several inputs the gain that places the optimal poles is not unique and"
+            " would not be the optimal gain",
+        )
+    Q = read_weight_matrix(
+        fields, data["state_weights"], "controller.state_weights", plant.order, definite=False
+    )
+    R = read_weight_matrix(
+        fields, data["input_weights"], "controller.input_weights", plant.n_inputs, definite=True
+    )
+    spec = remaining = None
+    refine = True
+    if spec_keys:
+        if plant.order < 2:
+            fields.fail("controller", "specifications need a plant of order 2 or more")
+        spec = _specifications(fields, data, spec_keys)
+        remaining = _remaining_poles(fields, data, plant.order)
+        refine = data.get("refine", True)
+        if not isinstance(refine, bool):
+            fields.fail("controller.refine", f"expected true or false, got {short(refine)}")
+    else:
+        for k in ("settling_band", "remaining_pole_factor", "remaining_poles", "refine"):
+            if k in data:
+                fields.fail(f"controller.{k}", "only meaningful with specifications")
+    return ControllerRequest(
+        specifications=spec,
+        remaining_pole_factor=factor,
+        remaining_poles=remaining,
+        refine=refine,
+        state_weights=Q,
+        input_weights=R,
     )
 
 

@@ -29,6 +29,8 @@ __all__ = [
     "DEFAULT_REMAINING_POLE_FACTOR",
     "OBSERVER_KINDS",
     "TRACKING_METHODS",
+    "CONTROLLER_METHODS",
+    "OBSERVER_METHODS",
 ]
 
 #: Observer poles this many times faster than the controller poles unless the
@@ -46,6 +48,11 @@ TRACKING_METHODS = ("reference_gain", "integral")
 #: ``[observer] kind``: the full-order observer (n states) or Luenberger's reduced-order one
 #: (n - p states).
 OBSERVER_KINDS = ("full", "reduced")
+#: ``[controller] method``: explicit poles, time-domain specifications, or the optimal
+#: (linear-quadratic) rule; optional, the keys given imply the first two.
+CONTROLLER_METHODS = ("poles", "specifications", "optimal")
+#: ``[observer] method``: explicit poles, the speed factor, or the optimal (Kalman–Bucy) rule.
+OBSERVER_METHODS = ("poles", "speed_factor", "optimal")
 
 
 @dataclass(frozen=True)
@@ -112,6 +119,16 @@ class ControllerRequest:
     #: Refine the dominant pair on the simulated step of the shipped loop (symbolic.verification.refine);
     #: ``[controller] refine = false`` keeps the second-order pair as it is.
     refine: bool = True
+    #: ``method = "optimal"``: the state weights Q (n × n, symmetric positive semidefinite) and
+    #: the input weights R (m × m, symmetric positive definite) of the cost ∫ xᵀQx + uᵀRu dt,
+    #: rows of floats; specifications may be given too (judged, and compared in the memo).
+    state_weights: tuple[tuple[float, ...], ...] | None = None
+    input_weights: tuple[tuple[float, ...], ...] | None = None
+
+    @property
+    def optimal(self) -> bool:
+        """Whether the poles come from the optimal (linear-quadratic) rule."""
+        return self.state_weights is not None
 
 
 @dataclass(frozen=True)
@@ -130,6 +147,15 @@ class ObserverRequest:
     speed_factor_is_default: bool = True
     kind: str = "full"
     reduced_poles: tuple[sp.Expr, ...] | None = None
+    #: ``method = "optimal"``: the intensity W of white process noise on ẋ (n × n, positive
+    #: semidefinite) and V of the measurement noise (p × p, positive definite), rows of floats.
+    process_noise: tuple[tuple[float, ...], ...] | None = None
+    measurement_noise: tuple[tuple[float, ...], ...] | None = None
+
+    @property
+    def optimal(self) -> bool:
+        """Whether the poles come from the optimal (Kalman–Bucy) rule."""
+        return self.process_noise is not None
 
 
 @dataclass(frozen=True)

@@ -26,6 +26,7 @@ __all__ = [
     "Derivation",
     "GainResult",
     "NumericPlant",
+    "OptimalPoles",
     "PoleChoice",
     "ReferenceGainResult",
     "SeparatedLoop",
@@ -51,14 +52,37 @@ class Check:
 
 
 @dataclass(frozen=True)
+class OptimalPoles:
+    """The algebraic Riccati equation behind an optimal pole choice, at the nominal values.
+
+    For the controller: ``weight`` Q, ``input_weight`` R, ``riccati`` P of
+    ``AᵀP + PA − PBR⁻¹BᵀP + Q = 0`` and ``gain`` the optimal K = R⁻¹BᵀP (m × n).  For the
+    observer: the process noise W, the measurement noise V, P of
+    ``AP + PAᵀ − PCᵀV⁻¹CP + W = 0`` and the Kalman–Bucy gain L = PCᵀV⁻¹ (n × p).
+    """
+
+    kind: str  # "controller" or "observer"
+    weight: np.ndarray
+    input_weight: np.ndarray
+    riccati: np.ndarray
+    gain: np.ndarray
+    poles: np.ndarray  # the eigenvalues of A − BK (A − LC) before rounding
+    residual: float  # relative residual of the Riccati equation
+    digits: int  # significant digits the poles are rounded to
+    rounding: float  # what that rounding does to the gain, relative, entry by entry
+
+
+@dataclass(frozen=True)
 class PoleChoice:
     """Requested poles and how they were chosen."""
 
     poles: tuple[sp.Expr, ...]
-    origin: str  # "given", "specifications", "speed factor"
+    origin: str  # "given", "specifications", "speed factor", "optimal"
     rule: str  # one sentence for the reader
     coefficients: tuple[sp.Expr, ...]  # [1, a_{n-1}, …, a_0]
     dominant: DominantPair | None = None
+    #: the Riccati solution when the origin is "optimal"
+    optimal: OptimalPoles | None = None
 
     @property
     def values(self) -> np.ndarray:

@@ -23,6 +23,7 @@ from pathlib import Path
 
 from ..model.results import Derivation
 from ..runtime.errors import RenderError
+from .comparison_memo import optimal_context
 from .formats import FORMATS, LATEX, MARKDOWN, render_template
 from .mathvalues import own_math
 from .memo_design import front_matter, plant_context, poles_context
@@ -146,6 +147,7 @@ def build_context(
         **verification_context(d),
         "requirements": _requirements_context(requirements),
         **shipped_context(d, controller),
+        "optimal": optimal_context(d, controller),
         "notes": list(d.notes),
         "references": references(d),
         "simulation": study,
