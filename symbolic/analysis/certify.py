@@ -150,10 +150,11 @@ class Certificate:
     def summary(self) -> str:
         """``proved over the box``, ``counterexample at …``, ``undecided after N boxes`` or
         ``not covered: …``."""
+        boxes = f"{self.boxes} box" + ("" if self.boxes == 1 else "es")
         if self.status == "proved":
-            return f"proved over the box ({self.boxes} boxes)"
+            return f"proved over the box ({boxes})"
         if self.status == "undecided":
-            return f"undecided after {self.boxes} boxes"
+            return f"undecided after {boxes}"
         if self.status == "not covered":
             return f"not covered: {self.detail}"
         what = (
@@ -191,6 +192,38 @@ class CertificateReport:
 
     def to_json(self) -> dict:
         return {"gains_fixed": self.fixed.to_json(), "gain_scheduled": self.scheduled.to_json()}
+
+    def requirement_rows(self) -> list[dict]:
+        """The rows of the requirements table (:mod:`symbolic.analysis.verdict`), one per
+        covered case; only a proof passes."""
+        rows = []
+        for cert, key, what in (
+            (self.fixed, "certified_ranges", "K, L fixed at the nominal design"),
+            (self.scheduled, "certified_schedule", "K(p), L(p) following the parameters"),
+        ):
+            if not cert.covered:
+                continue
+            short = "" if cert.passed else f"{cert.summary} ({cert.detail})"
+            if cert.status == "undecided":
+                short = f"not proved ({cert.detail}); narrow the ranges or raise the cap"
+            rows.append(
+                dict(
+                    key=key,
+                    label=f"stability over the parameter box, {cert.case}",
+                    requested="proved for every point of the box",
+                    achieved=cert.summary,
+                    passed=cert.passed,
+                    shortfall=short,
+                    basis=(
+                        f"{what}; Liénard–Chipart conditions of the characteristic polynomial"
+                        f" (order {cert.order}) over {', '.join(cert.parameters)}, interval"
+                        " enclosures and branch and bound (a proof, not a grid)"
+                    ),
+                    source="[parameters] ranges",
+                    achieved_value=float(cert.boxes),
+                )
+            )
+        return rows
 
 
 def _complex_text(z: complex) -> str:
@@ -352,7 +385,12 @@ def certify_fixed_gains(
         z, confirmed = _least_stable(np.linalg.eigvals(F_num))
         where = {n: float(x) for n, x in zip(names, point, strict=True)}
         failing = [c.name for c in conds if c.exact(point) <= 0]
-        return where, z, confirmed, "fails " + ", ".join(failing)
+        return (
+            where,
+            z,
+            confirmed,
+            ", ".join(failing) + (" fails" if len(failing) == 1 else " fail"),
+        )
 
     res = search_box(
         conds, bounds, _outer(bounds), refute=refute, max_boxes=max_boxes, time_limit=time_limit
@@ -389,7 +427,12 @@ def certify_scheduled(
                 eig = built.numeric_poles(_values(d.design, names, point))
                 z, confirmed = _least_stable(eig)
                 failing = [c.name for c in conds if c.exact(point) <= 0]
-                return where, z, confirmed, "fails " + ", ".join(failing)
+                return (
+                    where,
+                    z,
+                    confirmed,
+                    ", ".join(failing) + (" fails" if len(failing) == 1 else " fail"),
+                )
         return None
 
     res = search_box(

@@ -87,7 +87,8 @@ class BoxPolynomial:
     terms: Terms
     gradient: tuple[Terms, ...]
     rational: object  # ``poly`` over QQ, for exact values at rational points
-    integer: tuple[tuple[tuple[int, ...], int], ...]  # ``poly`` times a positive integer
+    integer: tuple[tuple[tuple[int, ...], int], ...]  # ``poly`` times ``scale``
+    scale: int = 1  # a positive integer
 
     @property
     def variables(self) -> int:
@@ -119,7 +120,7 @@ class BoxPolynomial:
         natural = _natural(self.terms, [iv.mpf([lo, hi]) for lo, hi in box])
         if natural.a > 0 or not self.gradient:
             return natural.a
-        return taylor_lower_bound(self.integer, box)
+        return taylor_lower_bound(self.integer, box) / self.scale
 
     def exact(self, point: Sequence[Fraction]) -> Fraction:
         """``poly`` at a rational point, exactly."""
@@ -162,7 +163,7 @@ def compile_polynomial(name: str, poly) -> BoxPolynomial:
     for _e, c in rational.terms():
         scale = math.lcm(scale, int(c.denominator))
     integer = tuple((tuple(e), int(c * scale)) for e, c in rational.terms())
-    return BoxPolynomial(name, poly, _compile_terms(poly), grad, rational, integer)
+    return BoxPolynomial(name, poly, _compile_terms(poly), grad, rational, integer, scale)
 
 
 def _shift(terms: dict, var: int, M: int, R: int, e: int) -> dict:
@@ -194,7 +195,8 @@ def taylor_lower_bound(integer_terms, box: Sequence[tuple[float, float]]) -> Fra
 
     With ``m`` the centre and ``r`` the half-widths of the box (dyadic rationals, since the
     box's ends are floats), ``x = m + r∘t`` turns the polynomial into ``Σ c_α t^α`` over
-    ``t ∈ [−1, 1]^k`` (an exact Taylor shift, times a positive power of two).  Then
+    ``t ∈ [−1, 1]^k`` (an exact Taylor shift, done in integers times a power of two that is
+    divided out at the end).  Then
     ``min ≥ c_0 + Σ_{α ≠ 0} min over t of c_α t^α``, which is ``−|c_α|`` when an exponent of
     ``α`` is odd and ``min(0, c_α)`` when all are even: the Taylor (centred) form, whose
     overestimation shrinks quadratically with the box (Moore, Kearfott and Cloud 2009,
@@ -203,6 +205,7 @@ def taylor_lower_bound(integer_terms, box: Sequence[tuple[float, float]]) -> Fra
     terms = dict(integer_terms)
     if not terms:
         return Fraction(0)
+    power = 0  # the shifts multiplied the polynomial by 2**power
     for var, (lo, hi) in enumerate(box):
         if not any(exps[var] for exps in terms):
             continue
@@ -210,6 +213,7 @@ def taylor_lower_bound(integer_terms, box: Sequence[tuple[float, float]]) -> Fra
         r = (Fraction(hi) - Fraction(lo)) / 2
         den = math.lcm(m.denominator, r.denominator)
         e = den.bit_length() - 1  # den is a power of two
+        power += e * max(exps[var] for exps in terms)
         terms = _shift(terms, var, int(m * den), int(r * den), e)
     zero = (0,) * len(box)
     total = terms.get(zero, 0)
@@ -217,7 +221,7 @@ def taylor_lower_bound(integer_terms, box: Sequence[tuple[float, float]]) -> Fra
         if exps == zero:
             continue
         total += min(0, c) if all(x % 2 == 0 for x in exps) else -abs(c)
-    return Fraction(total)
+    return Fraction(total, 1 << power)
 
 
 def hurwitz_determinant(coefficients: Sequence, k: int, domain):
