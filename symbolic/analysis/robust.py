@@ -69,6 +69,7 @@ from typing import Any
 
 from ..model.results import Check, Derivation
 from ..verification.shipped_assembly import shipped_controller
+from .certify import box_certificates
 from .margins import MarginComparison, compare_margins
 from .mismatch import MismatchStudy, mismatch_study
 from .routh import StateFeedbackStability, state_feedback_stability
@@ -94,6 +95,9 @@ class RobustnessReport:
     #: the shipped controller's stability (nominal, over the ranges) and margins
     #: (:func:`symbolic.analysis.verdict.robustness_table`); None when not computed
     shipped: Any = None
+    #: certified stability over the box (:func:`symbolic.analysis.certify.box_certificates`);
+    #: None without ranges
+    certificate: Any = None
 
     @property
     def passed(self) -> bool:
@@ -162,10 +166,12 @@ def robustness_study(
     if not study.grid.varied:
         notes.append("no parameter has a range: the mismatch study has only the nominal point")
     t = time.perf_counter()
-    shipped = robustness_table(d, shipped_controller(d), points)
+    ctrl = shipped_controller(d)
+    shipped = robustness_table(d, ctrl, points)
     timings["shipped"] = time.perf_counter() - t
     return RobustnessReport(
         shipped=shipped,
+        certificate=box_certificates(d, ctrl),  # kept from the table's rows (same controller)
         derivation=d,
         mismatch=study,
         stability=stability,

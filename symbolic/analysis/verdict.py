@@ -14,6 +14,8 @@ row fails.  The rows are
   the requested ones;
 * stability of the shipped loop over the declared parameter ranges (a grid with every corner:
   evidence, not a proof);
+* the same, certified over the whole box (gains fixed, and gain-scheduled): proved, a
+  counterexample, or undecided -- only a proof passes (:mod:`symbolic.analysis.certify`);
 * gain and phase margins of the shipped loop broken at the plant input (single input);
 * estimator speed: the slowest observer pole at least twice as fast as the slowest controller
   pole;
@@ -36,6 +38,7 @@ import numpy as np
 
 from ..derivation.numeric import check_eigenvalues
 from ..verification.shipped import ShippedController, closed_loop, poles_stable
+from .certify import box_certificates
 from .margins import MarginReport
 from .requirements import Requirement, RequirementTable
 from .shipped_stability import RangeStability, range_stability, shipped_margins
@@ -270,6 +273,13 @@ def _range_row(rs: RangeStability | None) -> dict | None:
     )
 
 
+def _certificate_rows(d, ctrl: ShippedController) -> list[dict]:
+    """Certified stability over the box of the ranges, gains fixed and gain-scheduled
+    (:mod:`symbolic.analysis.certify`); no row for a case the method does not cover."""
+    report = box_certificates(d, ctrl)
+    return [] if report is None else report.requirement_rows()
+
+
 def _margin_rows(ctrl: ShippedController, margins: MarginReport | None, why: str) -> list[dict]:
     basis = "loop broken at the plant input, shipped controller" + (
         " (discrete loop, bilinear map to the w-plane)" if ctrl.digital else ""
@@ -408,6 +418,7 @@ def robustness_table(d, ctrl: ShippedController, points: int = 5) -> Requirement
     margins."""
     raw = _stability_rows(ctrl)
     raw.append(_range_row(range_stability(d, ctrl, points)))
+    raw.extend(_certificate_rows(d, ctrl))
     raw.extend(_margin_rows(ctrl, *shipped_margins(ctrl)))
     rows = tuple(
         Requirement(number=f"R{i}", **row)
@@ -449,6 +460,7 @@ def requirement_table(
     raw.append(_steady_state_row(study))
     raw.extend(_stability_rows(ctrl))
     raw.append(_range_row(ranges))
+    raw.extend(_certificate_rows(d, ctrl))
     raw.extend(_margin_rows(ctrl, *margins))
     raw.append(_speed_row(ctrl))
     raw.append(_checks_row(d))

@@ -202,6 +202,9 @@ def build_memo(
     ctx = build_context(d, study_context, claims_context, requirements, controller)
     ctx["changes"] = changes_context(comparison)
     ctx["robustness"] = robustness_context
+    from .certificate_memo import memo_certificate
+
+    ctx["certificate"] = memo_certificate(d, controller)
     ctx.update(extended_sections(d) if extended_context is None else extended_context)
     name = d.design.slug
     # file names are our own slug (letters, digits, '-'), safe to trust in every format

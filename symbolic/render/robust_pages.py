@@ -119,6 +119,7 @@ def robustness_json(r: RobustnessReport) -> dict:
         "notes": list(r.notes),
         "caution": CAUTION,
         "shipped_controller": None if r.shipped is None else r.shipped.to_json(),
+        "certificate": None if r.certificate is None else r.certificate.to_json(),
         "passed": r.passed,
     }
 
