@@ -15,7 +15,6 @@ study and the figures, and :func:`write_memo` compiles the PDF (locked down, see
 from __future__ import annotations
 
 import dataclasses
-import re
 import time
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -28,6 +27,7 @@ from .mathvalues import own_math
 from .memo_design import front_matter, plant_context, poles_context
 from .memo_extended import extended_sections, memo_extended_sections
 from .memo_gains import gains_context, shipped_context, verification_context
+from .memo_prose import code_words, typeset_prose
 from .memo_references import references
 
 __all__ = [
@@ -169,10 +169,14 @@ def memo_robustness_section(d: Derivation) -> tuple[dict | None, dict[str, bytes
         )
     for cond in ctx["routh_hurwitz_conditions"]:
         cond["expression"] = own_math(cond.pop("expression_latex"))
-    if ctx["routh_hurwitz_conditions"]:  # typeset below: drop the plain-text copies
-        ctx["routh_hurwitz"] = [
-            line for line in ctx["routh_hurwitz"] if not re.match(r"^\s*a\d+ > 0:", line)
-        ]
+        cond["name_latex"] = own_math(cond["name_latex"])
+        cond["lines"] = [own_math(x) for x in cond.pop("lines_latex")]
+    conditions = ctx["routh_hurwitz_conditions"]
+    # a condition that fits on one line stays in the body, a longer one goes to the appendix
+    ctx["routh_body"] = [line for c in conditions if len(c["lines"]) == 1 for line in c["lines"]]
+    ctx["routh_appendix"] = [line for c in conditions if len(c["lines"]) > 1 for line in c["lines"]]
+    ctx["routh_in_appendix"] = [c["name_latex"] for c in conditions if len(c["lines"]) > 1]
+    ctx["routh_polynomial"] = own_math(ctx.pop("routh_polynomial_latex"))
     for row, label in zip(ctx["sensitivity_rows"], ctx.pop("sensitivity_gains_latex"), strict=True):
         row[0] = own_math(f"${label}$")  # the gain's label (symbolic.model.labels), typeset
     ctx["sensitivity_colspec"] = own_math(
@@ -200,6 +204,7 @@ def build_memo(
     ctx["figure_prefix"] = own_math(f"figures/{name}-")
     ctx["design_name"] = own_math(name)
     ctx["figures"] = sorted({Path(f).stem[len(name) + 1 :] for f in (figures or {})})
+    typeset_prose(ctx, code_words(d.design))  # formulas as math, names as code
     sources = {fmt.name: render_template(fmt.name, fmt.template, fmt.mark(ctx)) for fmt in FORMATS}
     return MemoDocument(name=name, sources=sources, figures=dict(figures or {}))
 

@@ -26,6 +26,7 @@ __all__ = [
     "memo_date",
     "plant_context",
     "poles_context",
+    "unit_parts",
 ]
 
 
@@ -87,7 +88,7 @@ def _parameters(design: Design) -> list[dict]:
                 "symbol": own_math(symbol_latex(p.name)),
                 "name": p.name,
                 "value": own_math(latex_number(float(p.value))),
-                "unit": p.unit,
+                "unit": unit_parts(p.unit),
                 "description": p.description,
                 "range": None
                 if p.range is None
@@ -109,11 +110,40 @@ def _signals(design: Design) -> list[dict]:
                     "kind": kind,
                     "symbol": own_math(f"{'x' if kind == 'state' else kind[0]}_{{{i + 1}}}"),
                     "name": s.name,
-                    "unit": s.unit,
+                    "unit": unit_parts(s.unit),
                     "description": s.description,
                 }
             )
     return out
+
+
+_POWER = re.compile(r"^(.+?)\^\{?([+-]?\d{1,2})\}?$")
+_SUPERSCRIPT = str.maketrans("0123456789+-", "⁰¹²³⁴⁵⁶⁷⁸⁹⁺⁻")
+
+
+def unit_parts(unit: str) -> list[dict]:
+    """A unit from the design file as factors, each with its exponent: ``"kg m^2"`` gives
+    kg and m with the power 2 (typeset kg·m²).
+
+    Only a caret followed by a whole number (``m^2``, ``s^-1``, ``s^{-2}``) becomes an
+    exponent; the factors are separated at spaces and ``*``.  Every part stays plain
+    text, escaped by the templates as any string from the design file.
+    """
+    parts = []
+    for factor in re.split(r"[\s*]+", unit.strip()):
+        if not factor:
+            continue
+        m = _POWER.match(factor)
+        base, power = (m.group(1), m.group(2)) if m else (factor, "")
+        power = power.replace("-", "\N{MINUS SIGN}").lstrip("+")
+        parts.append(
+            {
+                "base": base,
+                "power": power,
+                "superscript": power.replace("\N{MINUS SIGN}", "-").translate(_SUPERSCRIPT),
+            }
+        )
+    return parts
 
 
 def _structure(rep, n: int, symbol: str) -> dict:

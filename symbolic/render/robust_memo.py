@@ -7,8 +7,7 @@ templates; the figures are drawn by :mod:`symbolic.render.robust_figures`.
 from __future__ import annotations
 
 import functools
-
-import sympy as sp
+import re
 
 from ..analysis.robust import CAUTION, RobustnessReport, robustness_study
 from ..analysis.routh import StateFeedbackStability, rounded
@@ -16,6 +15,7 @@ from ..analysis.sensitivity import SensitivityTable, entry_labels
 from ..model.results import Derivation
 from . import robust_figures as rf
 from .figure_server import render_figures
+from .mathtex import equation_lines, latex_of
 from .robust_pages import (
     check_json,
     margin_json,
@@ -71,8 +71,9 @@ def memo_robustness(
         "least_stable_pole": pair_text(m.least_stable_pole),
         "least_stable_at": point_text(m.least_stable_at, m.grid.varied),
         "stability_changes": [c.text() for c in m.changes],
-        "routh_hurwitz": list(r.stability.lines),
+        "routh_hurwitz": _statements(r.stability),
         "routh_hurwitz_conditions": _conditions(r.stability),
+        "routh_polynomial_latex": _polynomial_shape(r.stability.order),
         "sensitivity_method": r.sensitivities.method,
         "sensitivities": sensitivity_values(r.sensitivities),
         "sensitivity_headers": ["gain", *r.sensitivities.parameters],
@@ -155,18 +156,60 @@ def _margins_context(r: RobustnessReport) -> dict:
 
 
 def _conditions(stability: StateFeedbackStability) -> list[dict]:
-    """The closed-form Routh–Hurwitz conditions (none for n > 3), with their LaTeX."""
+    """The closed-form Routh–Hurwitz conditions (none for n > 3), with their LaTeX.
+
+    ``lines_latex`` are the lines of an ``align*`` block, ``name ⇔ 0 < reduced``, broken
+    to fit the page (one line: the condition fits in the body).
+    """
     if stability.conditions is None:
         return []
-    return [
-        {
-            "name": c.name,
-            "text": c.text(),
-            "expression_latex": sp.latex(rounded(c.reduced, 6)) + " > 0",
-            "assumption": c.assumption,
-        }
-        for c in stability.conditions
+    out = []
+    for c in stability.conditions:
+        name = condition_name_latex(c.name)
+        shown = rounded(c.reduced, 6)
+        if c.reduced.is_number:
+            lines = [f"{name} &\\quad \\text{{{'always' if c.reduced > 0 else 'never'} holds}}"]
+        else:
+            lines = equation_lines(f"{name} \\;\\Leftrightarrow\\; 0", shown, relation="<")
+        out.append(
+            {
+                "name": c.name,
+                "text": c.text(),
+                "name_latex": name,
+                "expression_latex": latex_of(shown) + " > 0",
+                "lines_latex": [str(x) for x in lines],
+                "assumption": c.assumption,
+            }
+        )
+    return out
+
+
+def _polynomial_shape(n: int) -> str:
+    """``\\det(sI - (A_t - B_t K)) = s^{n} + a_{n-1} s^{n-1} + … + a_{0}``."""
+    terms = [f"s^{{{n}}}"] + [
+        f"a_{{{k}}} s^{{{k}}}" if k > 1 else (f"a_{{{k}}} s" if k == 1 else f"a_{{{k}}}")
+        for k in range(n - 1, -1, -1)
     ]
+    return r"\det\bigl(sI - (A_t - B_t K)\bigr) = " + " + ".join(terms)
+
+
+_COEFFICIENT = re.compile(r"a(\d+)")
+
+
+def condition_name_latex(name: str) -> str:
+    """The name of a condition (our own text, ``"a2·a1 − a0 > 0"``) as LaTeX."""
+    latex = _COEFFICIENT.sub(r"a_{\1}", name).replace("·", r"\,").replace("−", "-")
+    if not re.fullmatch(r"[a_{}\d\\, +\-<>=]*", latex):  # never for the analysis' names
+        raise ValueError(f"unexpected condition name {name!r}")
+    return latex
+
+
+def _statements(stability: StateFeedbackStability) -> list[str]:
+    """The report's statements without the indented detail lines (the stability changes,
+    listed in the mismatch part, and the conditions, typeset apart), and without the
+    closed-form header (the template says it in its own words)."""
+    statements = [line for line in stability.lines if not line.startswith("  ")]
+    return statements[1:] if stability.conditions is not None else statements
 
 
 def _sensitivity_rows(table: SensitivityTable) -> list[list[str]]:
