@@ -113,11 +113,60 @@ class MemoResult:
 
 
 def _requirements_context(table) -> dict:
-    """The requirements table for the templates: its JSON form plus two counts."""
+    """The requirements table for the templates: its JSON form plus two counts, and what
+    must change for each row that fails (the conclusion's list)."""
     ctx = table.to_json()
     ctx["count"] = len(ctx["rows"])
     ctx["failed"] = sum(not r["passed"] for r in ctx["rows"])
+    ctx["changes"] = [
+        {
+            "number": r["number"],
+            "label": r["label"],
+            "achieved": r["achieved"],
+            "requested": r["requested"],
+            "remedy": _remedy(r["key"]),
+        }
+        for r in ctx["rows"]
+        if not r["passed"]
+    ]
     return ctx
+
+
+_SPECIFICATION_KEYS = ("overshoot_percent", "settling_time", "rise_time", "peak_time")
+_DEFAULT_REMEDY = "review the design against this requirement before release"
+#: What usually makes a failed requirement pass, by the key of its row (common practice,
+#: no source): the conclusion lists it beside the row.
+REMEDIES = {
+    "overshoot_percent": (
+        "move the dominant pair (the [controller] specifications or poles); the further"
+        " poles, the observer and the plant zeros are outside the second-order approximation"
+    ),
+    "actuator_limit": (
+        "slow the controller (or the observer, for the mismatched estimate), shape the"
+        " reference (a ramp instead of a step), or choose an actuator with a larger limit"
+    ),
+    "steady_state_error": 'use integral action ([tracking] method = "integral")',
+    "nominal_stability": "the gains do not stabilise the nominal plant: see the checks",
+    "closed_loop_poles": "the gains do not place the requested poles: see the checks",
+    "parameter_ranges": (
+        "make the loop robust over the ranges: slower controller or observer poles,"
+        " integral action, or gains scheduled over the parameters (gainsmith schedule)"
+    ),
+    "margins": (
+        "raise the margins: slower controller poles, a slower observer (the observer-based"
+        " loop has the smaller margins), or more damping in the dominant pair"
+    ),
+    "estimator_speed": "make the observer faster (observer.speed_factor or [observer] poles)",
+    "cross_checks": "a check of the derivation failed: do not use these gains",
+    "claims": "the hand calculation and the derivation disagree: find which is wrong",
+}
+REMEDIES["gain_margin"] = REMEDIES["phase_margin"] = REMEDIES["margins"]
+
+
+def _remedy(key: str) -> str:
+    if key in _SPECIFICATION_KEYS:
+        return REMEDIES["overshoot_percent"]
+    return REMEDIES.get(key, _DEFAULT_REMEDY)
 
 
 def build_context(

@@ -54,6 +54,37 @@ def front_matter(design: Design) -> dict:
         "sha_groups": [design.sha256[i : i + 16] for i in range(0, 64, 16)],
         "version": __version__,
         "overrides": list(design.overrides),
+        "revisions": [
+            {"revision": r.revision, "date": r.date, "author": r.author, "change": r.change}
+            for r in design.revisions
+        ],
+        "design_text": design_text(design.text),
+    }
+
+
+#: The design file is printed in the appendix up to this many lines (a longer one is cut,
+#: and the memo says so; its SHA-256 on the title page identifies the whole file).
+DESIGN_TEXT_LINES = 400
+#: ... and up to this many characters of a line.
+DESIGN_TEXT_WIDTH = 300
+_MAX_INDENT = 24
+
+
+def design_text(text: str) -> dict:
+    """The design file's lines for the appendix: each with its indentation (spaces) and its
+    text, which the templates escape like any string; tabs count as four spaces."""
+    lines = text.expandtabs(4).splitlines()
+    shown = []
+    for line in lines[:DESIGN_TEXT_LINES]:
+        body = line.rstrip()
+        indent = len(body) - len(body.lstrip(" "))
+        text = body[indent : indent + DESIGN_TEXT_WIDTH]
+        shown.append({"indent": min(indent, _MAX_INDENT), "text": text})
+    return {
+        "lines": shown,
+        "total": len(lines),
+        "cut": len(lines) > DESIGN_TEXT_LINES
+        or any(len(line.rstrip()) > DESIGN_TEXT_WIDTH for line in lines),
     }
 
 

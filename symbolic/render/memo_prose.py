@@ -241,6 +241,7 @@ PROSE_PATHS = (
     "references.*",
     "requirements.controller",
     "requirements.open_items.*",
+    *(f"requirements.changes.*.{k}" for k in ("label", "requested", "achieved", "remedy")),
     *(f"requirements.rows.*.{k}" for k in ("label", "requested", "achieved", "basis", "source")),
     "simulation.method",
     "simulation.remarks.*",

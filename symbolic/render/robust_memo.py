@@ -148,11 +148,40 @@ def _margins_context(r: RobustnessReport) -> dict:
     """The side-by-side margins table of both loops, with their numbers and definitions."""
     return {
         "headers": ["quantity", "state feedback", "observer-based"],
-        "rows": [list(row) for row in margin_rows(r.margins)],
+        "rows": _margin_rows(r),
         "state_feedback": margin_json(r.margins.state_feedback),
         "observer_based": margin_json(r.margins.observer_based),
         "definitions": _MARGIN_DEFINITIONS,
     }
+
+
+#: A gain margin the table leaves empty (None) means the loop stays stable however far
+#: the gain moves that way, provided it is stable at the design gain.
+_UNLIMITED = {
+    "upper gain margin": ("gain_margin_db_upper", "unlimited (stable for every larger k)"),
+    "lower gain margin": ("gain_margin_db_lower", "unlimited (stable down to k = 0)"),
+}
+
+
+def _margin_rows(r: RobustnessReport) -> list[list[str]]:
+    """The rows of the margins table, with "unlimited" where a margin has no bound and
+    "none" where the loop is unstable at the design gain."""
+    loops = (r.margins.state_feedback, r.margins.observer_based)
+    rows = [list(row) for row in margin_rows(r.margins)]
+    for row in rows:
+        for prefix, (field, unlimited) in _UNLIMITED.items():
+            if not row[0].startswith(prefix):
+                continue
+            for column, report in enumerate(loops, start=1):
+                if getattr(report, field) is None:
+                    row[column] = (
+                        unlimited if report.closed_loop_stable else "none (unstable at k = 1)"
+                    )
+        if row[0] == "stable gain factors k":
+            for column, report in enumerate(loops, start=1):
+                if not report.closed_loop_stable:
+                    row[column] = "none (unstable at k = 1)"
+    return rows
 
 
 def _conditions(stability: StateFeedbackStability) -> list[dict]:
