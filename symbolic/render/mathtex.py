@@ -256,6 +256,8 @@ def equation_lines(
     """
     names = _names(expr)
     full = latex_of(expr, names)
+    # every line of the right-hand side starts at the alignment point, right of `lhs`
+    width = width - max(0.0, printed_width(lhs) - 4)
     if printed_width(full) <= width:
         return [TrustedLatex(f"{lhs} &{relation} {full}")]
     num, den = sp.fraction(expr)

@@ -187,7 +187,11 @@ def _pieces_of_text(text: str, names: frozenset[str]) -> list[dict]:
     pieces: list[dict] = []
     position = 0
     for m in _TOKEN.finditer(text):
-        token = m.group()
+        token, start = m.group(), m.start()
+        if token.startswith("[") and not token.endswith("]"):
+            token, start = token[1:], start + 1  # an opening bracket, not a table name
+        elif token.endswith("]") and not token.startswith("["):
+            token = token[:-1]
         while token and token[-1] in ".'" and not _is_code(token, names):
             token = token[:-1]  # a full stop or a quote after a word is not part of it
         if not token:
@@ -196,13 +200,13 @@ def _pieces_of_text(text: str, names: frozenset[str]) -> list[dict]:
         kind = "math" if math is not None else ("code" if _is_code(token, names) else None)
         if kind is None:
             continue
-        if m.start() > position:
-            pieces.append({"text": text[position : m.start()]})
+        if start > position:
+            pieces.append({"text": text[position:start]})
         if kind == "math":
             pieces.append({"math": own_math(math)})
         else:
             pieces.append({"code": _code_parts(token)})
-        position = m.start() + len(token)
+        position = start + len(token)
     if position < len(text):
         pieces.append({"text": text[position:]})
     return pieces

@@ -158,8 +158,8 @@ def _margins_context(r: RobustnessReport) -> dict:
 #: A gain margin the table leaves empty (None) means the loop stays stable however far
 #: the gain moves that way, provided it is stable at the design gain.
 _UNLIMITED = {
-    "upper gain margin": ("gain_margin_db_upper", "unlimited (stable for every larger k)"),
-    "lower gain margin": ("gain_margin_db_lower", "unlimited (stable down to k = 0)"),
+    "upper gain margin": ("gain_margin_db_upper", "unlimited (stable as k → ∞)"),
+    "lower gain margin": ("gain_margin_db_lower", "unlimited (stable as k → 0)"),
 }
 
 
