@@ -303,3 +303,19 @@ def test_double_hyphen_options_print_as_two_hyphens(tmp_path):
         ["pdftotext", str(pdf), "-"], capture_output=True, check=True, timeout=120
     ).stdout.decode("utf-8")
     assert "--lang c --digital" in text
+
+
+def test_prose_of_hostile_text_makes_math_only_of_safe_symbols():
+    """Math pieces come from the table or are one letter with short ASCII subscripts:
+    no text of any hostile string turns into LaTeX (the rest is escaped as usual)."""
+    from .test_pdf import CORPUS
+
+    safe = re.compile(
+        r"^(?:\\(?:hat|bar)\{)?\\?[A-Za-z]+\}?(?:_\{[A-Za-z0-9,]+\})?(?:\^\{\\mathsf T\})?$"
+    )
+    formulas = set(FORMULAS.values())
+    for text, _expected in CORPUS:
+        for probe in (text, f"x_{text}", f"{text}_ab", f"Α_b {text}"):
+            for piece in prose(probe, frozenset({"x_q"})):
+                if "math" in piece:
+                    assert piece["math"] in formulas or safe.match(piece["math"]), piece

@@ -19,6 +19,7 @@ import unicodedata
 from collections.abc import Iterable
 
 from .mathvalues import own_math
+from .texsafe import LATEX_COMMANDS
 
 __all__ = [
     "DESIGN_KEYS",
@@ -122,13 +123,12 @@ _TOKEN = re.compile(r"\[?(?<![\w.])[^\W\d][\w./]*[\wᵀ']\]?")
 
 
 def _greek(char: str) -> str | None:
-    """``\\alpha`` for α, ``\\Phi`` for Φ, None for any other character."""
-    name = unicodedata.name(char, "")
-    m = re.fullmatch(r"GREEK (SMALL|CAPITAL) LETTER ([A-Z]+)", name)
-    if m is None:
+    """``\\alpha`` for α, ``\\Phi`` for Φ, None for any other character (and for the Greek
+    capitals without a LaTeX command of their own, such as Α)."""
+    if not unicodedata.name(char, "").startswith("GREEK"):
         return None
-    word = m.group(2).lower()
-    return "\\" + (word if m.group(1) == "SMALL" else word.capitalize())
+    m = re.fullmatch(r"\\ensuremath\{(\\[A-Za-z]+)\}", LATEX_COMMANDS.get(char, ""))
+    return m.group(1) if m else None
 
 
 def symbol_math(token: str) -> str | None:
