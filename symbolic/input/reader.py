@@ -13,12 +13,13 @@ own module (:mod:`symbolic.input.parameters`, :mod:`symbolic.input.plant`,
 :mod:`symbolic.input.controller`, :mod:`symbolic.input.observer`,
 :mod:`symbolic.input.tracking`, :mod:`symbolic.input.discrete`,
 :mod:`symbolic.input.simulation`, :mod:`symbolic.input.claimed`,
-:mod:`symbolic.input.options`) through one shared
+:mod:`symbolic.input.options`, :mod:`symbolic.input.revisions`) through one shared
 :class:`~symbolic.input.fields.FieldReader`.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import re
 import tomllib
@@ -35,6 +36,7 @@ from .observer import read_observer
 from .options import read_symbolic_budget
 from .parameters import MAX_PARAMETERS, read_parameters
 from .plant import read_plant
+from .revisions import read_revisions
 from .simulation import read_simulation
 from .tracking import read_tracking
 
@@ -62,6 +64,7 @@ _TOP_KEYS = (
     "claimed",
     "options",
     "discrete",
+    "revisions",
 )
 
 
@@ -119,7 +122,8 @@ def parse_design(
         raise DesignFileError(f"malformed TOML: {exc}", where) from exc
     except RecursionError as exc:
         raise DesignFileError("malformed TOML: nested too deeply", where) from exc
-    return _read_design(FieldReader(where, sha), data, dict(overrides or {}))
+    design = _read_design(FieldReader(where, sha), data, dict(overrides or {}))
+    return dataclasses.replace(design, text=text)
 
 
 def _read_design(fields: FieldReader, data: dict, overrides: dict[str, str]) -> Design:
@@ -138,6 +142,15 @@ def _read_design(fields: FieldReader, data: dict, overrides: dict[str, str]) -> 
     simulation = read_simulation(fields, data.get("simulation"), plant)
     claims = read_claims(fields, data.get("claimed"), plant)
     budget = read_symbolic_budget(fields, data.get("options"))
+    revisions = read_revisions(fields, data.get("revisions"))
+    if revisions and not revision:
+        revision = revisions[-1].revision  # the history names the current revision
+    elif revisions and revisions[-1].revision != revision:
+        fields.fail(
+            "revision",
+            f"'{revision}' is not the revision of the last [[revisions]] entry"
+            f" ('{revisions[-1].revision}'); list the history oldest first, ending with it",
+        )
     return Design(
         path=fields.where,
         sha256=fields.sha,
@@ -154,6 +167,7 @@ def _read_design(fields: FieldReader, data: dict, overrides: dict[str, str]) -> 
         symbolic_budget_seconds=budget,
         discrete=discrete,
         overrides=tuple(f"{k}={v}" for k, v in overrides.items()),
+        revisions=revisions,
     )
 
 

@@ -22,6 +22,7 @@ __all__ = [
     "ObserverRequest",
     "Parameter",
     "Plant",
+    "Revision",
     "Signal",
     "SimulationRequest",
     "TrackingRequest",
@@ -205,6 +206,17 @@ class Claims:
 
 
 @dataclass(frozen=True)
+class Revision:
+    """One entry of the design file's revision history (``[[revisions]]``)."""
+
+    revision: str
+    #: ISO 8601 calendar date, ``YYYY-MM-DD``
+    date: str
+    change: str
+    author: str = ""
+
+
+@dataclass(frozen=True)
 class Design:
     """A validated design file."""
 
@@ -223,6 +235,10 @@ class Design:
     symbolic_budget_seconds: float = 10.0
     overrides: tuple[str, ...] = field(default=())
     discrete: DiscreteRequest | None = None
+    #: the revision history, oldest first, as the file lists it
+    revisions: tuple[Revision, ...] = ()
+    #: the design file's text as read (for the memo's appendix)
+    text: str = field(default="", repr=False, compare=False)
 
     @property
     def name(self) -> str:

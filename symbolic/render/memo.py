@@ -15,7 +15,6 @@ study and the figures, and :func:`write_memo` compiles the PDF (locked down, see
 from __future__ import annotations
 
 import dataclasses
-import re
 import time
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -29,6 +28,7 @@ from .mathvalues import own_math
 from .memo_design import front_matter, plant_context, poles_context
 from .memo_extended import extended_sections, memo_extended_sections
 from .memo_gains import gains_context, shipped_context, verification_context
+from .memo_prose import code_words, typeset_prose
 from .memo_references import references
 
 __all__ = [
@@ -114,11 +114,60 @@ class MemoResult:
 
 
 def _requirements_context(table) -> dict:
-    """The requirements table for the templates: its JSON form plus two counts."""
+    """The requirements table for the templates: its JSON form plus two counts, and what
+    must change for each row that fails (the conclusion's list)."""
     ctx = table.to_json()
     ctx["count"] = len(ctx["rows"])
     ctx["failed"] = sum(not r["passed"] for r in ctx["rows"])
+    ctx["changes"] = [
+        {
+            "number": r["number"],
+            "label": r["label"],
+            "achieved": r["achieved"],
+            "requested": r["requested"],
+            "remedy": _remedy(r["key"]),
+        }
+        for r in ctx["rows"]
+        if not r["passed"]
+    ]
     return ctx
+
+
+_SPECIFICATION_KEYS = ("overshoot_percent", "settling_time", "rise_time", "peak_time")
+_DEFAULT_REMEDY = "review the design against this requirement before release"
+#: What usually makes a failed requirement pass, by the key of its row (common practice,
+#: no source): the conclusion lists it beside the row.
+REMEDIES = {
+    "overshoot_percent": (
+        "move the dominant pair (the [controller] specifications or poles); the further"
+        " poles, the observer and the plant zeros are outside the second-order approximation"
+    ),
+    "actuator_limit": (
+        "slow the controller (or the observer, for the mismatched estimate), shape the"
+        " reference (a ramp instead of a step), or choose an actuator with a larger limit"
+    ),
+    "steady_state_error": 'use integral action ([tracking] method = "integral")',
+    "nominal_stability": "the gains do not stabilise the nominal plant: see the checks",
+    "closed_loop_poles": "the gains do not place the requested poles: see the checks",
+    "parameter_ranges": (
+        "make the loop robust over the ranges: slower controller or observer poles,"
+        " integral action, or gains scheduled over the parameters (gainsmith schedule)"
+    ),
+    "margins": (
+        "raise the margins: slower controller poles, a slower observer (the observer-based"
+        " loop has the smaller margins), or more damping in the dominant pair"
+    ),
+    "estimator_speed": "make the observer faster (observer.speed_factor or [observer] poles)",
+    "cross_checks": "a check of the derivation failed: do not use these gains",
+    "claims": "the hand calculation and the derivation disagree: find which is wrong",
+}
+REMEDIES["gain_margin"] = REMEDIES["phase_margin"] = REMEDIES["margins"]
+
+
+def _remedy(key: str) -> str:
+    if key in _SPECIFICATION_KEYS:
+        return REMEDIES["overshoot_percent"]
+    return REMEDIES.get(key, _DEFAULT_REMEDY)
 
 
 def build_context(
@@ -171,10 +220,14 @@ def memo_robustness_section(d: Derivation) -> tuple[dict | None, dict[str, bytes
         )
     for cond in ctx["routh_hurwitz_conditions"]:
         cond["expression"] = own_math(cond.pop("expression_latex"))
-    if ctx["routh_hurwitz_conditions"]:  # typeset below: drop the plain-text copies
-        ctx["routh_hurwitz"] = [
-            line for line in ctx["routh_hurwitz"] if not re.match(r"^\s*a\d+ > 0:", line)
-        ]
+        cond["name_latex"] = own_math(cond["name_latex"])
+        cond["lines"] = [own_math(x) for x in cond.pop("lines_latex")]
+    conditions = ctx["routh_hurwitz_conditions"]
+    # a condition that fits on one line stays in the body, a longer one goes to the appendix
+    ctx["routh_body"] = [line for c in conditions if len(c["lines"]) == 1 for line in c["lines"]]
+    ctx["routh_appendix"] = [line for c in conditions if len(c["lines"]) > 1 for line in c["lines"]]
+    ctx["routh_in_appendix"] = [c["name_latex"] for c in conditions if len(c["lines"]) > 1]
+    ctx["routh_polynomial"] = own_math(ctx.pop("routh_polynomial_latex"))
     for row, label in zip(ctx["sensitivity_rows"], ctx.pop("sensitivity_gains_latex"), strict=True):
         row[0] = own_math(f"${label}$")  # the gain's label (symbolic.model.labels), typeset
     ctx["sensitivity_colspec"] = own_math(
@@ -211,6 +264,7 @@ def build_memo(
     ctx["figure_prefix"] = own_math(f"figures/{name}-")
     ctx["design_name"] = own_math(name)
     ctx["figures"] = sorted({Path(f).stem[len(name) + 1 :] for f in (figures or {})})
+    typeset_prose(ctx, code_words(d.design))  # formulas as math, names as code
     sources = {fmt.name: render_template(fmt.name, fmt.template, fmt.mark(ctx)) for fmt in FORMATS}
     return MemoDocument(name=name, sources=sources, figures=dict(figures or {}))
 

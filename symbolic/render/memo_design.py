@@ -26,6 +26,7 @@ __all__ = [
     "memo_date",
     "plant_context",
     "poles_context",
+    "unit_parts",
 ]
 
 
@@ -53,6 +54,37 @@ def front_matter(design: Design) -> dict:
         "sha_groups": [design.sha256[i : i + 16] for i in range(0, 64, 16)],
         "version": __version__,
         "overrides": list(design.overrides),
+        "revisions": [
+            {"revision": r.revision, "date": r.date, "author": r.author, "change": r.change}
+            for r in design.revisions
+        ],
+        "design_text": design_text(design.text),
+    }
+
+
+#: The design file is printed in the appendix up to this many lines (a longer one is cut,
+#: and the memo says so; its SHA-256 on the title page identifies the whole file).
+DESIGN_TEXT_LINES = 400
+#: ... and up to this many characters of a line.
+DESIGN_TEXT_WIDTH = 300
+_MAX_INDENT = 24
+
+
+def design_text(text: str) -> dict:
+    """The design file's lines for the appendix: each with its indentation (spaces) and its
+    text, which the templates escape like any string; tabs count as four spaces."""
+    lines = text.expandtabs(4).splitlines()
+    shown = []
+    for line in lines[:DESIGN_TEXT_LINES]:
+        body = line.rstrip()
+        indent = len(body) - len(body.lstrip(" "))
+        text = body[indent : indent + DESIGN_TEXT_WIDTH]
+        shown.append({"indent": min(indent, _MAX_INDENT), "text": text})
+    return {
+        "lines": shown,
+        "total": len(lines),
+        "cut": len(lines) > DESIGN_TEXT_LINES
+        or any(len(line.rstrip()) > DESIGN_TEXT_WIDTH for line in lines),
     }
 
 
@@ -87,7 +119,7 @@ def _parameters(design: Design) -> list[dict]:
                 "symbol": own_math(symbol_latex(p.name)),
                 "name": p.name,
                 "value": own_math(latex_number(float(p.value))),
-                "unit": p.unit,
+                "unit": unit_parts(p.unit),
                 "description": p.description,
                 "range": None
                 if p.range is None
@@ -109,11 +141,40 @@ def _signals(design: Design) -> list[dict]:
                     "kind": kind,
                     "symbol": own_math(f"{'x' if kind == 'state' else kind[0]}_{{{i + 1}}}"),
                     "name": s.name,
-                    "unit": s.unit,
+                    "unit": unit_parts(s.unit),
                     "description": s.description,
                 }
             )
     return out
+
+
+_POWER = re.compile(r"^(.+?)\^\{?([+-]?\d{1,2})\}?$")
+_SUPERSCRIPT = str.maketrans("0123456789+-", "⁰¹²³⁴⁵⁶⁷⁸⁹⁺⁻")
+
+
+def unit_parts(unit: str) -> list[dict]:
+    """A unit from the design file as factors, each with its exponent: ``"kg m^2"`` gives
+    kg and m with the power 2 (typeset kg·m²).
+
+    Only a caret followed by a whole number (``m^2``, ``s^-1``, ``s^{-2}``) becomes an
+    exponent; the factors are separated at spaces and ``*``.  Every part stays plain
+    text, escaped by the templates as any string from the design file.
+    """
+    parts = []
+    for factor in re.split(r"[\s*]+", unit.strip()):
+        if not factor:
+            continue
+        m = _POWER.match(factor)
+        base, power = (m.group(1), m.group(2)) if m else (factor, "")
+        power = power.replace("-", "\N{MINUS SIGN}").lstrip("+")
+        parts.append(
+            {
+                "base": base,
+                "power": power,
+                "superscript": power.replace("\N{MINUS SIGN}", "-").translate(_SUPERSCRIPT),
+            }
+        )
+    return parts
 
 
 def _structure(rep, n: int, symbol: str) -> dict:

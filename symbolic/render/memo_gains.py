@@ -10,7 +10,7 @@ import numpy as np
 import sympy as sp
 
 from ..model.results import Derivation
-from .mathtex import equation_lines, expr_latex, matrix_latex, polynomial_latex
+from .mathtex import LONG, equation_lines, expr_latex, matrix_latex, polynomial_latex, printed_width
 from .mathvalues import OwnMath, latex_matrix, latex_number, own_math
 from .memo_math import FORMULA_LIMIT, MATRIX_LIMIT, factored, gain_block, poles_math
 
@@ -61,11 +61,17 @@ def _reference(d: Derivation) -> dict | None:
                 )
             )
         )
+    closed = None
+    if ref.closed_form is not None and len(sp.latex(ref.closed_form)) <= FORMULA_LIMIT:
+        closed = expr_latex(ref.closed_form)
+    wide = closed is not None and printed_width(closed) > LONG
     return {
         "output": ref.tracked.name,
-        "closed": own_math("N = " + expr_latex(ref.closed_form))
-        if ref.closed_form is not None and len(sp.latex(ref.closed_form)) <= FORMULA_LIMIT
-        else None,
+        "closed": own_math("N = " + closed) if closed is not None and not wide else None,
+        # a closed form too wide for a line: broken over lines in the appendix
+        "appendix_lines": [own_math(x) for x in equation_lines("N", ref.closed_form)]
+        if wide
+        else [],
         "zero_polynomial": zero_poly,
         "value": own_math("N = " + latex_matrix(ref.value, 6)),
         "method": ref.method,
@@ -85,11 +91,14 @@ def _compensator(d: Derivation) -> dict | None:
             + "}"
         ),
         "closed_lines": None,
+        "appendix_lines": None,
     }
     if c.numerator_closed_form is not None:
-        comp["closed_lines"] = _compensator_lines(
-            c.numerator_closed_form, c.denominator_closed_form
-        )
+        lines = _compensator_lines(c.numerator_closed_form, c.denominator_closed_form)
+        coefficients = len(c.numerator_closed_form) + len(c.denominator_closed_form) - 1
+        # the coefficients stay in the body only when each fits on one line
+        key = "closed_lines" if len(lines) == coefficients else "appendix_lines"
+        comp[key] = lines
         comp["closed_shape"] = _compensator_shape(
             len(c.numerator_closed_form) - 1, d.design.plant.order
         )
@@ -141,7 +150,12 @@ def verification_context(d: Derivation) -> dict:
         poly = sp.Add(*[c * s ** (2 * n - i) for i, c in enumerate(sep.charpoly)])
         sep_poly = own_math("\\det(sI - M) = " + sp.latex(sp.factor(poly)))
     return {
-        "separated_matrix": own_math(latex_matrix(sep.value, 4)) if 2 * n <= 8 else None,
+        # the loop matrix of order 2n: in the body up to 6x6, in the appendix up to 8x8
+        "separated_matrix": own_math(latex_matrix(sep.value, 4)) if 2 * n <= 6 else None,
+        "separated_matrix_appendix": own_math(latex_matrix(sep.value, 4))
+        if 6 < 2 * n <= 8
+        else None,
+        "separated_order": 2 * n,
         "separated_polynomial": sep_poly,
         "separated_ok": sep.factors_as_expected,
         "closed_loop_poles": poles_math(

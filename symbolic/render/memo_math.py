@@ -25,6 +25,7 @@ __all__ = [
     "metric_math",
     "plain_text",
     "poles_math",
+    "split_lines",
 ]
 
 #: A symbolic matrix longer than this (characters of LaTeX) is shown numerically instead.
@@ -70,10 +71,27 @@ def metric_math(x: float | None, digits: int = 4) -> OwnMath:
     return own_math("\\text{--}" if x is None else latex_number(x, digits))
 
 
+def split_lines(labelled: list[tuple[str, list[str]]]) -> tuple[list[OwnMath], list[OwnMath]]:
+    """``align*`` lines of labelled formulas, split into those that fit on one line (the
+    body) and the rest (the appendix), keeping their order within each part."""
+    body: list[OwnMath] = []
+    appendix: list[OwnMath] = []
+    for _label, lines in labelled:
+        (body if len(lines) == 1 else appendix).extend(own_math(x) for x in lines)
+    return body, appendix
+
+
 def gain_block(name: str, closed: sp.Matrix | None, value: np.ndarray) -> dict:
-    """One gain: its closed-form entries broken over lines, and numbers."""
+    """One gain: its closed-form entries broken over lines, and numbers.
+
+    An entry whose closed form fits on one line stays in the body (``lines``); a longer
+    one goes to the appendix (``appendix_lines``), and ``in_appendix`` names it in the
+    body.  An entry too long to print at all is named in ``too_long``.
+    """
     rows, cols = value.shape
-    lines: list[OwnMath] = []
+    short: list[OwnMath] = []
+    long: list[OwnMath] = []
+    moved: list[str] = []
     too_long: list[str] = []
     if closed is not None:
         for i in range(closed.shape[0]):
@@ -83,8 +101,12 @@ def gain_block(name: str, closed: sp.Matrix | None, value: np.ndarray) -> dict:
                 if len(sp.latex(entry)) > FORMULA_LIMIT:
                     too_long.append(label)
                     continue
-                for ln in equation_lines(label, entry):
-                    lines.append(own_math(ln))
+                lines = equation_lines(label, entry)
+                if len(lines) == 1:
+                    short.append(own_math(lines[0]))
+                else:
+                    moved.append(label)
+                    long.extend(own_math(x) for x in lines)
     entries = [
         {
             "label": own_math(gain_label(name, i, j, (rows, cols), "tex")),
@@ -95,7 +117,9 @@ def gain_block(name: str, closed: sp.Matrix | None, value: np.ndarray) -> dict:
     ]
     return {
         "name": name,
-        "lines": lines,
+        "lines": short,
+        "appendix_lines": long,
+        "in_appendix": [own_math(x) for x in moved],
         "numeric": own_math(f"{name} = " + latex_matrix(value, 6)),
         "entries": entries,
         "closed": closed is not None,

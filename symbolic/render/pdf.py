@@ -38,12 +38,13 @@ import sys
 import tempfile
 import time
 from collections.abc import Mapping
+from dataclasses import dataclass
 from pathlib import Path
 
 from ..runtime.errors import RenderError
 from ..runtime.publish import check_file_name
 
-__all__ = ["compile_pdf", "find_tex_engine"]
+__all__ = ["CompiledPdf", "compile_pdf", "compile_pdf_with_log", "find_tex_engine"]
 
 _JOB = "memo"
 _OUTPUT_FILE = ".engine-output.txt"
@@ -193,6 +194,15 @@ def _save_log(log_path: Path | None, folder: Path) -> None:
         raise RenderError(f"cannot write the TeX log to {log_path}: {error}") from error
 
 
+@dataclass(frozen=True)
+class CompiledPdf:
+    """A compiled document and the text of the TeX log of its last pdfLaTeX run."""
+
+    pdf: bytes
+    #: ``memo.log`` as text (read inside the throw-away folder; no file leaves it)
+    log: str
+
+
 def compile_pdf(
     tex_source: str,
     assets: Mapping[str, bytes],
@@ -236,6 +246,23 @@ def compile_pdf(
     temporary folder and loop until the timeout; nothing from the folder but the PDF (and
     the log, if asked) leaves it.
     """
+    return compile_pdf_with_log(tex_source, assets, timeout=timeout, log_path=log_path).pdf
+
+
+def compile_pdf_with_log(
+    tex_source: str,
+    assets: Mapping[str, bytes],
+    *,
+    timeout: float = 120.0,
+    log_path: Path | None = None,
+) -> CompiledPdf:
+    """:func:`compile_pdf`, returning the TeX log's text beside the PDF.
+
+    The same locked compile in the same throw-away folder: the log is read there as text
+    (after the last run) and the folder is deleted as before, so a caller can check the
+    layout (e.g. ``Overfull \\hbox`` lines) without any file leaving the folder.  Raises
+    as :func:`compile_pdf` does.
+    """
     problems = [
         problem
         for name in assets
@@ -260,7 +287,7 @@ def compile_pdf(
             if error is None:
                 error = f"{Path(engine).name} failed with exit code {code} and no TeX error"
             raise RenderError(error)
-        return pdf.read_bytes()
+        return CompiledPdf(pdf=pdf.read_bytes(), log=log)
     finally:
         shutil.rmtree(folder, ignore_errors=True)
 

@@ -7,8 +7,7 @@ templates; the figures are drawn by :mod:`symbolic.render.robust_figures`.
 from __future__ import annotations
 
 import functools
-
-import sympy as sp
+import re
 
 from ..analysis.robust import CAUTION, RobustnessReport, robustness_study
 from ..analysis.routh import StateFeedbackStability, rounded
@@ -16,6 +15,7 @@ from ..analysis.sensitivity import SensitivityTable, entry_labels
 from ..model.results import Derivation
 from . import robust_figures as rf
 from .figure_server import render_figures
+from .mathtex import equation_lines, latex_of
 from .robust_pages import (
     check_json,
     margin_json,
@@ -71,8 +71,9 @@ def memo_robustness(
         "least_stable_pole": pair_text(m.least_stable_pole),
         "least_stable_at": point_text(m.least_stable_at, m.grid.varied),
         "stability_changes": [c.text() for c in m.changes],
-        "routh_hurwitz": list(r.stability.lines),
+        "routh_hurwitz": _statements(r.stability),
         "routh_hurwitz_conditions": _conditions(r.stability),
+        "routh_polynomial_latex": _polynomial_shape(r.stability.order),
         "sensitivity_method": r.sensitivities.method,
         "sensitivities": sensitivity_values(r.sensitivities),
         "sensitivity_headers": ["gain", *r.sensitivities.parameters],
@@ -175,26 +176,97 @@ def _margins_context(r: RobustnessReport) -> dict:
     """The side-by-side margins table of both loops, with their numbers and definitions."""
     return {
         "headers": ["quantity", "state feedback", "observer-based"],
-        "rows": [list(row) for row in margin_rows(r.margins)],
+        "rows": _margin_rows(r),
         "state_feedback": margin_json(r.margins.state_feedback),
         "observer_based": margin_json(r.margins.observer_based),
         "definitions": _MARGIN_DEFINITIONS,
     }
 
 
+#: A gain margin the table leaves empty (None) means the loop stays stable however far
+#: the gain moves that way, provided it is stable at the design gain.
+_UNLIMITED = {
+    "upper gain margin": ("gain_margin_db_upper", "unlimited (stable as k → ∞)"),
+    "lower gain margin": ("gain_margin_db_lower", "unlimited (stable as k → 0)"),
+}
+
+
+def _margin_rows(r: RobustnessReport) -> list[list[str]]:
+    """The rows of the margins table, with "unlimited" where a margin has no bound and
+    "none" where the loop is unstable at the design gain."""
+    loops = (r.margins.state_feedback, r.margins.observer_based)
+    rows = [list(row) for row in margin_rows(r.margins)]
+    for row in rows:
+        for prefix, (field, unlimited) in _UNLIMITED.items():
+            if not row[0].startswith(prefix):
+                continue
+            for column, report in enumerate(loops, start=1):
+                if getattr(report, field) is None:
+                    row[column] = (
+                        unlimited if report.closed_loop_stable else "none (unstable at k = 1)"
+                    )
+        if row[0] == "stable gain factors k":
+            for column, report in enumerate(loops, start=1):
+                if not report.closed_loop_stable:
+                    row[column] = "none (unstable at k = 1)"
+    return rows
+
+
 def _conditions(stability: StateFeedbackStability) -> list[dict]:
-    """The closed-form Routh–Hurwitz conditions (none for n > 3), with their LaTeX."""
+    """The closed-form Routh–Hurwitz conditions (none for n > 3), with their LaTeX.
+
+    ``lines_latex`` are the lines of an ``align*`` block, ``name ⇔ 0 < reduced``, broken
+    to fit the page (one line: the condition fits in the body).
+    """
     if stability.conditions is None:
         return []
-    return [
-        {
-            "name": c.name,
-            "text": c.text(),
-            "expression_latex": sp.latex(rounded(c.reduced, 6)) + " > 0",
-            "assumption": c.assumption,
-        }
-        for c in stability.conditions
+    out = []
+    for c in stability.conditions:
+        name = condition_name_latex(c.name)
+        shown = rounded(c.reduced, 6)
+        if c.reduced.is_number:
+            lines = [f"{name} &\\quad \\text{{{'always' if c.reduced > 0 else 'never'} holds}}"]
+        else:
+            lines = equation_lines(f"{name} \\;\\Leftrightarrow\\; 0", shown, relation="<")
+        out.append(
+            {
+                "name": c.name,
+                "text": c.text(),
+                "name_latex": name,
+                "expression_latex": latex_of(shown) + " > 0",
+                "lines_latex": [str(x) for x in lines],
+                "assumption": c.assumption,
+            }
+        )
+    return out
+
+
+def _polynomial_shape(n: int) -> str:
+    """``\\det(sI - (A_t - B_t K)) = s^{n} + a_{n-1} s^{n-1} + … + a_{0}``."""
+    terms = [f"s^{{{n}}}"] + [
+        f"a_{{{k}}} s^{{{k}}}" if k > 1 else (f"a_{{{k}}} s" if k == 1 else f"a_{{{k}}}")
+        for k in range(n - 1, -1, -1)
     ]
+    return r"\det\bigl(sI - (A_t - B_t K)\bigr) = " + " + ".join(terms)
+
+
+_COEFFICIENT = re.compile(r"a(\d+)")
+
+
+def condition_name_latex(name: str) -> str:
+    """The name of a condition (our own text, ``"a2·a1 − a0 > 0"``) as LaTeX."""
+    latex = _COEFFICIENT.sub(r"a_{\1}", name).replace("·", r"\,").replace("−", "-")
+    if not re.fullmatch(r"[a_{}\d\\, +\-<>=]*", latex):  # never for the analysis' names
+        raise ValueError(f"unexpected condition name {name!r}")
+    return latex
+
+
+def _statements(stability: StateFeedbackStability) -> list[str]:
+    """The report's statements without the indented detail lines (the stability changes,
+    listed in the mismatch part, and the conditions, typeset apart), and without the
+    closed-form header (the template says it in its own words)."""
+    statements = [line for line in stability.lines if not line.startswith("  ")]
+    return statements[1:] if stability.conditions is not None else statements
 
 
 def _sensitivity_rows(table: SensitivityTable) -> list[list[str]]:

@@ -14,9 +14,10 @@ import numpy as np
 from ..analysis.study import SimulationStudy, simulation_study
 from ..model.numbers import format_poles
 from ..model.results import Derivation
+from ..verification.step_cases import MISMATCH_FRACTION
 from . import figures as fig
 from .figure_server import render_figures
-from .mathvalues import latex_number, own_math
+from .mathvalues import OwnMath, latex_number, own_math
 
 __all__ = ["memo_simulation"]
 
@@ -55,14 +56,60 @@ def memo_simulation(
         "method": method,
         "summary": _summary(s),
         "cases": cases_ctx,
-        "colspec": own_math("@{}p{0.3\\textwidth}" + "r" * len(cases_ctx) + "@{}"),
+        "colspec": own_math(_metrics_colspec(len(cases_ctx))),
         "table": table,
         "remarks": list(s.remarks),
         "figures": _captions(d, s, out_sig, in_sig),
         "pole_map_caption": _pole_map_caption(d, s),
         "study": _speed_study_context(s),
+        "start": _start_context(d, s),
     }
     return ctx, figures
+
+
+#: The label column of the metrics table, as a fraction of the text width.
+_LABEL_COLUMN = 0.25
+#: The memo's text width in points (A4, 2.2 cm margins) and LaTeX's column gap (2 x 6 pt).
+_TEXT_WIDTH_PT, _COLUMN_GAP_PT = 471.0, 12.0
+
+
+def _metrics_colspec(columns: int) -> str:
+    """A label column and `columns` right-aligned number columns whose heads wrap, filling
+    the text width with no column overrunning it."""
+    free = 1.0 - _LABEL_COLUMN - columns * _COLUMN_GAP_PT / _TEXT_WIDTH_PT - 0.01
+    width = int(1000 * free / columns) / 1000
+    number = f">{{\\raggedleft\\arraybackslash}}p{{{width}\\textwidth}}"
+    return (
+        f"@{{}}>{{\\raggedright\\arraybackslash}}p{{{_LABEL_COLUMN}\\textwidth}}"
+        + number * columns
+        + "@{}"
+    )
+
+
+def _vector(values) -> OwnMath:
+    """A state vector as a LaTeX row, four significant figures."""
+    return own_math(
+        "\\begin{bmatrix} "
+        + " & ".join(latex_number(float(v), 4) for v in values)
+        + " \\end{bmatrix}^{\\mathsf T}"
+    )
+
+
+def _start_context(d: Derivation, s: SimulationStudy) -> dict | None:
+    """The initial state and the initial estimates of the runs, read off the simulated
+    responses (the mismatched run starts from the mismatched estimate)."""
+    runs = {c.response.slug: c.response for c in s.cases}
+    mismatched = runs.get("observer_mismatched")
+    if mismatched is None or mismatched.estimate is None or not len(mismatched.state):
+        return None
+    request = d.design.simulation
+    return {
+        "state": _vector(mismatched.state[0]),
+        "estimate": _vector(mismatched.estimate[0]),
+        "state_given": request.initial_state is not None,
+        "estimate_given": request.initial_estimate is not None,
+        "default_percent": own_math(latex_number(100 * MISMATCH_FRACTION, 3)),
+    }
 
 
 def _figure_makers(d: Derivation, s: SimulationStudy, out_sig, in_sig) -> dict:
@@ -366,25 +413,47 @@ def _speed_caption(d: Derivation, s: SimulationStudy) -> str:
     return text
 
 
+#: Speed factors shown in the memo's observer-speed table (the figure shows the whole sweep).
+_SHOWN_FACTORS = (0.5, 1.0, 2.0, 4.0, 10.0)
+
+
+def _speed_row(factor: float, m, chosen: bool = False) -> dict:
+    return {
+        "factor": own_math(latex_number(factor, 3)),
+        "overshoot": own_math(latex_number(m.overshoot_percent or 0.0, 3)),
+        "settling": own_math(
+            "\\text{--}" if m.settling_time_2pct is None else latex_number(m.settling_time_2pct, 3)
+        ),
+        "peak": own_math(
+            "\\text{--}" if m.peak_control is None else latex_number(m.peak_control, 4)
+        ),
+        "chosen": chosen,
+    }
+
+
 def _speed_study_context(s: SimulationStudy) -> dict | None:
-    """The observer-speed paragraph and table; None when the study was not run."""
+    """The observer-speed paragraph and a short table: the sweep's rows nearest a few
+    representative factors, and the shipped observer (its own mismatched run)."""
     if not s.speed_study:
         return None
+    picked = sorted(
+        {
+            min(range(len(s.speed_study)), key=lambda i: abs(s.speed_study[i][0] - f))
+            for f in _SHOWN_FACTORS
+        }
+    )
+    rows = [_speed_row(*s.speed_study[i]) for i in picked]
+    ctrl = s.controller
+    runs = {c.response.slug: c for c in s.cases}
+    if ctrl is not None and ctrl.observer_poles.size and "observer_mismatched" in runs:
+        ratio = min(abs(z.real) for z in ctrl.observer_poles) / min(
+            abs(z.real) for z in ctrl.controller_poles
+        )
+        chosen = _speed_row(ratio, runs["observer_mismatched"].metrics, chosen=True)
+        position = sum(1 for i in picked if s.speed_study[i][0] < ratio)
+        rows.insert(position, chosen)
     return {
         "text": _SPEED_STUDY_TEXT,
-        "rows": [
-            {
-                "factor": own_math(latex_number(f, 3)),
-                "overshoot": own_math(latex_number(m.overshoot_percent or 0.0, 3)),
-                "settling": own_math(
-                    "\\text{--}"
-                    if m.settling_time_2pct is None
-                    else latex_number(m.settling_time_2pct, 3)
-                ),
-                "peak": own_math(
-                    "\\text{--}" if m.peak_control is None else latex_number(m.peak_control, 4)
-                ),
-            }
-            for f, m in s.speed_study
-        ],
+        "rows": rows,
+        "count": len(s.speed_study),
     }
