@@ -190,10 +190,12 @@ def build_memo(
     extended_context: dict | None = None,
     requirements=None,
     controller=None,
+    loop_shapes_context: dict | None = None,
 ) -> MemoDocument:
     """Render the memo source of every format from a finished derivation."""
     ctx = build_context(d, study_context, claims_context, requirements, controller)
     ctx["robustness"] = robustness_context
+    ctx["loop_shapes"] = loop_shapes_context
     ctx.update(extended_sections(d) if extended_context is None else extended_context)
     name = d.design.slug
     # file names are our own slug (letters, digits, '-'), safe to trust in every format
@@ -210,6 +212,7 @@ def assemble_memo(d: Derivation) -> MemoDocument:
     from ..analysis.study import simulation_study
     from ..analysis.verdict import requirement_table
     from .figure_server import deferred_figures
+    from .loop_shape_memo import memo_loop_shapes
     from .study_memo import memo_simulation
 
     design = d.design
@@ -226,10 +229,19 @@ def assemble_memo(d: Derivation) -> MemoDocument:
         table = requirement_table(d, study, claims=claims)
         robustness_ctx, robustness_figures = memo_robustness_section(d)
         extended_ctx, extended_figures = memo_extended_sections(d)
-        names = {**figures, **robustness_figures, **extended_figures}  # contents come later
-        batch.start()  # the figures are drawn while the templates render
+        shapes_ctx, shapes_figures = memo_loop_shapes(d, study.controller, study)
+        names = {**figures, **robustness_figures, **extended_figures, **shapes_figures}
+        batch.start()  # the figures are drawn while the templates render; contents come later
         doc = build_memo(
-            d, study_ctx, names, claims_ctx, robustness_ctx, extended_ctx, table, study.controller
+            d,
+            study_ctx,
+            names,
+            claims_ctx,
+            robustness_ctx,
+            extended_ctx,
+            table,
+            study.controller,
+            shapes_ctx,
         )
         files = batch.result()
     if set(files) != set(names):
