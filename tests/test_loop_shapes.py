@@ -37,12 +37,8 @@ import scipy.signal
 import symbolic
 from symbolic import derive
 from symbolic.analysis.broken_loop import loop_response
-from symbolic.analysis.loop_shapes import (
-    disturbance_response,
-    disturbance_size,
-    loop_shapes,
-    transfer_values,
-)
+from symbolic.analysis.input_disturbance import disturbance_response, disturbance_size
+from symbolic.analysis.loop_shapes import loop_shapes, transfer_values
 from symbolic.analysis.shipped_stability import shipped_loop, shipped_margins
 from symbolic.verification.horizon import horizon_from_poles
 from symbolic.verification.shipped_assembly import shipped_controller
@@ -418,3 +414,19 @@ def test_two_measurements_give_different_break_points(write_design):
         "V/m",
     )
     assert len(fig.axes) == 2
+
+
+def test_robustness_json_carries_the_numbers(worked):
+    from symbolic.analysis.study import simulation_study
+    from symbolic.render.loop_shape_memo import loop_shapes_json, memo_loop_shapes
+
+    d, ctrl, s = worked["belt_drive"]
+    out = loop_shapes_json(d)
+    assert out["input"]["peak_S"]["value"] == pytest.approx(s.peak_S_input.value, rel=1e-12)
+    assert out["gain_crossovers_rad_s"] == pytest.approx(list(s.crossovers_rad_s))
+    # the reference step simulated afresh gives the memo's (the study's) disturbance size
+    study = simulation_study(d, sweep=False, controller=ctrl)
+    ctx, _figures = memo_loop_shapes(d, ctrl, study)
+    got, want = out["input_disturbance"], ctx["disturbance"]
+    assert got["size"] == pytest.approx(want["size"], rel=1e-6)
+    assert got["steady_output"] == pytest.approx(want["steady_output"], rel=1e-6)

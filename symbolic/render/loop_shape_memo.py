@@ -13,13 +13,12 @@ import math
 
 import numpy as np
 
-from ..analysis.loop_shapes import (
+from ..analysis.input_disturbance import (
     DisturbanceResponse,
-    LoopShapes,
     disturbance_response,
     disturbance_size,
-    loop_shapes,
 )
+from ..analysis.loop_shapes import LoopShapes, loop_shapes
 from ..model.results import Derivation
 from ..verification.horizon import horizon_from_poles
 from ..verification.shipped import ShippedController
@@ -27,7 +26,7 @@ from . import loop_shape_figures as lf
 from .figure_server import render_figures
 from .mathvalues import own_math
 
-__all__ = ["SENSITIVITY_TARGET", "memo_loop_shapes", "ratio_unit"]
+__all__ = ["SENSITIVITY_TARGET", "loop_shapes_json", "memo_loop_shapes", "ratio_unit"]
 
 #: A peak sensitivity above this is remarked on (common practice, no source: values between
 #: about 1.2 and 2 are the usual targets).
@@ -84,6 +83,39 @@ def memo_loop_shapes(
         "figures": captions,
     }
     return ctx, figures
+
+
+def loop_shapes_json(d: Derivation, ctrl: ShippedController | None = None) -> dict | None:
+    """The section's numbers for ``gainsmith robustness --json`` (None: several inputs, or the
+    loop shapes cannot be computed); frequencies in rad/s, gains in the units named."""
+    if ctrl is None:
+        from ..verification.shipped_assembly import shipped_controller
+
+        ctrl = shipped_controller(d)
+    try:
+        s = loop_shapes(ctrl)
+    except (ValueError, np.linalg.LinAlgError):
+        return None
+    design = d.design
+    peak_u, horizon = _reference_run(ctrl, None, design.simulation.reference)
+    size, rule = disturbance_size(peak_u)
+    spec = design.controller.specifications
+    band = spec.settling_band if spec is not None else 0.02
+    r = disturbance_response(ctrl, size, horizon=horizon, settling_band=band, rule=rule)
+    u_sig, y_sig = design.plant.inputs[0], design.plant.outputs[ctrl.tracked_index]
+
+    def peak(p) -> dict:
+        return {"value": p.value, "db": p.db, "frequency_rad_s": p.frequency_rad_s}
+
+    return {
+        "same_at_input_and_output": s.same_at_both_points,
+        "input": {"peak_S": peak(s.peak_S_input), "peak_T": peak(s.peak_T_input)},
+        "output": {"peak_S": peak(s.peak_S_output), "peak_T": peak(s.peak_T_output)},
+        "gain_crossovers_rad_s": list(s.crossovers_rad_s),
+        "margin_bounds_from_peak_S": _bounds(s.peak_S_input.value),
+        "noise_to_input": {**_noise(s, ratio_unit(u_sig.unit, y_sig.unit)), "digital": s.digital},
+        "input_disturbance": _disturbance(r, u_sig, y_sig, peak_u, ctrl.tracking),
+    }
 
 
 def _reference_run(ctrl: ShippedController, study, reference: float) -> tuple[float, float]:
