@@ -121,7 +121,15 @@ def _sensitivity_panel(ax, w: np.ndarray, curves, peaks) -> list:
         if key in peak_of:
             wp, value = peak_of[key]
             label = f"{label}, peak {20.0 * np.log10(value):.1f} dB at {_num(wp)} rad/s"
-            ax.plot([wp], [20.0 * np.log10(value)], marker=marker, color=colour, ls="none", **mark)
+            ax.plot(
+                [wp],
+                [20.0 * np.log10(value)],
+                marker=marker,
+                color=colour,
+                ls="none",
+                clip_on=False,
+                **mark,
+            )  # not clipped: a peak at the Nyquist frequency sits on the axis' edge
         handles.append(
             Line2D(
                 [],
@@ -156,7 +164,9 @@ def _noise_panel(ax, w, noise, controller_gain, noise_peak, noise_unit: str) -> 
         markevery=[],
         **mark,
     )
-    ax.plot([noise_peak[0]], [noise_peak[1]], marker="o", color=_BLACK, ls="none", **mark)
+    ax.plot(
+        [noise_peak[0]], [noise_peak[1]], marker="o", color=_BLACK, ls="none", clip_on=False, **mark
+    )
     ax.loglog(w, controller_gain, color=_RED, linestyle=_DASHED, lw=1.2, label="controller alone")
     finite = noise[np.isfinite(noise) & (noise > 0)]
     if finite.size:
