@@ -79,8 +79,8 @@ def sensitivity_figure(
     ``(key, ω, magnitude)``; ``noise_peak`` is ``(ω, gain)``; ``nyquist`` (digital) ends the
     axis at π/T.
     """
-    fig = blank_figure((6.4, 5.4))
-    fig.subplots_adjust(left=0.13, right=0.97, bottom=0.2, top=0.97, hspace=0.12)
+    fig = blank_figure((6.4, 4.8))
+    fig.subplots_adjust(left=0.13, right=0.97, bottom=0.22, top=0.97, hspace=0.12)
     ax_s, ax_n = fig.subplots(2, 1, sharex=True)
     keep, lo, hi = _band(frequency, crossovers, [p[1] for p in peaks], nyquist)
     handles = _sensitivity_panel(
@@ -100,7 +100,7 @@ def sensitivity_figure(
         ax.grid(True, which="both", color="#dddddd", linewidth=0.5)
     ax_n.set_xlim(lo, hi)
     more, _names = ax_n.get_legend_handles_labels()
-    fig.legend(handles=handles + more, loc="lower center", ncol=2, fontsize=7.5, frameon=False)
+    fig.legend(handles=handles + more, loc="lower center", ncol=2, fontsize=8, frameon=False)
     return fig
 
 
@@ -204,8 +204,8 @@ def input_disturbance_figure(
     ``(name, unit)``; an axis is scaled by a power of ten when its values are very small or
     large (the label says so).
     """
-    fig = blank_figure((6.4, 4.6))
-    fig.subplots_adjust(left=0.14, right=0.97, bottom=0.26, top=0.97, hspace=0.12)
+    fig = blank_figure((6.4, 3.9))
+    fig.subplots_adjust(left=0.14, right=0.97, bottom=0.28, top=0.97, hspace=0.12)
     ax_y, ax_u = fig.subplots(2, 1, sharex=True)
     ky, y_label = _scale(np.append(output, steady_output or 0.0), *output_signal)
     ku, u_label = _scale(np.append(control, size), *input_signal)
