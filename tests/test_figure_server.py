@@ -53,7 +53,7 @@ def test_memo_figures_come_from_the_server_identical_and_matplotlib_stays_out(tm
     local = _memo_in_fresh_interpreter(tmp_path / "local", GAINSMITH_FIGURE_SERVER="0")
     assert local["code"] == 1 and not local["server"]  # drawn by forked workers instead
     served = sorted((tmp_path / "served" / "figures").iterdir())
-    assert len(served) == 24  # the hoist winch: 12 figures, PDF and PNG
+    assert len(served) == 28  # the hoist winch: 14 figures, PDF and PNG
     for path in served:
         assert path.read_bytes() == (tmp_path / "local" / "figures" / path.name).read_bytes()
         assert path.read_bytes() == (WORKED / "figures" / path.name).read_bytes(), path.name

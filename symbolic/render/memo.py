@@ -246,6 +246,7 @@ def build_memo(
     requirements=None,
     controller=None,
     comparison=None,
+    loop_shapes_context: dict | None = None,
 ) -> MemoDocument:
     """Render the memo source of every format from a finished derivation (with a
     :class:`~symbolic.analysis.revision_diff.RevisionComparison`, the section "Changes since
@@ -258,6 +259,7 @@ def build_memo(
     from .certificate_memo import memo_certificate
 
     ctx["certificate"] = memo_certificate(d, controller)
+    ctx["loop_shapes"] = loop_shapes_context
     ctx.update(extended_sections(d) if extended_context is None else extended_context)
     name = d.design.slug
     # file names are our own slug (letters, digits, '-'), safe to trust in every format
@@ -275,6 +277,7 @@ def assemble_memo(d: Derivation, comparison=None) -> MemoDocument:
     from ..analysis.study import simulation_study
     from ..analysis.verdict import requirement_table
     from .figure_server import deferred_figures
+    from .loop_shape_memo import memo_loop_shapes
     from .study_memo import memo_simulation
 
     design = d.design
@@ -291,8 +294,9 @@ def assemble_memo(d: Derivation, comparison=None) -> MemoDocument:
         table = requirement_table(d, study, claims=claims)
         robustness_ctx, robustness_figures = memo_robustness_section(d)
         extended_ctx, extended_figures = memo_extended_sections(d)
-        names = {**figures, **robustness_figures, **extended_figures}  # contents come later
-        batch.start()  # the figures are drawn while the templates render
+        shapes_ctx, shapes_figures = memo_loop_shapes(d, study.controller, study)
+        names = {**figures, **robustness_figures, **extended_figures, **shapes_figures}
+        batch.start()  # the figures are drawn while the templates render; contents come later
         doc = build_memo(
             d,
             study_ctx,
@@ -303,6 +307,7 @@ def assemble_memo(d: Derivation, comparison=None) -> MemoDocument:
             table,
             study.controller,
             comparison,
+            shapes_ctx,
         )
         files = batch.result()
     if set(files) != set(names):

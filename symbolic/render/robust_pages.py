@@ -17,6 +17,7 @@ from ..analysis.robust import CAUTION, RobustnessReport
 from ..analysis.sensitivity import SensitivityTable
 from ..model.numbers import format_pole, format_poles
 from ..model.results import Check
+from .loop_shape_memo import loop_shapes_json
 from .study_pages import requirements_text
 
 __all__ = [
@@ -120,6 +121,7 @@ def robustness_json(r: RobustnessReport) -> dict:
         "caution": CAUTION,
         "shipped_controller": None if r.shipped is None else r.shipped.to_json(),
         "certificate": None if r.certificate is None else r.certificate.to_json(),
+        "loop_shapes": loop_shapes_json(r.derivation),  # S, T, noise, input disturbance
         "passed": r.passed,
     }
 
