@@ -363,7 +363,7 @@ def certify_fixed_gains(
     box = tuple((float(lo), float(hi)) for lo, hi in bounds)
     if ctrl.digital:
         return _not_covered(
-            FIXED, names, box, "digital controller (the sampled plant e^{A(p)T} is not rational"
+            FIXED, names, box, "digital controller (the sampled plant, the matrix exponential of A(p) T, is not rational"
             " in the parameters; the grid row covers it)",
         )  # fmt: skip
     K = QQ.frac_field(*[d.design.symbols[n] for n in names])

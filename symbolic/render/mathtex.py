@@ -30,6 +30,7 @@ __all__ = [
     "expr_latex",
     "matrix_latex",
     "equation_lines",
+    "lines_fit",
     "polynomial_latex",
     "pole_latex",
     "poles_latex",
@@ -142,7 +143,7 @@ _SILENT = frozenset(
 def printed_width(latex: str) -> float:
     """An estimate of the printed width of math, in characters of the body font.
 
-    Scripts count 0.7 of a character, a fraction its wider part, spacing commands
+    Scripts count 0.7 of a character, a fraction its wider part (display size), spacing commands
     a fraction of a character; every other command (``\\alpha``, ``\\cdot``)
     one character, and every letter, digit or operator one (operators with their
     spaces two).  Good enough to decide where to break a line.
@@ -154,7 +155,7 @@ def printed_width(latex: str) -> float:
             break
         num, after = _braced(latex, frac + 5)
         den, end = _braced(latex, after)
-        total += max(printed_width(num), printed_width(den)) * 0.8
+        total += max(printed_width(num), printed_width(den))
         latex = latex[:frac] + latex[end:]
     scripts = 0.0
     for m in _SCRIPT.finditer(latex):
@@ -241,6 +242,12 @@ def _sum_factor(num: sp.Expr) -> tuple[sp.Expr, sp.Expr | None]:
 
 #: The printed width of an ``align*`` continuation indent (``&\qquad``).
 _INDENT = 4
+
+
+def lines_fit(lines: list[str], width: float = LONG) -> bool:
+    """Whether every line of :func:`equation_lines` fits: a single term wider than a line
+    (a long exact coefficient) cannot be broken inside a display."""
+    return all(printed_width(line) <= width + 6 for line in lines)
 
 
 def equation_lines(

@@ -10,7 +10,15 @@ import numpy as np
 import sympy as sp
 
 from ..model.results import Derivation
-from .mathtex import LONG, equation_lines, expr_latex, matrix_latex, polynomial_latex, printed_width
+from .mathtex import (
+    LONG,
+    equation_lines,
+    expr_latex,
+    lines_fit,
+    matrix_latex,
+    polynomial_latex,
+    printed_width,
+)
 from .mathvalues import OwnMath, latex_matrix, latex_number, own_math
 from .memo_math import FORMULA_LIMIT, MATRIX_LIMIT, factored, gain_block, poles_math
 
@@ -105,17 +113,21 @@ def _compensator(d: Derivation) -> dict | None:
     return comp
 
 
+def _coefficient_lines(label: str, co) -> list[OwnMath]:
+    """One coefficient in closed form, or a line saying it is too wide to print."""
+    lines = equation_lines(label, factored(co))
+    if not lines_fit(lines):
+        return [own_math(f"{label} &: \\text{{a term is wider than a line; its value is above}}")]
+    return [own_math(x) for x in lines]
+
+
 def _compensator_lines(numerator, denominator) -> list[OwnMath]:
     """Each coefficient b_k of the numerator and a_k of the monic denominator, in closed form."""
     lines = []
     for i, co in enumerate(numerator):
-        lines += [
-            own_math(x) for x in equation_lines(f"b_{{{len(numerator) - 1 - i}}}", factored(co))
-        ]
+        lines += _coefficient_lines(f"b_{{{len(numerator) - 1 - i}}}", co)
     for i, co in enumerate(denominator[1:]):
-        lines += [
-            own_math(x) for x in equation_lines(f"a_{{{len(denominator) - 2 - i}}}", factored(co))
-        ]
+        lines += _coefficient_lines(f"a_{{{len(denominator) - 2 - i}}}", co)
     return lines
 
 
@@ -140,6 +152,17 @@ def _compensator_shape(degree: int, n: int) -> OwnMath:
     )
 
 
+def _factored_lines(poly: sp.Expr) -> str:
+    """The factored polynomial on one line, or one factor a line when that is too wide."""
+    one_line = sp.latex(sp.factor(poly))
+    if printed_width(one_line) <= LONG - 14:
+        return one_line
+    constant, factors = sp.factor_list(poly)
+    pieces = [] if constant == 1 else [sp.latex(constant)]
+    pieces += [f"\\left({sp.latex(f)}\\right)" + (f"^{{{m}}}" if m > 1 else "") for f, m in factors]
+    return "\\begin{aligned}[t] &" + " \\\\ &\\cdot ".join(pieces) + " \\end{aligned}"
+
+
 def verification_context(d: Derivation) -> dict:
     """The loop of controller and observer together, and every check of the derivation."""
     n = d.design.plant.order
@@ -148,7 +171,7 @@ def verification_context(d: Derivation) -> dict:
     if sep.charpoly is not None:
         s = sp.Symbol("s")
         poly = sp.Add(*[c * s ** (2 * n - i) for i, c in enumerate(sep.charpoly)])
-        sep_poly = own_math("\\det(sI - M) = " + sp.latex(sp.factor(poly)))
+        sep_poly = own_math("\\det(sI - M) = " + _factored_lines(poly))
     return {
         # the loop matrix of order 2n: in the body up to 6x6, in the appendix up to 8x8
         "separated_matrix": own_math(latex_matrix(sep.value, 4)) if 2 * n <= 6 else None,

@@ -11,7 +11,7 @@ import numpy as np
 import sympy as sp
 
 from ..model.labels import gain_label
-from .mathtex import equation_lines, matrix_latex, poles_latex
+from .mathtex import equation_lines, lines_fit, matrix_latex, poles_latex
 from .mathvalues import OwnMath, latex_matrix, latex_number, own_math
 
 __all__ = [
@@ -102,6 +102,9 @@ def gain_block(name: str, closed: sp.Matrix | None, value: np.ndarray) -> dict:
                     too_long.append(label)
                     continue
                 lines = equation_lines(label, entry)
+                if not lines_fit(lines):  # a term wider than the page: not printable
+                    too_long.append(label)
+                    continue
                 if len(lines) == 1:
                     short.append(own_math(lines[0]))
                 else:

@@ -44,6 +44,9 @@ FORMULAS: dict[str, str] = {
     "cubic fit in zeta": r"\text{cubic fit in } \zeta",
     # symbolic/render/robust_memo.py: the margins' definitions
     "20 log10(k_high)": r"20\log_{10} k_{\mathrm{high}}",
+    "log10(1 + |L|)": r"\log_{10}(1 + |L|)",
+    # symbolic/render/study_memo.py: the pole-map caption of a digital controller
+    "exp(sT)": r"e^{sT}",
     "20 log10(1/k_low)": r"20\log_{10}(1/k_{\mathrm{low}})",
     "arg L(jω_c) + 180°": r"\arg L(j\omega_c) + 180^\circ",
     "min((arg L(jω_c) + π) mod 2π)/ω_c": (
@@ -251,6 +254,8 @@ PROSE_PATHS = (
     "simulation.remarks.*",
     "simulation.table.*.label",
     "simulation.figures.*.caption",
+    "simulation.pole_map_caption",
+    "loop_shapes.figures.*.caption",
     "simulation.study.text",
     "robustness.margins.definitions",
     "robustness.sensitivity_method",
