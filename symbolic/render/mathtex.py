@@ -247,7 +247,7 @@ _INDENT = 4
 def lines_fit(lines: list[str], width: float = LONG) -> bool:
     """Whether every line of :func:`equation_lines` fits: a single term wider than a line
     (a long exact coefficient) cannot be broken inside a display."""
-    return all(printed_width(line) <= width + 6 for line in lines)
+    return all(printed_width(line) <= width + 4 for line in lines)
 
 
 def equation_lines(
