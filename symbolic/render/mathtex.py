@@ -143,7 +143,7 @@ _SILENT = frozenset(
 def printed_width(latex: str) -> float:
     """An estimate of the printed width of math, in characters of the body font.
 
-    Scripts count 0.7 of a character, a fraction its wider part (display size), spacing commands
+    Scripts count 0.7 of a character, a fraction its wider part, spacing commands
     a fraction of a character; every other command (``\\alpha``, ``\\cdot``)
     one character, and every letter, digit or operator one (operators with their
     spaces two).  Good enough to decide where to break a line.
@@ -155,7 +155,7 @@ def printed_width(latex: str) -> float:
             break
         num, after = _braced(latex, frac + 5)
         den, end = _braced(latex, after)
-        total += max(printed_width(num), printed_width(den))
+        total += max(printed_width(num), printed_width(den)) * 0.9
         latex = latex[:frac] + latex[end:]
     scripts = 0.0
     for m in _SCRIPT.finditer(latex):
