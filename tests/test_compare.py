@@ -277,7 +277,14 @@ def test_memo_compare_with_a_missing_file_writes_nothing(tmp_path):
 # The memo section
 # --------------------------------------------------------------------------------------------
 def test_the_memo_section_lists_the_changes_before_the_cautions(tmp_path):
-    old = _edit(FOCUS, tmp_path, "old.toml", ('revision = "B"', 'revision = "B\\\\input{x}_%"'))
+    hostile = 'revision = "B\\\\input{x}_%"'
+    old = _edit(  # the top-level revision and the last [[revisions]] entry must agree
+        FOCUS,
+        tmp_path,
+        "old.toml",
+        ('revision = "B"\n\n', hostile + "\n\n"),
+        ('revision = "B"\ndate', hostile + "\ndate"),
+    )
     new = _edit(FOCUS, tmp_path, "new.toml", ("value = 0.012\n", "value = 0.014\n"))
     d_new = symbolic.derive(symbolic.load_design(new))
     c = symbolic.compare(old, d_new)
@@ -288,6 +295,6 @@ def test_the_memo_section_lists_the_changes_before_the_cautions(tmp_path):
     assert tex.count("\\section{Changes since revision B") == 1
     assert tex.index("Changes since") < tex.index("\\section{Assumptions, limits and cautions}")
     assert "\\input{x}" not in tex  # the old file's revision is user text, escaped
-    assert "m value" in md and "0\\.014 kg" in md
+    assert "m value" in md and "0.014 kg" in md
     plain = build_memo(d_new)  # without a comparison there is no such section
     assert "Changes since" not in plain.markdown and "Changes since" not in plain.tex
