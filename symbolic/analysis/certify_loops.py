@@ -72,7 +72,9 @@ def field_matrix(M, K, fixed: dict, key: str) -> DomainMatrix:
     for i in range(M.rows):
         row = []
         for j in range(M.cols):
-            e = sp.sympify(M[i, j]).xreplace(fixed) if fixed else M[i, j]
+            e = (
+                M[i, j].xreplace(fixed) if fixed else M[i, j]
+            )  # entries of a SymPy Matrix: no parsing
             if not e.free_symbols <= set(K.symbols) or not e.is_rational_function(*K.symbols):
                 raise NotCovered(
                     f"{key}[{i}][{j}] = {e} is not a rational function of the ranged parameters"
