@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import dataclasses
+import fcntl
+import json
 import os
 import shutil
 import textwrap
@@ -37,6 +40,77 @@ def write_design(tmp_path):
         return path
 
     return _write
+
+
+#: the date pinned by worked_designs/regenerate.sh (SOURCE_DATE_EPOCH)
+PINNED_EPOCH = "1764633600"
+
+
+@dataclasses.dataclass(frozen=True)
+class WorkedMemo:
+    """One worked design's memo as built by the test run (see :func:`worked_memo`)."""
+
+    folder: Path  # <name>.tex, <name>.md, figures/, and with TeX <name>.pdf and <name>.log
+    name: str
+    passed: bool  # the verdict of the requirements table (the memo command's exit code 0)
+    gains: dict  # "K", "L", "N": the derived values, as nested lists
+
+    def text(self, suffix: str) -> str:
+        return (self.folder / f"{self.name}{suffix}").read_text(encoding="utf-8")
+
+
+def _build_worked_memo(path: Path, folder: Path, compile_pdf: bool) -> None:
+    """Build the memo of `path` into `folder` as ``gainsmith memo`` does (date pinned)."""
+    import symbolic
+    from symbolic.render.memo import assemble_memo
+    from symbolic.render.pdf import compile_pdf_with_log
+
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setenv("SOURCE_DATE_EPOCH", PINNED_EPOCH)
+        patch.setenv("GAINSMITH_FIGURE_SERVER", "0")
+        d = symbolic.derive(symbolic.load_design(path))
+        doc = assemble_memo(d)
+    (folder / "figures").mkdir(parents=True)
+    for name, data in doc.figures.items():
+        (folder / "figures" / name).write_bytes(data)
+    (folder / f"{path.stem}.tex").write_text(doc.tex, encoding="utf-8")
+    (folder / f"{path.stem}.md").write_text(doc.markdown, encoding="utf-8")
+    if compile_pdf:
+        assets = {f"figures/{k}": v for k, v in doc.figures.items() if k.endswith(".pdf")}
+        compiled = compile_pdf_with_log(doc.tex, assets)
+        (folder / f"{path.stem}.pdf").write_bytes(compiled.pdf)
+        (folder / f"{path.stem}.log").write_text(compiled.log, encoding="utf-8")
+    gains = {k: getattr(d, k).value.tolist() for k in ("K", "L")}
+    gains["N"] = d.reference.value.tolist()
+    record = {"passed": bool(doc.requirements.passed), "gains": gains}
+    (folder / "record.json").write_text(json.dumps(record), encoding="utf-8")
+
+
+@pytest.fixture(scope="session")
+def worked_memo(tmp_path_factory):
+    """``worked_memo(name)``: the worked design's memo, built once per test run.
+
+    The build is shared by every pytest-xdist worker (a folder beside the workers' own
+    temporary folders, taken under a file lock), so the five memos are derived, drawn and
+    compiled once however many test files read them.  The PDF and the TeX log are there
+    when TeX is; tests that read them call :func:`require_tex` first.
+    """
+    base = tmp_path_factory.getbasetemp()
+    root = base.parent if os.environ.get("PYTEST_XDIST_WORKER") else base
+    shared = root / "worked-memos"
+    shared.mkdir(exist_ok=True)
+
+    def get(name: str) -> WorkedMemo:
+        folder = shared / name
+        with open(shared / f"{name}.lock", "w") as lock:
+            fcntl.flock(lock, fcntl.LOCK_EX)
+            if not (folder / "record.json").is_file():
+                shutil.rmtree(folder, ignore_errors=True)
+                _build_worked_memo(WORKED / f"{name}.toml", folder, tex_available())
+        record = json.loads((folder / "record.json").read_text(encoding="utf-8"))
+        return WorkedMemo(folder, name, record["passed"], record["gains"])
+
+    return get
 
 
 HEAVY_LIST = Path(__file__).with_name("heavy_tests.txt")

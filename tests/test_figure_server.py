@@ -23,13 +23,12 @@ ROOT = Path(__file__).resolve().parents[1]
 WORKED = ROOT / "worked_designs"
 
 
-def _memo_in_fresh_interpreter(out: Path, **env: str) -> dict:
+def _memo_in_fresh_interpreter(out: Path, design: Path, **env: str) -> dict:
     code = f"""
         import contextlib, io, json, sys
         from symbolic import cli
-        with contextlib.redirect_stdout(io.StringIO()):
-            code = cli.main(["memo", {str(WORKED / "hoist_winch.toml")!r}, "-o", {str(out)!r},
-                             "--no-pdf"])
+        with contextlib.redirect_stdout(io.StringIO()), contextlib.redirect_stderr(io.StringIO()):
+            code = cli.main(["memo", {str(design)!r}, "-o", {str(out)!r}, "--no-pdf"])
         from symbolic.render import figure_server
         print(json.dumps({{"code": code, "server": figure_server.server_running(),
                           "matplotlib_here": "matplotlib" in sys.modules}}))
@@ -46,17 +45,27 @@ def _memo_in_fresh_interpreter(out: Path, **env: str) -> dict:
     return json.loads(done.stdout.strip().splitlines()[-1])
 
 
-def test_memo_figures_come_from_the_server_identical_and_matplotlib_stays_out(tmp_path):
-    out = _memo_in_fresh_interpreter(tmp_path / "served")
+def test_memo_figures_come_from_the_server_identical_and_matplotlib_stays_out(
+    tmp_path, worked_memo
+):
+    out = _memo_in_fresh_interpreter(tmp_path / "served", WORKED / "hoist_winch.toml")
     # the winch memo lists an open item (its actuator limit): exit code 1, memo written
     assert out == {"code": 1, "server": True, "matplotlib_here": False}
-    local = _memo_in_fresh_interpreter(tmp_path / "local", GAINSMITH_FIGURE_SERVER="0")
-    assert local["code"] == 1 and not local["server"]  # drawn by forked workers instead
     served = sorted((tmp_path / "served" / "figures").iterdir())
     assert len(served) == 28  # the hoist winch: 14 figures, PDF and PNG
+    # the same bytes as those drawn in a process without the server (the test run's own
+    # build, drawn by forked workers) and as the committed figures
+    local = worked_memo("hoist_winch").folder / "figures"
     for path in served:
-        assert path.read_bytes() == (tmp_path / "local" / "figures" / path.name).read_bytes()
+        assert path.read_bytes() == (local / path.name).read_bytes(), path.name
         assert path.read_bytes() == (WORKED / "figures" / path.name).read_bytes(), path.name
+
+
+def test_the_variable_turns_the_server_off(tmp_path):
+    # the server starts before the design file is read, so a missing file shows it
+    missing = tmp_path / "missing.toml"
+    off = _memo_in_fresh_interpreter(tmp_path / "off", missing, GAINSMITH_FIGURE_SERVER="0")
+    assert off == {"code": 2, "server": False, "matplotlib_here": False}
 
 
 def _line_figure(values):

@@ -18,12 +18,10 @@ from symbolic import derive
 from symbolic.cli import main
 from symbolic.model.numbers import format_number, format_pole
 from symbolic.render.mathtex import LONG, pole_latex, printed_width
-from symbolic.render.memo import assemble_memo, build_memo, write_memo
+from symbolic.render.memo import build_memo, write_memo
 from symbolic.render.memo_design import memo_date
 
 from .conftest import ROOT, WORKED, WORKED_FILES, require_tex, tex_available
-
-PINNED_EPOCH = "1764633600"  # the date pinned by worked_designs/regenerate.sh
 
 
 def _pdf_text(pdf: Path) -> str:
@@ -43,38 +41,23 @@ def _memo_command(design: Path, out: Path, *options: str) -> int:
         return main(["memo", str(design), "-o", str(out), *options])
 
 
-@pytest.fixture(scope="module")
-def built_memos(tmp_path_factory):
-    """Every worked design's memo, built once with PDF (CI has TeX)."""
-    require_tex()
-    out = tmp_path_factory.mktemp("memos")
-    results = {}
-    for path in WORKED_FILES:
-        design = symbolic.load_design(path)
-        code = _memo_command(path, out)
-        results[path.stem] = (design, code)
-    return out, results
-
-
 @pytest.mark.parametrize("path", WORKED_FILES, ids=lambda p: p.stem)
-def test_worked_design_pdf_contains_the_gains(built_memos, path):
-    out, results = built_memos
-    design, code = results[path.stem]
-    pdf = out / f"{path.stem}.pdf"
+def test_worked_design_pdf_contains_the_gains(worked_memo, path):
+    require_tex()
+    memo = worked_memo(path.stem)
+    pdf = memo.folder / f"{path.stem}.pdf"
     assert pdf.read_bytes().startswith(b"%PDF")
     text = _squash(_pdf_text(pdf))
-    # the verdict on the front page agrees with the exit code (and with the table)
+    # the verdict on the front page agrees with the requirements table (the exit code)
     front = text[: text.index("Contents")]
-    if code == 0:
+    if memo.passed:
         assert "Verdict:everyrequirementbelowismet" in front
         assert "FAIL" not in front and "Openitems." not in front
     else:
-        assert code == 1
         assert "Verdict:notacceptableasitstands" in front
         assert "FAIL" in front and "Openitems." in front
-    d = derive(design)
     # the numbers as the terminal summary prints them (6 significant figures)
-    for value in np.concatenate([d.K.value.ravel(), d.L.value.ravel(), d.reference.value.ravel()]):
+    for value in np.concatenate([np.ravel(memo.gains[k]) for k in ("K", "L", "N")]):
         printed = format_number(value)
         mantissa = printed.split("e")[0]  # the memo writes 1.28142 × 10^6 for 1.28142e+06
         assert mantissa.replace("-", "") in text.replace("−", "-"), printed
@@ -95,23 +78,27 @@ def test_worked_design_pdf_contains_the_gains(built_memos, path):
         "Approvedby",
     ):
         assert heading in text, heading
-    assert design.sha256[:16] in text
+    assert symbolic.load_design(path).sha256[:16] in text
 
 
-def test_memo_files_and_figures_written(built_memos):
-    out, _ = built_memos
-    for path in WORKED_FILES:
-        for ext in (".tex", ".md", ".pdf"):
-            assert (out / f"{path.stem}{ext}").is_file()
-        for stem in ("step", "estimation-error", "control", "pole-map", "observer-study"):
-            assert (out / "figures" / f"{path.stem}-{stem}.png").read_bytes().startswith(b"\x89PNG")
-            assert (out / "figures" / f"{path.stem}-{stem}.pdf").read_bytes().startswith(b"%PDF")
-    assert not [p for p in out.iterdir() if p.name.startswith(".gainsmith-staging")]
+def test_memo_command_writes_files_and_figures(tmp_path):
+    path = WORKED / "focus_actuator.toml"
+    code = _memo_command(path, tmp_path)
+    assert code == 0  # the focus actuator meets every requirement
+    suffixes = (".tex", ".md", ".pdf") if tex_available() else (".tex", ".md")
+    for ext in suffixes:
+        assert (tmp_path / f"{path.stem}{ext}").is_file()
+    for stem in ("step", "estimation-error", "control", "pole-map", "observer-study"):
+        assert (
+            (tmp_path / "figures" / f"{path.stem}-{stem}.png").read_bytes().startswith(b"\x89PNG")
+        )
+        assert (tmp_path / "figures" / f"{path.stem}-{stem}.pdf").read_bytes().startswith(b"%PDF")
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".gainsmith-staging")]
 
 
-def test_memo_shows_hand_calculation_check(built_memos):
-    out, _ = built_memos
-    text = _squash(_pdf_text(out / "levitated_ball.pdf"))
+def test_memo_shows_hand_calculation_check(worked_memo):
+    require_tex()
+    text = _squash(_pdf_text(worked_memo("levitated_ball").folder / "levitated_ball.pdf"))
     assert "Handcalculationcheck" in text
     assert "Everyclaimholds" in text
 
@@ -224,17 +211,18 @@ def test_failed_compile_keeps_the_previous_memo(tmp_path, monkeypatch):
 
 
 @pytest.mark.parametrize("path", WORKED_FILES, ids=lambda p: p.stem)
-def test_committed_worked_memos_are_current(path, monkeypatch):
-    """Fails when worked_designs/*.md or *.tex are stale: run sh worked_designs/regenerate.sh."""
-    monkeypatch.setenv("SOURCE_DATE_EPOCH", PINNED_EPOCH)
-    doc = assemble_memo(symbolic.derive(symbolic.load_design(path)))
-    figures = doc.figures
+def test_committed_worked_memos_are_current(path, worked_memo):
+    """Fails when worked_designs/*.md, *.tex or figures are stale: run
+    sh worked_designs/regenerate.sh."""
+    memo = worked_memo(path.stem)
     hint = "stale: run `sh worked_designs/regenerate.sh`"
-    assert (WORKED / f"{path.stem}.md").read_text(encoding="utf-8") == doc.markdown, hint
-    assert (WORKED / f"{path.stem}.tex").read_text(encoding="utf-8") == doc.tex, hint
-    for name in figures:
-        if name.endswith(".png"):
-            assert (WORKED / "figures" / name).is_file(), hint
+    assert (WORKED / f"{path.stem}.md").read_text(encoding="utf-8") == memo.text(".md"), hint
+    assert (WORKED / f"{path.stem}.tex").read_text(encoding="utf-8") == memo.text(".tex"), hint
+    built = {p.name: p.read_bytes() for p in (memo.folder / "figures").iterdir()}
+    committed = {p.name: p.read_bytes() for p in (WORKED / "figures").glob(f"{path.stem}-*")}
+    assert sorted(built) == sorted(committed), hint
+    for name, data in built.items():
+        assert committed[name] == data, f"{name} {hint}"
 
 
 def test_source_date_epoch_makes_sources_reproducible(monkeypatch):
@@ -392,17 +380,18 @@ def test_memo_sections_for_integral_reduced_and_digital(tmp_path):
     text += '\n[tracking]\nmethod = "integral"\n\n[discrete]\nsample_time = 0.01\n'
     path = tmp_path / "extended.toml"
     path.write_text(text)
-    design = symbolic.load_design(path)
-    d = symbolic.derive(design)
-    doc = assemble_memo(d)
+    d = symbolic.derive(symbolic.load_design(path))
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setenv("GAINSMITH_FIGURE_SERVER", "0")
+        result = write_memo(d, tmp_path / "out", pdf=tex_available())
+    markdown = (tmp_path / "out" / "extended.md").read_text(encoding="utf-8")
+    tex = (tmp_path / "out" / "extended.tex").read_text(encoding="utf-8")
     for heading in ("## Integral action", "## Reduced-order observer", "## Digital implementation"):
-        assert heading in doc.markdown
-    assert (
-        r"\section{Integral action}" in doc.tex and r"\section{Digital implementation}" in doc.tex
-    )
+        assert heading in markdown
+    assert r"\section{Integral action}" in tex and r"\section{Digital implementation}" in tex
     assert d.integral is not None and d.reduced_observer is not None and d.discrete is not None
     # the gains printed are the derived ones
-    assert format_number(d.integral.integral_gain.ravel()[0]) in doc.markdown.replace("\\-", "-")
+    assert format_number(d.integral.integral_gain.ravel()[0]) in markdown.replace("\\-", "-")
     if tex_available():
-        assert _memo_command(path, tmp_path / "out") in (0, 1)
+        assert result.pdf
         assert (tmp_path / "out" / "extended.pdf").read_bytes().startswith(b"%PDF")

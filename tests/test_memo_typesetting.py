@@ -1,10 +1,10 @@
 """The typesetting of the memo: every worked memo compiles with no overfull line and nothing
 outside the text area, and its prose carries no ASCII math.
 
-The worked memos are compiled from their committed sources (``worked_designs/*.tex`` and the
-figure files beside them; ``tests/test_memo.py`` checks that these are current) through the
-same locked-down compile as ``gainsmith memo`` (:func:`symbolic.render.pdf.compile_pdf_with_log`,
-which hands back the text of the TeX log).  What the checks read:
+The worked memos are the ones the test run builds once (the ``worked_memo`` fixture of
+``tests/conftest.py``; ``tests/test_memo.py`` checks that they equal the committed
+``worked_designs/*.tex``), compiled through the same locked-down compile as ``gainsmith memo``
+(:func:`symbolic.render.pdf.compile_pdf_with_log`, which hands back the text of the TeX log).  What the checks read:
 
 * ``Overfull \\hbox`` in the log: TeX could not fit a line (a formula, a table row, a word)
   into the text width; it prints it anyway, into the margin.  TeX's own diagnostic (D. E.
@@ -46,19 +46,6 @@ PAGE_RIGHT = 595.276 - PAGE_LEFT
 SLACK = 4.0
 
 
-def _compiled(name: str, tmp_path: Path) -> tuple[str, Path]:
-    """The TeX log and the PDF of the committed worked memo `name`."""
-    require_tex()
-    source = (WORKED / f"{name}.tex").read_text(encoding="utf-8")
-    assets = {
-        f"figures/{p.name}": p.read_bytes() for p in (WORKED / "figures").glob(f"{name}-*.pdf")
-    }
-    compiled = compile_pdf_with_log(source, assets)
-    pdf = tmp_path / f"{name}.pdf"
-    pdf.write_bytes(compiled.pdf)
-    return compiled.log, pdf
-
-
 _WORD = re.compile(
     r'<word xMin="([\d.]+)" yMin="[\d.]+" xMax="([\d.]+)" yMax="[\d.]+">(.*?)</word>'
 )
@@ -79,8 +66,10 @@ def _words_outside(pdf: Path) -> list[str]:
 
 
 @pytest.mark.parametrize("path", WORKED_FILES, ids=lambda p: p.stem)
-def test_worked_memo_has_no_overfull_line_and_nothing_off_the_page(path, tmp_path):
-    log, pdf = _compiled(path.stem, tmp_path)
+def test_worked_memo_has_no_overfull_line_and_nothing_off_the_page(path, worked_memo):
+    require_tex()
+    memo = worked_memo(path.stem)
+    log, pdf = memo.text(".log"), memo.folder / f"{path.stem}.pdf"
     overfull = re.findall(r"^Overfull \\hbox.*$", log, re.MULTILINE)
     assert overfull == [], f"{path.stem}: {len(overfull)} overfull lines: {overfull[:5]}"
     assert _words_outside(pdf) == []
@@ -297,8 +286,9 @@ def test_observer_speed_table_is_short_and_marks_the_shipped_observer():
     assert sum("(shipped)" in ln for ln in rows) == 1
 
 
-def test_double_hyphen_options_print_as_two_hyphens(tmp_path):
-    _log, pdf = _compiled("hoist_winch", tmp_path)
+def test_double_hyphen_options_print_as_two_hyphens(worked_memo):
+    require_tex()
+    pdf = worked_memo("hoist_winch").folder / "hoist_winch.pdf"
     text = subprocess.run(
         ["pdftotext", str(pdf), "-"], capture_output=True, check=True, timeout=120
     ).stdout.decode("utf-8")
