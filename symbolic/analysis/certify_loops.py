@@ -81,8 +81,13 @@ def field_matrix(M, K, fixed: dict, key: str) -> DomainMatrix:
                 )
             try:
                 row.append(K.from_sympy(e))
-            except CoercionFailed as exc:
-                raise NotCovered(f"{key}[{i}][{j}] = {e} cannot be read exactly") from exc
+            except (CoercionFailed, ValueError) as exc:
+                # e.g. an irrational constant such as cos(7/10) (a linearisation's entry):
+                # not an element of the rational function field over QQ
+                raise NotCovered(
+                    f"{key}[{i}][{j}] holds an irrational constant (a sine or cosine of the"
+                    " operating point, say), which is not a rational function over the rationals"
+                ) from exc
         rows.append(row)
     return DomainMatrix(rows, (M.rows, M.cols), K)
 

@@ -19,6 +19,8 @@ row fails.  The rows are
 * gain and phase margins of the shipped loop broken at the plant input (single input);
 * estimator speed: the slowest observer pole at least twice as fast as the slowest controller
   pole;
+* for a design written as a nonlinear ``[model]``: reference steps and the recovery from
+  initial offsets on the nonlinear plant (:mod:`symbolic.analysis.nonlinear_rows`);
 * every numeric and symbolic cross-check of the derivation, and the hand-calculated claims.
 
 The thresholds that no design file states (margins, estimator speed) are common practice and
@@ -40,6 +42,8 @@ from ..derivation.numeric import check_eigenvalues
 from ..verification.shipped import ShippedController, closed_loop, poles_stable
 from .certify import box_certificates
 from .margins import MarginReport
+from .nonlinear_rows import nonlinear_rows
+from .nonlinear_study import nonlinear_study
 from .requirements import Requirement, RequirementTable
 from .shipped_stability import RangeStability, range_stability, shipped_margins
 
@@ -434,6 +438,7 @@ def requirement_table(
     ranges: RangeStability | None = None,
     margins: tuple[MarginReport | None, str] | None = None,
     claims=None,
+    nonlinear=None,
 ) -> RequirementTable:
     """Assemble the numbered rows for a derivation and its simulation study.
 
@@ -448,6 +453,9 @@ def requirement_table(
         Default: computed here (:func:`shipped_margins`).
     claims : ClaimReport, optional
         The ``[claimed]`` check, when the design file has one.
+    nonlinear : NonlinearStudy, optional
+        For a design written as a ``[model]``; default: computed here
+        (:func:`~symbolic.analysis.nonlinear_study.nonlinear_study`).
     """
     ctrl = study.controller
     if ranges is None:
@@ -463,6 +471,10 @@ def requirement_table(
     raw.extend(_certificate_rows(d, ctrl))
     raw.extend(_margin_rows(ctrl, *margins))
     raw.append(_speed_row(ctrl))
+    if d.design.model is not None:
+        if nonlinear is None:
+            nonlinear = nonlinear_study(d, ctrl, study.horizon)
+        raw.extend(nonlinear_rows(d, nonlinear))
     raw.append(_checks_row(d))
     raw.append(_claims_row(claims))
     rows = tuple(

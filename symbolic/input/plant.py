@@ -17,7 +17,7 @@ from ..runtime.errors import ExpressionError
 from .expressions import check_name, parse_expression, parse_number
 from .fields import FieldReader
 
-__all__ = ["MAX_ORDER", "read_plant"]
+__all__ = ["MAX_ORDER", "read_plant", "read_signals"]
 
 MAX_ORDER = 12
 
@@ -61,9 +61,9 @@ def read_plant(fields: FieldReader, data: Any, symbols: Mapping[str, sp.Symbol])
         B=B,
         C=C,
         D=D,
-        states=_signals(fields, data.get("states"), "plant.states", n, "x"),
-        inputs=_signals(fields, data.get("inputs"), "plant.inputs", m, "u"),
-        outputs=_signals(fields, data.get("outputs"), "plant.outputs", p, "y"),
+        states=read_signals(fields, data.get("states"), "plant.states", n, "x"),
+        inputs=read_signals(fields, data.get("inputs"), "plant.inputs", m, "u"),
+        outputs=read_signals(fields, data.get("outputs"), "plant.outputs", p, "y"),
     )
 
 
@@ -110,7 +110,7 @@ def _entry(fields: FieldReader, entry: Any, key: str, symbols: Mapping[str, sp.S
         fields.fail(key, str(exc))
 
 
-def _signals(
+def read_signals(
     fields: FieldReader, value: Any, key: str, count: int, prefix: str
 ) -> tuple[Signal, ...]:
     """The names of ``count`` signals at ``key``; ``prefix`` numbered when absent."""

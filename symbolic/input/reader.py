@@ -13,7 +13,8 @@ own module (:mod:`symbolic.input.parameters`, :mod:`symbolic.input.plant`,
 :mod:`symbolic.input.controller`, :mod:`symbolic.input.observer`,
 :mod:`symbolic.input.tracking`, :mod:`symbolic.input.discrete`,
 :mod:`symbolic.input.simulation`, :mod:`symbolic.input.claimed`,
-:mod:`symbolic.input.options`, :mod:`symbolic.input.revisions`) through one shared
+:mod:`symbolic.input.options`, :mod:`symbolic.input.revisions`, and
+:mod:`symbolic.input.model_table` for a nonlinear ``[model]`` in place of ``[plant]``) through one shared
 :class:`~symbolic.input.fields.FieldReader`.
 """
 
@@ -32,6 +33,7 @@ from .claimed import read_claims
 from .controller import read_controller
 from .discrete import read_discrete
 from .fields import FieldReader
+from .model_table import read_model
 from .observer import read_observer
 from .options import read_symbolic_budget
 from .parameters import MAX_PARAMETERS, read_parameters
@@ -65,6 +67,7 @@ _TOP_KEYS = (
     "options",
     "discrete",
     "revisions",
+    "model",
 )
 
 
@@ -134,14 +137,23 @@ def _read_design(fields: FieldReader, data: dict, overrides: dict[str, str]) -> 
     revision = fields.string(data.get("revision"), "revision")
     parameters = read_parameters(fields, data.get("parameters", {}), overrides)
     symbols = {p.name: p.symbol for p in parameters}
-    plant = read_plant(fields, data.get("plant"), symbols)
+    budget = read_symbolic_budget(fields, data.get("options"))
+    model = None
+    if "model" in data:
+        if "plant" in data:
+            fields.fail(
+                "model", "give either [plant] (A, B, C, D) or [model] (the equations), not both"
+            )
+        values = {p.symbol: p.value for p in parameters}
+        model, plant = read_model(fields, data["model"], symbols, values, budget)
+    else:
+        plant = read_plant(fields, data.get("plant"), symbols)
     controller = read_controller(fields, data.get("controller"), plant)
     observer = read_observer(fields, data.get("observer"), plant)
     tracking = read_tracking(fields, data.get("tracking"), plant)
     discrete = read_discrete(fields, data.get("discrete"))
     simulation = read_simulation(fields, data.get("simulation"), plant)
     claims = read_claims(fields, data.get("claimed"), plant)
-    budget = read_symbolic_budget(fields, data.get("options"))
     revisions = read_revisions(fields, data.get("revisions"))
     if revisions and not revision:
         revision = revisions[-1].revision  # the history names the current revision
@@ -168,6 +180,7 @@ def _read_design(fields: FieldReader, data: dict, overrides: dict[str, str]) -> 
         discrete=discrete,
         overrides=tuple(f"{k}={v}" for k, v in overrides.items()),
         revisions=revisions,
+        model=model,
     )
 
 

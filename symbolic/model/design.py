@@ -19,7 +19,9 @@ __all__ = [
     "ControllerRequest",
     "Design",
     "DiscreteRequest",
+    "NonlinearModel",
     "ObserverRequest",
+    "OperatingPoint",
     "Parameter",
     "Plant",
     "Revision",
@@ -217,6 +219,48 @@ class Revision:
 
 
 @dataclass(frozen=True)
+class OperatingPoint:
+    """The equilibrium the plant is linearised about: ``f(x*, u*, p) = 0``, ``y* = h(x*, u*, p)``.
+
+    Each value is exact: a number, or an expression over the parameters when the equilibrium
+    was solved in closed form (``closed_form``); otherwise numbers at the nominal values.
+    """
+
+    states: tuple[sp.Expr, ...]
+    inputs: tuple[sp.Expr, ...]
+    outputs: tuple[sp.Expr, ...]
+    #: the names the design file fixed (the rest were solved for)
+    given: tuple[str, ...]
+    closed_form: bool = True
+    #: how many real equilibria met the file's conditions before one was chosen
+    candidates: int = 1
+
+
+@dataclass(frozen=True)
+class NonlinearModel:
+    """The ``[model]`` table: ``x' = f(x, u, p)``, ``y = h(x, u, p)`` and its operating point.
+
+    ``state_symbols`` and ``input_symbols`` are the SymPy symbols the expressions use for the
+    states and inputs (real symbols named as the signals); the design's plant holds the
+    Jacobians at :attr:`operating_point`, the linearisation every later stage designs for.
+    """
+
+    state_equations: tuple[sp.Expr, ...]
+    output_equations: tuple[sp.Expr, ...]
+    state_symbols: tuple[sp.Symbol, ...]
+    input_symbols: tuple[sp.Symbol, ...]
+    operating_point: OperatingPoint
+    #: ``[low, high]`` where the model holds, per state (None: no bound); a trajectory that
+    #: leaves it counts as not converging
+    state_ranges: tuple[tuple[float, float] | None, ...]
+    #: reference steps (output units, deviations from y*) simulated on the nonlinear plant
+    steps: tuple[float, ...]
+    #: the initial offset from x* along each state axis the loop must recover from (None: none
+    #: required; the estimate is reported)
+    required_offsets: tuple[float | None, ...]
+
+
+@dataclass(frozen=True)
 class Design:
     """A validated design file."""
 
@@ -237,6 +281,8 @@ class Design:
     discrete: DiscreteRequest | None = None
     #: the revision history, oldest first, as the file lists it
     revisions: tuple[Revision, ...] = ()
+    #: the nonlinear model the plant was linearised from (``[model]``); None: ``[plant]`` given
+    model: NonlinearModel | None = None
     #: the design file's text as read (for the memo's appendix)
     text: str = field(default="", repr=False, compare=False)
 

@@ -138,6 +138,10 @@ _SILENT = frozenset(
     "mathit mathrm mathsf mathbf mathcal text left right bigl bigr Bigl Bigr displaystyle"
     " frac dfrac tfrac sqrt begin end bmatrix matrix phantom".split()
 )
+# Commands printed as their name in upright letters (a function's name is as wide as it reads).
+_NAMED = frozenset(
+    "sin cos tan sinh cosh tanh arcsin arccos arctan exp log ln det arg min max sec csc cot".split()
+)
 
 
 def printed_width(latex: str) -> float:
@@ -163,7 +167,10 @@ def printed_width(latex: str) -> float:
     latex = _SCRIPT.sub("", latex)
     for m in _COMMAND.finditer(latex):
         word = m.group(1)
-        total += 0 if word in _SILENT else (2 if word in ("qquad",) else 1)
+        if word in _NAMED:
+            total += len(word)
+        else:
+            total += 0 if word in _SILENT else (2 if word in ("qquad",) else 1)
     latex = _COMMAND.sub("", latex)
     latex = latex.replace("\\,", "").replace("\\;", "").replace("&", "")
     operators = sum(latex.count(op) for op in "+-=<>")

@@ -247,6 +247,7 @@ def build_memo(
     controller=None,
     comparison=None,
     loop_shapes_context: dict | None = None,
+    nonlinear_context: dict | None = None,
 ) -> MemoDocument:
     """Render the memo source of every format from a finished derivation (with a
     :class:`~symbolic.analysis.revision_diff.RevisionComparison`, the section "Changes since
@@ -260,6 +261,10 @@ def build_memo(
 
     ctx["certificate"] = memo_certificate(d, controller)
     ctx["loop_shapes"] = loop_shapes_context
+    from .nonlinear_memo import model_context
+
+    ctx["model"] = model_context(d)
+    ctx["nonlinear"] = nonlinear_context
     ctx.update(extended_sections(d) if extended_context is None else extended_context)
     name = d.design.slug
     # file names are our own slug (letters, digits, '-'), safe to trust in every format
@@ -291,11 +296,18 @@ def assemble_memo(d: Derivation, comparison=None) -> MemoDocument:
 
             claims_ctx = memo_claims(d, design.claims)
             claims = check_claims(d, design.claims)
-        table = requirement_table(d, study, claims=claims)
+        nonlinear, nonlinear_ctx, nonlinear_figures = _nonlinear(d, study)
+        table = requirement_table(d, study, claims=claims, nonlinear=nonlinear)
         robustness_ctx, robustness_figures = memo_robustness_section(d)
         extended_ctx, extended_figures = memo_extended_sections(d)
         shapes_ctx, shapes_figures = memo_loop_shapes(d, study.controller, study)
-        names = {**figures, **robustness_figures, **extended_figures, **shapes_figures}
+        names = {
+            **figures,
+            **robustness_figures,
+            **extended_figures,
+            **shapes_figures,
+            **nonlinear_figures,
+        }
         batch.start()  # the figures are drawn while the templates render; contents come later
         doc = build_memo(
             d,
@@ -308,11 +320,24 @@ def assemble_memo(d: Derivation, comparison=None) -> MemoDocument:
             study.controller,
             comparison,
             shapes_ctx,
+            nonlinear_ctx,
         )
         files = batch.result()
     if set(files) != set(names):
         raise RuntimeError(f"figure files {sorted(set(files) ^ set(names))} were not expected")
     return dataclasses.replace(doc, figures=files, requirements=table)
+
+
+def _nonlinear(d: Derivation, study):
+    """The nonlinear-plant study, its memo context and figures (all None/{} without a model)."""
+    if d.design.model is None:
+        return None, None, {}
+    from ..analysis.nonlinear_study import nonlinear_study
+    from .nonlinear_memo import memo_nonlinear
+
+    result = nonlinear_study(d, study.controller, study.horizon)
+    ctx, figures = memo_nonlinear(d, result)
+    return result, ctx, figures
 
 
 def _compile(doc: MemoDocument, out: Path) -> tuple[bytes, float]:

@@ -17,7 +17,7 @@ import numpy as np
 from ..model.results import Derivation
 from .mathtex import expr_latex
 from .mathvalues import latex_matrix, latex_number, own_math
-from .memo_math import factored, matrix_math, metric_math, plain_text, poles_math
+from .memo_math import closed_matrix_math, factored, matrix_math, metric_math, plain_text, poles_math
 
 __all__ = ["extended_sections", "memo_extended_sections"]
 
@@ -76,7 +76,8 @@ def _integral_section(d: Derivation, makers: Makers) -> dict:
         "pole_rule": plain_text(ia.pole_rule),
         "Aa": matrix_math("A_a", ia.A_augmented_closed_form, ia.A_augmented),
         "Ba": matrix_math("B_a", ia.B_augmented_closed_form, ia.B_augmented),
-        "gain": matrix_math(r"[K,\; k_i]", ia.closed_form, ia.K_augmented),
+        # None when the closed form is too wide for a line: the numbers alone are printed
+        "gain": closed_matrix_math(r"[K,\; k_i]", ia.closed_form),
         "gain_value": own_math(r"[K,\; k_i] = " + latex_matrix(ia.K_augmented, 6)),
         "poles": poles_math(np.array([complex(p) for p in ia.poles])),
         "determinant": None

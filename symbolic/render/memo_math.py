@@ -11,13 +11,14 @@ import numpy as np
 import sympy as sp
 
 from ..model.labels import gain_label
-from .mathtex import equation_lines, lines_fit, matrix_latex, poles_latex
+from .mathtex import LONG, equation_lines, lines_fit, matrix_latex, poles_latex, printed_width
 from .mathvalues import OwnMath, latex_matrix, latex_number, own_math
 
 __all__ = [
     "FACTOR_LIMIT",
     "FORMULA_LIMIT",
     "MATRIX_LIMIT",
+    "closed_matrix_math",
     "factored",
     "gain_block",
     "matrix_math",
@@ -52,12 +53,21 @@ def matrix_or_numeric(M: sp.Matrix | None, value: np.ndarray) -> tuple[OwnMath, 
     return own_math(latex_matrix(value)), False
 
 
+def closed_matrix_math(name: str, closed: sp.Matrix | None) -> OwnMath | None:
+    """``name = [closed form]`` when it fits on a line of the page, else None."""
+    if closed is None:
+        return None
+    tex = matrix_latex(closed, MATRIX_LIMIT)
+    if tex is None or printed_width(f"{name} = {tex}") > LONG:
+        return None
+    return own_math(f"{name} = {tex}")
+
+
 def matrix_math(name: str, closed: sp.Matrix | None, value: np.ndarray) -> OwnMath:
     """``name = [closed form]`` when short, else the numbers."""
-    if closed is not None:
-        tex = matrix_latex(closed, MATRIX_LIMIT)
-        if tex is not None:
-            return own_math(f"{name} = {tex}")
+    short = closed_matrix_math(name, closed)
+    if short is not None:
+        return short
     return own_math(f"{name} = " + latex_matrix(np.atleast_2d(value), 6))
 
 
