@@ -106,6 +106,9 @@ class NonlinearStudy:
     method: str
     #: why a part was not run ('' when all ran)
     skipped: str = ""
+    #: each state's scale (its size at the operating point or its peak in the linear steps):
+    #: the unit in which the return of a perturbed start is judged
+    scales: tuple[float, ...] = ()
 
     @property
     def steps_passed(self) -> bool:
@@ -348,4 +351,6 @@ def nonlinear_study(d, ctrl: ShippedController, horizon: float) -> NonlinearStud
                 "; ".join(dict.fromkeys(n for n in (note_b, note_a) if n)),
             )
         )
-    return NonlinearStudy(steps, tuple(reach), horizon, req.u_max, method)
+    return NonlinearStudy(
+        steps, tuple(reach), horizon, req.u_max, method, scales=tuple(float(x) for x in scale)
+    )

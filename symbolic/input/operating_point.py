@@ -3,8 +3,10 @@
 The design file fixes as many of the states, inputs and outputs as the plant has inputs
 (``[model.operating_point]``); the rest of ``(x*, u*)`` solves ``f(x*, u*, p) = 0`` together
 with ``h_j(x*, u*, p) = y*_j`` for each output fixed.  The solution is sought in closed form
-first (``sympy.solve``, in a child process within the design's symbolic budget, so that a
-system SymPy cannot finish does not hang the reader), as functions of the parameters; the
+first, as functions of the parameters, by elimination (an equation in one unknown is solved
+for it, each root a branch; else an equation linear in an unknown; else ``sympy.solve`` on
+what remains), in a child process within :data:`SOLVE_SECONDS` (or the design's smaller
+symbolic budget), so that a system SymPy cannot finish does not hang the reader; the
 real solutions at the nominal values that lie in the states' declared ranges are kept, and
 exactly one must remain.  When no closed form comes, the equilibrium is found numerically at
 the nominal values (``sympy.nsolve``, Newton's method in mpmath, from the middle of the
@@ -29,6 +31,9 @@ from .fields import FieldReader
 
 __all__ = ["linearise", "solve_operating_point"]
 
+#: Longest the closed-form solution of the equilibrium may take before Newton's method is used
+#: instead (seconds; less when the design's symbolic budget is smaller).
+SOLVE_SECONDS = 5.0
 #: Solutions whose imaginary part is below this (relative to their size) count as real.
 _REAL_TOLERANCE = 1e-9
 
@@ -54,12 +59,25 @@ def solve_operating_point(
             equations.append(h[index] - value)
         else:
             fixed[(xs if kind == "state" else us)[index]] = value
+    for x, bounds in zip(xs, ranges, strict=True):
+        if x in fixed and bounds is not None:
+            value = _value(fixed[x], values).real
+            if not bounds[0] <= value <= bounds[1]:
+                fields.fail(
+                    f"model.operating_point.{x.name}",
+                    f"{value:.6g} lies outside the state's range [{bounds[0]:g}, {bounds[1]:g}]",
+                )
     unknowns = [s for s in (*xs, *us) if s not in fixed]
     equations = [e.xreplace(fixed) for e in equations]
-    solutions, closed = _solve(equations, unknowns, values, budget)
+    keep = _Keep(values, xs, ranges, tuple(unknowns))
+    solutions, closed = _solve(equations, unknowns, keep, budget)
     if not closed:
         solutions = _numeric(fields, equations, unknowns, values, xs, ranges)
-    kept = [s for s in solutions if _admissible(s, unknowns, values, xs, ranges)]
+    kept = [
+        s
+        for s in solutions
+        if _admissible(s, unknowns, values, xs, ranges) and _residual_small(equations, s, values)
+    ]
     if not kept:
         fields.fail(
             "model.operating_point",
@@ -82,11 +100,14 @@ def solve_operating_point(
     return OperatingPoint(x_star, u_star, y_star, tuple(given), closed, len(kept))
 
 
-def _solve(equations, unknowns, values, budget) -> tuple[list[dict], bool]:
+def _solve(equations, unknowns, keep, budget) -> tuple[list[dict], bool]:
     """Closed-form solutions (dicts unknown → expression), or ``([], False)`` if none came."""
     try:
         found = run_bounded(
-            _sympy_solve, (equations, unknowns), seconds=budget or None, what="equilibrium"
+            _sympy_solve,
+            (equations, unknowns, keep),
+            seconds=min(budget, SOLVE_SECONDS) if budget else None,
+            what="equilibrium",
         )
     except BudgetExceeded:
         return [], False
@@ -94,11 +115,75 @@ def _solve(equations, unknowns, values, budget) -> tuple[list[dict], bool]:
     return complete, bool(complete)
 
 
-def _sympy_solve(equations, unknowns) -> list[dict]:
+def _sympy_solve(equations, unknowns, keep) -> list[dict]:
     try:
-        return sp.solve(equations, unknowns, dict=True)
+        return _eliminate([_numerator(e) for e in equations], list(unknowns), 0, keep)
     except (NotImplementedError, ValueError, TypeError):
         return []
+
+
+#: Nested eliminations, at most (one per unknown is enough for a square system).
+_DEPTH = 16
+
+
+def _numerator(expr: sp.Expr) -> sp.Expr:
+    """The numerator of ``expr`` as one fraction: where the denominator is finite and not
+    zero (the equilibria the model defines), ``expr = 0`` exactly when it is."""
+    return sp.numer(sp.together(expr))
+
+
+def _eliminate(equations, unknowns, depth: int, keep) -> list[dict]:
+    """Solve ``equations = 0`` for ``unknowns`` by elimination: first an equation in one
+    unknown (each of its roots a branch), else one linear in an unknown, else SymPy's
+    ``solve`` on what remains.  Returns complete solutions only; ``keep(unknown, root)``
+    prunes a branch whose root is already known to be complex or out of range."""
+    equations = [e for e in equations if e != 0]
+    if not unknowns:
+        return [] if equations else [{}]
+    if not equations or depth > _DEPTH:
+        return []
+    chosen = _pick(equations, unknowns)
+    if chosen is None:
+        found = sp.solve(equations, unknowns, dict=True, check=False, simplify=False)
+        return [s for s in found if set(s) >= set(unknowns)]
+    eq, unknown = chosen
+    out = []
+    for root in _roots(eq, unknown):
+        if not keep(unknown, root):
+            continue  # complex or out of range (real equilibria in the ranges only)
+        rest = [_numerator(e.xreplace({unknown: root})) for e in equations if e is not eq]
+        others = [u for u in unknowns if u != unknown]
+        for tail in _eliminate(rest, others, depth + 1, keep):
+            value = root.xreplace(tail)
+            out.append({unknown: value, **tail})
+    return out
+
+
+def _roots(eq: sp.Expr, unknown: sp.Symbol) -> list[sp.Expr]:
+    """The roots of ``eq`` in ``unknown``, factor by factor (SymPy solves a product of a sine
+    and a polynomial in the cosine in milliseconds, the expanded equation in a second)."""
+    roots = []
+    for factor, _power in sp.factor_list(eq)[1]:
+        if factor.has(unknown):
+            found = sp.solve(factor, unknown, check=False, simplify=False)
+            roots.extend(r for r in found if r not in roots)
+    return roots
+
+
+def _pick(equations, unknowns):
+    """``(equation, unknown)``: an equation in one unknown, else one linear in an unknown
+    with a coefficient free of the unknowns; None when there is neither."""
+    for e in equations:
+        present = [u for u in unknowns if e.has(u)]
+        if len(present) == 1:
+            return e, present[0]
+    for e in equations:
+        for u in unknowns:
+            if e.has(u) and e.is_polynomial(u) and sp.degree(e, u) == 1:
+                coefficient = sp.expand(e).coeff(u, 1)
+                if coefficient != 0 and not coefficient.has(*unknowns):
+                    return e, u
+    return None
 
 
 def _numeric(fields, equations, unknowns, values, xs, ranges) -> list[dict]:
@@ -133,6 +218,34 @@ def _admissible(solution, unknowns, values, xs, ranges) -> bool:
             return False
         r = bounds.get(s)
         if r is not None and not r[0] <= z.real <= r[1]:
+            return False
+    return True
+
+
+class _Keep:
+    """Whether a root found for one unknown can still give an admissible equilibrium: only a
+    root that is already a number at the nominal values is judged (picklable for the child)."""
+
+    def __init__(self, values, xs, ranges, unknowns):
+        self.values, self.xs, self.ranges, self.unknowns = values, xs, ranges, unknowns
+
+    def __call__(self, unknown, root) -> bool:
+        if root.has(*self.unknowns):
+            return True
+        return _admissible({unknown: root}, [unknown], self.values, self.xs, self.ranges)
+
+
+def _residual_small(equations, solution, values) -> bool:
+    """Each equation vanishes at the solution (nominal values): roots were found without
+    SymPy's own check, which costs seconds on trigonometric systems."""
+    for e in equations:
+        at = e.xreplace(solution).xreplace(values)
+        try:
+            r = complex(at.evalf(30))
+            size = max(abs(complex(t.evalf(30))) for t in sp.Add.make_args(at))
+        except (TypeError, ValueError):
+            return False
+        if not cmath.isfinite(r) or abs(r) > 1e-9 * max(1.0, size):
             return False
     return True
 

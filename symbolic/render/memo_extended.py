@@ -17,7 +17,14 @@ import numpy as np
 from ..model.results import Derivation
 from .mathtex import expr_latex
 from .mathvalues import latex_matrix, latex_number, own_math
-from .memo_math import closed_matrix_math, factored, matrix_math, metric_math, plain_text, poles_math
+from .memo_math import (
+    closed_matrix_math,
+    factored,
+    matrix_math,
+    metric_math,
+    plain_text,
+    poles_math,
+)
 
 __all__ = ["extended_sections", "memo_extended_sections"]
 

@@ -122,8 +122,11 @@ def memo_nonlinear(
                 "required": r.required,
                 "passed": r.passed,
                 "note": r.note,
+                "scale": scale,
             }
-            for r in study.reach
+            for r, scale in zip(
+                study.reach, study.scales or (None,) * len(study.reach), strict=True
+            )
         ],
         "figures": [],
     }
