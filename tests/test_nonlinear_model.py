@@ -314,3 +314,20 @@ def test_model_sections_and_rows_are_in_the_committed_memo():
     assert "## Validation on the nonlinear plant" in text
     assert "steps on the nonlinear plant" in text
     assert "recovery from an initial offset (nonlinear plant)" in text
+
+
+def test_a_moved_operating_point_is_a_changed_request():
+    from symbolic.analysis.revision_inputs import plant_differences, request_differences
+
+    text = (WORKED / "sensor_boom.toml").read_text()
+    old = parse_design(text, "a.toml")
+    new = parse_design(text.replace("angle_measured = 0.7", "angle_measured = 0.8"), "b.toml")
+    changed = {d.item: d for d in request_differences(old, new) if d.change == "changed"}
+    assert set(changed) == {"operating point angle_measured"}
+    assert (
+        changed["operating point angle_measured"].old,
+        changed["operating point angle_measured"].new,
+    ) == ("7/10", "4/5")
+    # and the linearisation moved with it: cos(7/10) became cos(4/5) in A
+    plant = [d.item for d in plant_differences(old.plant, new.plant) if d.change == "changed"]
+    assert plant == ["A[2,1]"]

@@ -178,9 +178,31 @@ def _requests(design) -> dict[str, tuple[object, str] | None]:
     out["sample_time"] = _plain(None if design.discrete is None else design.discrete.sample_time)
     for key in ("reference", "u_max", "horizon", "samples", "initial_state", "initial_estimate"):
         out[f"simulation {key}"] = _plain(getattr(s, key))
+    out.update(_model_requests(design))
     claims = design.claims
     for key in ("K", "L", "reference_gain", "tolerance"):
         out[f"claimed {key}"] = _plain(None if claims is None else getattr(claims, key))
+    return out
+
+
+def _model_requests(design) -> dict[str, tuple[object, str] | None]:
+    """A nonlinear ``[model]``'s operating point as fixed, its steps and required offsets."""
+    model = design.model
+    if model is None:
+        return {}
+    plant, point = design.plant, model.operating_point
+    out: dict[str, tuple[object, str] | None] = {}
+    for signals, values in (
+        (plant.states, point.states),
+        (plant.inputs, point.inputs),
+        (plant.outputs, point.outputs),
+    ):
+        for signal, value in zip(signals, values, strict=True):
+            if signal.name in point.given and f"operating point {signal.name}" not in out:
+                out[f"operating point {signal.name}"] = (value, str(value))
+    out["model steps"] = _plain(model.steps or None)
+    for signal, offset in zip(plant.states, model.required_offsets, strict=True):
+        out[f"required offset {signal.name}"] = _plain(offset)
     return out
 
 
