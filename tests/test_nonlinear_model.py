@@ -331,3 +331,18 @@ def test_a_moved_operating_point_is_a_changed_request():
     # and the linearisation moved with it: cos(7/10) became cos(4/5) in A
     plant = [d.item for d in plant_differences(old.plant, new.plant) if d.change == "changed"]
     assert plant == ["A[2,1]"]
+
+
+def test_json_operating_point_is_the_hand_equilibrium():
+    # holding still at angle θ* needs the torque kt·i* = m g l sin θ* and the voltage R i*
+    # (rate zero, so no back-EMF): the equilibrium by hand, with NumPy
+    from symbolic.render.report import derivation_json
+
+    d = derive(load_design(WORKED / "sensor_boom.toml"))
+    point = derivation_json(d)["operating_point"]
+    m, g, l_arm, kt, R = 2.5, 9.81, 0.4, 1.8, 2.0
+    current = m * g * l_arm * np.sin(0.7) / kt
+    assert point["fixed"] == ["angle_measured"] and point["closed_form"]
+    assert point["states"]["rate"]["value"] == 0.0
+    np.testing.assert_allclose(point["states"]["current"]["value"], current, rtol=1e-14)
+    np.testing.assert_allclose(point["inputs"]["voltage"]["value"], R * current, rtol=1e-14)

@@ -123,8 +123,34 @@ def derivation_json(d: Derivation) -> dict[str, Any]:
         "notes": list(d.notes),
     }
     out.update(_extensions_json(d))
+    if d.design.model is not None:
+        out["operating_point"] = operating_point_json(d.design)
     _shipped_observer_on_top(d, out)
     return out
+
+
+def operating_point_json(design) -> dict[str, Any]:
+    """A nonlinear ``[model]``'s equilibrium: each signal's value at the nominal parameters,
+    its exact form (a formula in Python syntax over the parameter names), and what was fixed."""
+    model, plant = design.model, design.plant
+    point = model.operating_point
+
+    def signals(sigs, values):
+        return {
+            s.name: {
+                "value": float(v.xreplace(design.values).evalf(17)),
+                "formula": str(v),
+            }
+            for s, v in zip(sigs, values, strict=True)
+        }
+
+    return {
+        "states": signals(plant.states, point.states),
+        "inputs": signals(plant.inputs, point.inputs),
+        "outputs": signals(plant.outputs, point.outputs),
+        "fixed": list(point.given),
+        "closed_form": point.closed_form,
+    }
 
 
 def _shipped_observer_on_top(d: Derivation, out: dict[str, Any]) -> None:
