@@ -286,7 +286,6 @@ PROSE_PATHS = (
     "reduced.pole_rule",
     "reduced.comparison",
     "digital.method",
-    "digital.equations.*",
     "digital.figures.*.caption",
     "digital.comparison.*.label",
     "claims.summary",
