@@ -95,8 +95,9 @@ def test_a_short_table_stays_on_one_page_and_a_long_one_keeps_its_ends():
 
 
 def test_every_table_row_of_the_latex_memo_ends_with_rowend():
-    """Inside every longtable, a row written in a loop ends with ``rowend(loop)``, and the
-    caption and the head end with ``\\\\*`` (no break between the head and the first row)."""
+    """Inside every longtable, a row written in a loop ends with ``rowend(loop)``, the
+    caption and the head end with ``\\\\*`` and close with ``\\endfirsthead`` (no break
+    between the caption, the head and the first row)."""
     for path in sorted(TEMPLATES.glob("memo_*.tex.j2")):
         text = path.read_text(encoding="utf-8")
         for table in re.findall(r"\\begin\{longtable\}.*?\\end\{longtable\}", text, re.S):
@@ -112,6 +113,8 @@ def test_every_table_row_of_the_latex_memo_ends_with_rowend():
             rows = [ln for ln in body.splitlines() if ln.rstrip().endswith("\\\\")]
             assert rows == [], (path.name, rows)
             assert "rowend(loop)" in body, path.name
+            # the caption, the rules and the head are one box that cannot break
+            assert r"\endfirsthead" in table, path.name
 
 
 # --------------------------------------------------------------------------------------
