@@ -212,10 +212,10 @@ def md_prose(pieces: Iterable[Mapping[str, Any]]) -> TrustedMarkdown:
 
     Examples
     --------
-    >>> md_prose([{"text": "from "}, {"code": ["sympy.", "diff"]}, {"text": " of K_1*"}])
-    'from sympy.diff of K\\_1\\*'
-    >>> md_prose([{"text": "gain "}, {"math": TrustedMarkdown("N")}, {"text": "."}])
-    'gain $N$.'
+    >>> md_prose([{"text": "from "}, {"code": ["sympy.", "diff"]}, {"text": " of K_1."}])
+    'from sympy.diff of K_1.'
+    >>> md_prose([{"text": "gain "}, {"math": TrustedMarkdown("N")}, {"text": " holds"}])
+    'gain $N$ holds'
     """
     out: list[str] = []
     space = False  # whether a space is owed before the next printed piece
@@ -247,6 +247,16 @@ def md_unit(parts: Iterable[Mapping[str, str]]) -> TrustedMarkdown:
     )
 
 
+def _markdown_math(latex: str) -> str:
+    """Our LaTeX math for GitHub's renderer: the line-break hints of narrow LaTeX table
+    cells (``\\allowbreak``) mean nothing there and are left out.
+
+    >>> _markdown_math(r"{-2},\\allowbreak\\; {-3}")
+    '{-2},\\\\; {-3}'
+    """
+    return latex.replace("\\allowbreak", "")
+
+
 #: The Markdown memo (GitHub-flavoured, math in ``$...$``).
 MARKDOWN = Format(
     name="md",
@@ -257,6 +267,7 @@ MARKDOWN = Format(
     layout=_MarkdownLayout,
     missing=MISSING_VALUE,
     filters={"md_number": md_number, "md_prose": md_prose, "md_unit": md_unit},
+    math=_markdown_math,
 )
 
 #: Every output format of the memo, in the order the memo renders and writes them.
