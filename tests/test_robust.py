@@ -505,7 +505,7 @@ def test_memo_context_and_figures(bearing):
     ctx, figures = memo_robustness(bearing, 5, budget=0)
     assert _plain(ctx)
     assert ctx["all_stable"] is False and ctx["unstable_count"] >= 1
-    assert ctx["margins"]["headers"] == ["quantity", "state feedback", "observer-based"]
+    assert ctx["margins"]["headers"] == ["Quantity", "State feedback", "Observer-based"]
     assert ctx["routh_hurwitz_conditions"] and ctx["caution"]
     stems = {f["stem"] for f in ctx["figures"]}
     assert stems == {

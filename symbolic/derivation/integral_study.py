@@ -267,12 +267,12 @@ def _disturbance(design, loops: dict, nominal, r: float, time, t_d: float, distu
         disturbance = DISTURBANCE_FRACTION * peak if peak > 0 else DISTURBANCE_FRACTION
         rule = (
             f"step input disturbance of {disturbance:.4g} on input"
-            f" '{design.plant.inputs[0].name}' at t = {t_d:.4g}: {DISTURBANCE_FRACTION:g} times"
+            f" {design.plant.inputs[0].name} at t = {t_d:.4g} s: {DISTURBANCE_FRACTION:g} times"
             " the largest input the reference-gain loop uses for the reference step (common"
             " practice, no source)"
         )
     else:
-        rule = f"step input disturbance of {disturbance:.4g} at t = {t_d:.4g} (given)"
+        rule = f"step input disturbance of {disturbance:.4g} at t = {t_d:.4g} s (given)"
     return disturbance, rule
 
 

@@ -155,6 +155,14 @@ def format_claims(report: ClaimReport, derivation: Derivation) -> str:
     return "\n".join(out)
 
 
+#: How the memo names each claimed gain (its design-file key is ``name``).
+_CLAIM_LABELS = {
+    "K": "gain $K$",
+    "L": "observer gain $L$",
+    "reference_gain": "reference gain $N$",
+}
+
+
 def memo_claims(derivation: Derivation, claims: Claims) -> dict[str, Any]:
     """Context of the memo's "hand calculation check" section (formatted, not re-derived)."""
     report = check_claims(derivation, claims)
@@ -163,6 +171,7 @@ def memo_claims(derivation: Derivation, claims: Claims) -> dict[str, Any]:
         rows.append(
             {
                 "name": v.name,
+                "label": own_math(_CLAIM_LABELS.get(v.name, "")),
                 "claimed": own_math(latex_matrix(np.atleast_2d(v.claimed), 6)),
                 "derived": own_math(latex_matrix(np.atleast_2d(v.derived), 6))
                 if v.derived is not None and np.all(np.isfinite(v.derived))

@@ -11,7 +11,8 @@ from __future__ import annotations
 
 from ..analysis.pole_comparison import ComparedLoop, pole_comparison
 from ..model.results import Derivation, OptimalPoles
-from .mathvalues import latex_matrix, latex_number, own_math
+from .mathtex import pole_latex
+from .mathvalues import OwnMath, latex_matrix, latex_number, own_math
 from .memo_math import metric_math, poles_math
 
 __all__ = ["optimal_context"]
@@ -63,13 +64,19 @@ def _margin_cells(loop: ComparedLoop) -> tuple:
     return down, up, metric_math(m.phase_margin_deg, 3)
 
 
+def _cell_poles(poles) -> OwnMath:
+    """Poles for a narrow table cell: each pole one unbreakable group, a line break allowed
+    only after the comma between two poles (never inside ``-26.66 + 20.92j``)."""
+    return own_math(",\\allowbreak\\; ".join("{" + pole_latex(z, 4) + "}" for z in poles))
+
+
 def _rows(loops: list[ComparedLoop], band: float, unit: str) -> list[dict]:
     """One row per figure, one cell per loop."""
     u = f" [{unit}]" if unit else ""
     margins = [_margin_cells(loop) for loop in loops]
     rows = [
-        ("controller poles", [poles_math(loop.controller_poles) for loop in loops]),
-        ("observer poles", [poles_math(loop.observer_poles) for loop in loops]),
+        ("controller poles", [_cell_poles(loop.controller_poles) for loop in loops]),
+        ("observer poles", [_cell_poles(loop.observer_poles) for loop in loops]),
         ("peak input, matched estimate" + u, [metric_math(loop.peak_input) for loop in loops]),
         (
             "peak input, mismatched estimate" + u,

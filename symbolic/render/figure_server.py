@@ -48,7 +48,8 @@ __all__ = [
     "stop_server",
 ]
 
-#: Workers of the figure server: one per core, at most this many (a memo has 9 to 12 figures).
+#: Workers of the figure server: one per core, at most this many (a worked memo has 10 to 14
+#: figures).
 SERVER_WORKERS = 4
 
 _server: dict[str, Any] = {"conns": None, "process": None, "owner": None}

@@ -200,6 +200,63 @@ LATEX = Format(
     },
 )
 
+
+def md_prose(pieces: Iterable[Mapping[str, Any]]) -> TrustedMarkdown:
+    """The pieces of one prose string (:func:`symbolic.render.memo_prose.prose`) as one
+    Markdown value: text and code names escaped piece by piece, math in ``$...$``.
+
+    The escaper trims the ends of what it escapes (a value may start a line), so a space
+    that stood between two pieces is put back once, between them; the ends of the whole
+    string stay trimmed.  Each piece is escaped as a value whose neighbours are unknown,
+    so no construct can form across two pieces.
+
+    Examples
+    --------
+    >>> md_prose([{"text": "from "}, {"code": ["sympy.", "diff"]}, {"text": " of K_1."}])
+    'from sympy.diff of K_1.'
+    >>> md_prose([{"text": "gain "}, {"math": TrustedMarkdown("N")}, {"text": " holds"}])
+    'gain $N$ holds'
+    """
+    out: list[str] = []
+    space = False  # whether a space is owed before the next printed piece
+    for p in pieces:
+        if "math" in p:
+            raw, text = "x", "$" + str(p["math"]) + "$"
+        else:
+            raw = "".join(p["code"]) if "code" in p else str(p["text"])
+            text = escape_markdown(raw)
+        space = space or raw[:1].isspace()
+        if text:
+            out.append(" " + text if space and out else text)
+            space = False
+        space = space or raw[-1:].isspace()
+    return TrustedMarkdown("".join(out))
+
+
+def md_unit(parts: Iterable[Mapping[str, str]]) -> TrustedMarkdown:
+    """A unit's factors (:func:`symbolic.render.memo_design.unit_parts`) as one Markdown
+    value: each base escaped, its Unicode superscript after it, ``·`` between factors.
+
+    Examples
+    --------
+    >>> md_unit([{"base": "kg", "superscript": ""}, {"base": "m", "superscript": "²"}])
+    'kg·m²'
+    """
+    return TrustedMarkdown(
+        "·".join(escape_markdown(p["base"]) + p.get("superscript", "") for p in parts)
+    )
+
+
+def _markdown_math(latex: str) -> str:
+    """Our LaTeX math for GitHub's renderer: the line-break hints of narrow LaTeX table
+    cells (``\\allowbreak``) mean nothing there and are left out.
+
+    >>> _markdown_math(r"{-2},\\allowbreak\\; {-3}")
+    '{-2},\\\\; {-3}'
+    """
+    return latex.replace("\\allowbreak", "")
+
+
 #: The Markdown memo (GitHub-flavoured, math in ``$...$``).
 MARKDOWN = Format(
     name="md",
@@ -209,7 +266,8 @@ MARKDOWN = Format(
     trusted=TrustedMarkdown,
     layout=_MarkdownLayout,
     missing=MISSING_VALUE,
-    filters={"md_number": md_number},
+    filters={"md_number": md_number, "md_prose": md_prose, "md_unit": md_unit},
+    math=_markdown_math,
 )
 
 #: Every output format of the memo, in the order the memo renders and writes them.

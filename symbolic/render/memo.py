@@ -20,10 +20,12 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
 
+from ..model.numbers import format_pole
 from ..model.results import Derivation
 from ..runtime.errors import RenderError
 from .comparison_memo import optimal_context
 from .formats import FORMATS, LATEX, MARKDOWN, render_template
+from .mathtex import pole_latex, symbol_latex
 from .mathvalues import own_math
 from .memo_design import front_matter, plant_context, poles_context
 from .memo_extended import extended_sections, memo_extended_sections
@@ -228,8 +230,25 @@ def memo_robustness_section(d: Derivation) -> tuple[dict | None, dict[str, bytes
     ctx["routh_appendix"] = [line for c in conditions if len(c["lines"]) > 1 for line in c["lines"]]
     ctx["routh_in_appendix"] = [c["name_latex"] for c in conditions if len(c["lines"]) > 1]
     ctx["routh_polynomial"] = own_math(ctx.pop("routh_polynomial_latex"))
-    for row, label in zip(ctx["sensitivity_rows"], ctx.pop("sensitivity_gains_latex"), strict=True):
-        row[0] = own_math(f"${label}$")  # the gain's label (symbolic.model.labels), typeset
+    pole = complex(*ctx["least_stable_parts"])  # the member of its pair above the real axis
+    ctx["least_stable_math"] = own_math(pole_latex(pole, 4))
+    ctx["least_stable_pair"] = "j" in format_pole(pole, 4)
+    parameters = ctx["sensitivity_headers"][1:]
+    ctx["sensitivity_heads"] = [
+        own_math("Gain"),
+        *(own_math(f"${symbol_latex(p)}$") for p in parameters),
+    ]
+    ctx["sensitivity_table"] = [
+        {
+            "label": own_math(f"${label}$"),  # the gain's label (symbolic.model.labels)
+            "values": [ctx["sensitivities"][row[0]][p] for p in parameters],
+        }
+        for row, label in zip(
+            ctx["sensitivity_rows"], ctx.pop("sensitivity_gains_latex"), strict=True
+        )
+    ]
+    for row, table_row in zip(ctx["sensitivity_rows"], ctx["sensitivity_table"], strict=True):
+        row[0] = table_row["label"]
     ctx["sensitivity_colspec"] = own_math(
         "@{}l" + "r" * (len(ctx["sensitivity_headers"]) - 1) + "@{}"
     )

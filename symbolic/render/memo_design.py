@@ -264,10 +264,19 @@ def poles_context(d: Derivation) -> dict:
         "observer_poles": poles_math(obs.values),
         "controller_rule": ctrl.rule,
         "observer_rule": obs.rule,
-        "controller_polynomial": own_math("\\alpha_c(s) = " + polynomial_latex(ctrl.coefficients)),
-        "observer_polynomial": own_math("\\alpha_o(s) = " + polynomial_latex(obs.coefficients)),
+        "controller_polynomial": own_math(_desired("\\alpha_c(s)", ctrl.coefficients)),
+        "observer_polynomial": own_math(_desired("\\alpha_o(s)", obs.coefficients)),
         "speed_ratio": own_math(latex_number(slow_o / slow_c, 3)),
     }
+
+
+def _desired(name: str, coefficients) -> str:
+    """A desired polynomial, exact; or, when an exact coefficient runs past 12 digits (the
+    rationals of poles given to many figures), ``≈`` it to 8 significant figures."""
+    exact = polynomial_latex(coefficients)
+    if max((len(t) for t in re.findall(r"\d+", exact)), default=0) <= 12:
+        return f"{name} = {exact}"
+    return f"{name} \\approx " + polynomial_latex([float(c) for c in coefficients], digits=8)
 
 
 def _spec_rows(d: Derivation) -> list[dict]:

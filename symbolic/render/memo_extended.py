@@ -17,6 +17,7 @@ import numpy as np
 from ..model.results import Derivation
 from .mathtex import expr_latex
 from .mathvalues import latex_matrix, latex_number, own_math
+from .memo_design import unit_parts
 from .memo_math import (
     closed_matrix_math,
     factored,
@@ -93,19 +94,12 @@ def _integral_section(d: Derivation, makers: Makers) -> dict:
             r"\det \mathcal{C}_a = " + expr_latex(factored(ia.controllability_determinant))
         ),
         "conditions": [plain_text(c) for c in ia.conditions],
+        "reference": own_math(latex_number(study.reference, 4)),
+        "error_unit": _tracked_unit(d),
         "disturbance_rule": plain_text(study.disturbance_rule),
         "mismatch_rule": plain_text(study.mismatch_rule),
         "anti_windup_rule": plain_text(study.anti_windup_rule) if study.windup else None,
-        "runs": [
-            {
-                "loop": r.loop,
-                "plant": r.plant_description,
-                "before": metric_math(r.error_before, 3),
-                "after": metric_math(r.error_after, 3),
-                "overshoot": metric_math(r.overshoot_percent, 3),
-            }
-            for r in study.runs
-        ],
+        "runs": _integral_runs(study),
         "windup": None
         if not study.windup
         else [
@@ -117,6 +111,29 @@ def _integral_section(d: Derivation, makers: Makers) -> dict:
         ],
         "notes": [plain_text(n) for n in study.notes],
     }
+
+
+def _tracked_unit(d: Derivation) -> list[dict] | None:
+    """The unit of the output integral action tracks, as factors (None when it has none)."""
+    unit = d.design.plant.outputs[d.integral.tracked_index].unit
+    return unit_parts(unit) if unit else None
+
+
+def _integral_runs(study) -> list[dict]:
+    """The rows of the disturbance table; an error that is 0 at the printed precision of
+    the table (the reference step and the largest error set its scale) prints as 0."""
+    errors = [abs(e) for r in study.runs for e in (r.error_before, r.error_after) if e is not None]
+    scale = max([abs(study.reference), *errors])
+    return [
+        {
+            "loop": r.loop,
+            "plant": r.plant_description,
+            "before": metric_math(r.error_before, 3, scale),
+            "after": metric_math(r.error_after, 3, scale),
+            "overshoot": metric_math(r.overshoot_percent, 3),
+        }
+        for r in study.runs
+    ]
 
 
 def _integral_figures(d: Derivation, study, makers: Makers) -> list[dict]:
@@ -210,12 +227,72 @@ def _digital_section(d: Derivation, makers: Makers) -> dict:
     dc = d.discrete
     section = _digital_design(dc)
     sampled = sampled_data_study(d, dc, form=dc.default_form)
+    reference = abs(float(d.design.simulation.reference))
+    plant = d.design.plant
+    units = {
+        "peak input": plant.inputs[0].unit,
+        "steady-state error": plant.outputs[dc.tracked_index].unit,
+    }
     section["comparison"] = [
-        {"label": label, "continuous": metric_math(a), "sampled": metric_math(b)}
+        {
+            "label": f"{label} [{units[label]}]" if units.get(label) else label,
+            "continuous": metric_math(a, 4, _row_scale(label, a, b, reference)),
+            "sampled": metric_math(b, 4, _row_scale(label, a, b, reference)),
+        }
         for label, a, b in sampled.comparison()
     ]
     section["figures"] = _digital_figures(d, sampled, makers)
     return section
+
+
+def _row_scale(label: str, a: float | None, b: float | None, reference: float) -> float:
+    """The scale a row of the continuous-against-sampled table is printed at: its larger
+    entry, and for the steady-state error the reference step it is an error of."""
+    entries = [abs(x) for x in (a, b) if x is not None]
+    if label.startswith("steady-state error"):
+        entries.append(reference)
+    return max(entries, default=0.0)
+
+
+#: The difference equations of each observer form, typeset (the same equations as the
+#: ``description`` of :class:`symbolic.derivation.difference_equations.DifferenceEquations`,
+#: which the generated code carries as comments).
+_FORM_EQUATIONS = {
+    "current": (
+        "current estimator",
+        r"\hat x[k] = \bar x[k] + L_c\,\bigl(y[k] - C\bar x[k] - D u[k]\bigr)",
+        r"\bar x[k+1] = \Phi\hat x[k] + \Gamma u[k]",
+    ),
+    "predictor": (
+        "predictor observer",
+        r"\hat x[k+1] = (\Phi - L_p C)\,\hat x[k] + (\Gamma - L_p D)\,u[k] + L_p y[k]",
+    ),
+    "reduced": (
+        "reduced-order observer",
+        r"\hat x[k] = T^{-1}\begin{bmatrix} \bar y[k] \\ \eta[k] + L_r \bar y[k] \end{bmatrix},"
+        r" \quad \bar y[k] = y[k] - D u[k]",
+        r"\eta[k+1] = \hat A \eta[k] + \hat B \bar y[k] + \hat F u[k]",
+    ),
+}
+
+
+def _equations(dc) -> list[dict]:
+    """The difference equations of each observer form of the digital controller, as
+    display math: the estimate, the control law, the state update and the integrator."""
+    integral = dc.integral is not None
+    law = (
+        r"u[k] = -K_d \hat x[k] - k_{i,d}\, x_I[k]"
+        if integral
+        else r"u[k] = -K_d \hat x[k] + N_d\, r[k]"
+    )
+    out = []
+    for form in dc.equations:
+        name, *lines = _FORM_EQUATIONS[form]
+        lines = [lines[0], law, *lines[1:]] if form != "predictor" else [law, *lines]
+        if integral:
+            lines.append(r"x_I[k+1] = x_I[k] + T\,\bigl(y_t[k] - r[k]\bigr)")
+        out.append({"name": name, "lines": [own_math(x) for x in lines]})
+    return out
 
 
 def _digital_design(dc) -> dict:
@@ -239,7 +316,7 @@ def _digital_design(dc) -> dict:
         "lag": None
         if dc.hold_phase_lag is None
         else own_math(latex_number(float(np.degrees(dc.hold_phase_lag)), 3)),
-        "equations": [plain_text(eq.description) for eq in dc.equations.values()],
+        "equations": _equations(dc),
         "method": plain_text(dc.method),
         "integral": None
         if dc.integral is None

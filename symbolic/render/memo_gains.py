@@ -153,14 +153,25 @@ def _compensator_shape(degree: int, n: int) -> OwnMath:
 
 
 def _factored_lines(poly: sp.Expr) -> str:
-    """The factored polynomial on one line, or one factor a line when that is too wide."""
+    """``= `` the factored polynomial on one line, or ``≈`` its monic factors, one a line,
+    when that is too wide."""
     one_line = sp.latex(sp.factor(poly))
     if printed_width(one_line) <= LONG - 14:
-        return one_line
-    constant, factors = sp.factor_list(poly)
-    pieces = [] if constant == 1 else [sp.latex(constant)]
-    pieces += [f"\\left({sp.latex(f)}\\right)" + (f"^{{{m}}}" if m > 1 else "") for f, m in factors]
-    return "\\begin{aligned}[t] &" + " \\\\ &\\cdot ".join(pieces) + " \\end{aligned}"
+        return "= " + one_line
+    # too wide: the factors made monic (the polynomial is monic, so no constant is left)
+    # and their coefficients to 8 significant figures, which a reader can compare with the
+    # poles; the exact polynomial is the one the verification checks compare.
+    _constant, factors = sp.factor_list(poly)
+    s = poly.free_symbols.pop() if poly.free_symbols else sp.Symbol("s")
+    pieces = []
+    for f, m in factors:
+        monic = sp.Poly(f, s).monic()
+        coeffs = [float(c) for c in monic.all_coeffs()]
+        body = polynomial_latex(coeffs, s.name, digits=8)
+        pieces.append(f"\\left({body}\\right)" + (f"^{{{m}}}" if m > 1 else ""))
+    if printed_width("".join(pieces)) <= LONG - 14:
+        return "\\approx " + "".join(pieces)
+    return "\\approx \\begin{aligned}[t] &" + " \\\\ &\\cdot ".join(pieces) + " \\end{aligned}"
 
 
 def verification_context(d: Derivation) -> dict:
@@ -171,7 +182,7 @@ def verification_context(d: Derivation) -> dict:
     if sep.charpoly is not None:
         s = sp.Symbol("s")
         poly = sp.Add(*[c * s ** (2 * n - i) for i, c in enumerate(sep.charpoly)])
-        sep_poly = own_math("\\det(sI - M) = " + _factored_lines(poly))
+        sep_poly = own_math("\\det(sI - M) " + _factored_lines(poly))
     return {
         # the loop matrix of order 2n: in the body up to 6x6, in the appendix up to 8x8
         "separated_matrix": own_math(latex_matrix(sep.value, 4)) if 2 * n <= 6 else None,

@@ -76,9 +76,10 @@ def poles_math(values: np.ndarray) -> OwnMath:
     return own_math(poles_latex(values, 4))
 
 
-def metric_math(x: float | None, digits: int = 4) -> OwnMath:
-    """A metric to `digits` figures, or a dash when it does not exist."""
-    return own_math("\\text{--}" if x is None else latex_number(x, digits))
+def metric_math(x: float | None, digits: int = 4, scale: float | None = None) -> OwnMath:
+    """A metric to `digits` figures, or a dash when it does not exist; with a `scale` (the
+    size of its table), 0 where it is 0 at that precision (round-off of an exact zero)."""
+    return own_math("\\text{--}" if x is None else latex_number(x, digits, scale))
 
 
 def split_lines(labelled: list[tuple[str, list[str]]]) -> tuple[list[OwnMath], list[OwnMath]]:

@@ -290,7 +290,6 @@ PROSE_PATHS = (
     "reduced.pole_rule",
     "reduced.comparison",
     "digital.method",
-    "digital.equations.*",
     "digital.figures.*.caption",
     "digital.comparison.*.label",
     "claims.summary",

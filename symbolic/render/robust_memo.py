@@ -69,6 +69,10 @@ def memo_robustness(
         "worst_damping_ratio": m.worst_damping_ratio,
         "worst_damping_at": point_text(m.worst_damping_at, m.grid.varied),
         "least_stable_pole": pair_text(m.least_stable_pole),
+        "least_stable_parts": [
+            float(complex(m.least_stable_pole).real),
+            abs(float(complex(m.least_stable_pole).imag)),
+        ],
         "least_stable_at": point_text(m.least_stable_at, m.grid.varied),
         "stability_changes": [c.text() for c in m.changes],
         "routh_hurwitz": _statements(r.stability),
@@ -175,7 +179,7 @@ def _bode_caption(loops) -> str:
 def _margins_context(r: RobustnessReport) -> dict:
     """The side-by-side margins table of both loops, with their numbers and definitions."""
     return {
-        "headers": ["quantity", "state feedback", "observer-based"],
+        "headers": ["Quantity", "State feedback", "Observer-based"],
         "rows": _margin_rows(r),
         "state_feedback": margin_json(r.margins.state_feedback),
         "observer_based": margin_json(r.margins.observer_based),
@@ -266,7 +270,17 @@ def _statements(stability: StateFeedbackStability) -> list[str]:
     listed in the mismatch part, and the conditions, typeset apart), and without the
     closed-form header (the template says it in its own words)."""
     statements = [line for line in stability.lines if not line.startswith("  ")]
-    return statements[1:] if stability.conditions is not None else statements
+    statements = statements[1:] if stability.conditions is not None else statements
+    return [_sentence(line) for line in statements]
+
+
+def _sentence(line: str) -> str:
+    """A statement as a sentence of the memo: a capital first letter and a full stop; a
+    statement whose detail lines were left out points to where they are."""
+    text = line[:1].upper() + line[1:]
+    if text.endswith(":"):
+        return text[:-1] + " (the points are listed under the parameter mismatch above)."
+    return text if text.endswith(".") else text + "."
 
 
 def _sensitivity_rows(table: SensitivityTable) -> list[list[str]]:

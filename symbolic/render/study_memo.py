@@ -33,7 +33,9 @@ _SPEED_STUDY_TEXT = (
     "The observer poles of the shipped controller were set to a factor times the controller"
     " poles, from 0.5 to 10, the controller rebuilt numerically, and the mismatched-estimate"
     " case simulated for each. A slow observer lets the estimation error"
-    " dominate the response; a fast one costs input amplitude (and noise sensitivity, not modelled)."
+    " dominate the response; a fast one costs input amplitude, and passes more measurement"
+    " noise to the input (not swept here; the shipped loop's gain from measurement noise to"
+    " the input is given with its loop shapes)."
 )
 
 
