@@ -85,8 +85,8 @@ def field_matrix(M, K, fixed: dict, key: str) -> DomainMatrix:
                 # e.g. an irrational constant such as cos(7/10) (a linearisation's entry):
                 # not an element of the rational function field over QQ
                 raise NotCovered(
-                    f"{key}[{i}][{j}] holds an irrational constant (a sine or cosine of the"
-                    " operating point, say), which is not a rational function over the rationals"
+                    f"{key}[{i}][{j}] holds an irrational constant, such as the cosine of an"
+                    " operating-point angle, which is not a rational function over the rationals"
                 ) from exc
         rows.append(row)
     return DomainMatrix(rows, (M.rows, M.cols), K)
