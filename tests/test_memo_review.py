@@ -172,3 +172,16 @@ def test_worked_markdown_has_no_word_glued_to_a_code_name(path):
     md = (WORKED / f"{path.stem}.md").read_text(encoding="utf-8")
     assert "fromsympy" not in md and "diffof" not in md
     assert "from sympy.diff of" in md
+
+
+def test_numbers_in_prose_are_typeset_as_math():
+    # e-notation, a negative number and a complex pole written by the analysis in words
+    # become math: 3.8 × 10⁻⁵, a true minus sign, −60 ± 45j; a plain positive decimal and
+    # a range such as "10-90 %" stay text
+    from symbolic.render.memo_prose import prose
+
+    pieces = prose("within 3.8e-05 of -60±45j, -150 and 10-90 % after 1.5 s")
+    math = [p["math"] for p in pieces if "math" in p]
+    assert math == ["3.8 \\times 10^{-5}", "-60 \\pm 45j", "-150"]
+    text = "".join(p.get("text", "") for p in pieces)
+    assert "10-90 % after 1.5 s" in text

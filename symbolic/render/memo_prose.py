@@ -215,6 +215,46 @@ def _pieces_of_text(text: str, names: frozenset[str]) -> list[dict]:
     return pieces
 
 
+#: A number in e-notation (``3.8e-05``, ``9.02e+08``), a negative number (``-150``) or a
+#: complex number written ``-60±45j`` / ``-2.5+1j`` in words the derivation or the analysis
+#: wrote: typeset as math.
+_NUMBER = re.compile(
+    r"(?<![\w.])(?P<re>[-−]?\d+(?:\.\d+)?(?:e[-+−]?\d+)?)"
+    r"(?:(?P<sign>[±+\-−])(?P<im>\d+(?:\.\d+)?(?:e[-+−]?\d+)?)j)?(?![\w.])"
+)
+
+
+def _number_latex(text: str) -> str:
+    """``3.8\\times 10^{-5}`` for ``3.8e-05``; plain digits stay as they are."""
+    text = text.replace("−", "-")
+    if "e" not in text:
+        return text
+    mantissa, exponent = text.split("e")
+    power = f"10^{{{int(exponent)}}}"
+    if mantissa in ("1", "-1"):
+        return power if mantissa == "1" else f"-{power}"
+    return f"{mantissa} \\times {power}"
+
+
+def _with_numbers(text: str, names: frozenset[str]) -> list[dict]:
+    """Plain text with its e-notation and complex numbers as math, the rest as before."""
+    pieces: list[dict] = []
+    position = 0
+    for m in _NUMBER.finditer(text):
+        plain = m.group("sign") is None and "e" not in m.group("re")
+        if plain and m.group("re")[0] not in "-−":
+            continue  # a plain positive decimal reads well as text (a negative one needs
+            # the minus sign of math, not a hyphen)
+        pieces += _pieces_of_text(text[position : m.start()], names)
+        latex = _number_latex(m.group("re"))
+        if m.group("sign") is not None:
+            sign = {"±": "\\pm", "+": "+"}.get(m.group("sign"), "-")
+            latex = f"{latex} {sign} {_number_latex(m.group('im'))}j"
+        pieces.append({"math": own_math(latex)})
+        position = m.end()
+    return pieces + _pieces_of_text(text[position:], names)
+
+
 def prose(text: str, names: frozenset[str] = DESIGN_KEYS) -> list[dict]:
     """`text` cut into pieces of plain text, math (:data:`FORMULAS`, symbols) and code.
 
@@ -228,10 +268,10 @@ def prose(text: str, names: frozenset[str] = DESIGN_KEYS) -> list[dict]:
     pieces: list[dict] = []
     position = 0
     for m in _FORMULA_PATTERN.finditer(text):
-        pieces += _pieces_of_text(text[position : m.start()], names)
+        pieces += _with_numbers(text[position : m.start()], names)
         pieces.append({"math": own_math(FORMULAS[m.group()])})
         position = m.end()
-    pieces += _pieces_of_text(text[position:], names)
+    pieces += _with_numbers(text[position:], names)
     return pieces
 
 
