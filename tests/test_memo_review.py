@@ -185,3 +185,26 @@ def test_numbers_in_prose_are_typeset_as_math():
     assert math == ["3.8 \\times 10^{-5}", "-60 \\pm 45j", "-150"]
     text = "".join(p.get("text", "") for p in pieces)
     assert "10-90 % after 1.5 s" in text
+
+
+def test_no_backslash_before_a_full_stop_or_bracket_right_after_math():
+    # "\A[.)]" is escaped lest digits written before it make a list marker ("1." or
+    # "1)"); after $...$ no marker can form, and GitHub's renderer agrees
+    import cmarkgfm
+
+    from symbolic.render.formats import TrustedMarkdown, md_prose
+
+    line = md_prose(
+        [
+            {"text": "gain "},
+            {"math": TrustedMarkdown("N")},
+            {"text": ". Next (x"},
+            {"math": TrustedMarkdown("y")},
+            {"text": ")"},
+        ]
+    )
+    assert line == "gain $N$. Next (x$y$)"  # no space was written between "(x" and the math
+    html = cmarkgfm.github_flavored_markdown_to_html(line)
+    assert html.startswith("<p>") and "<ol" not in html and "\\" not in html
+    # where a digit does come first, the escape stays
+    assert md_prose([{"text": "1"}, {"text": ". Next"}]) == "1\\. Next"

@@ -219,12 +219,18 @@ def md_prose(pieces: Iterable[Mapping[str, Any]]) -> TrustedMarkdown:
     """
     out: list[str] = []
     space = False  # whether a space is owed before the next printed piece
+    after_math = False
     for p in pieces:
         if "math" in p:
             raw, text = "x", "$" + str(p["math"]) + "$"
         else:
             raw = "".join(p["code"]) if "code" in p else str(p["text"])
             text = escape_markdown(raw)
+            if after_math and not raw[:1].isspace() and text[:2] in ("\\.", "\\)"):
+                # a value starting with . or ) is escaped lest digits written before it
+                # make an ordered-list marker (1. or 1)); right after $...$ none can
+                text = text[1:]
+        after_math = "math" in p
         space = space or raw[:1].isspace()
         if text:
             out.append(" " + text if space and out else text)
