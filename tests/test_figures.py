@@ -338,3 +338,53 @@ def test_captions_describe_only_what_is_drawn(focus):
     assert "no limited run is drawn" in captions["control"]
     assert "zero to rounding" in captions["estimation-error"]
     assert "no finite zeros" in ctx["pole_map_caption"]
+
+
+def _inset_case(controller, observer, plant):
+    figure = fig.pole_map_figure(
+        np.asarray(controller, dtype=complex),
+        np.asarray(observer, dtype=complex),
+        None,
+        np.asarray(plant, dtype=complex),
+        np.array([], dtype=complex),
+    )
+    figure.canvas.draw()
+    return figure
+
+
+def test_crowded_poles_at_the_origin_get_an_inset_that_hides_no_pole():
+    # the camera pan axis: observer poles near −2000, the plant's poles at 0 and −3 and the
+    # controller's near −26: at the main scale the last four sit on one spot
+    controller, observer = [-26 + 20j, -26 - 20j, -2160], [-2160, -180 + 180j, -180 - 180j]
+    plant = [0.0, -3.0, -2160.0]
+    figure = _inset_case(controller, observer, plant)
+    (main,) = figure.axes
+    (box,) = main.child_axes  # the inset
+    renderer = figure.canvas.get_renderer()
+    covered = box.get_tightbbox(renderer)  # the inset with its tick labels, in pixels
+    every = np.array(controller + observer + plant, dtype=complex)
+    points = main.transData.transform(np.column_stack([every.real, every.imag]))
+    hidden = [p for p, (x, y) in zip(every, points, strict=True) if covered.contains(x, y)]
+    assert hidden == []
+    # the inset's view holds the crowded poles, apart from each other
+    (x0, x1), (y0, y1) = box.get_xlim(), box.get_ylim()
+    near = every[np.abs(every) < 100]
+    assert all(x0 <= z.real <= x1 and y0 <= z.imag <= y1 for z in near)
+    # and the caption says so, from the same rule
+    assert fig.pole_map_inset(controller, observer, plant) is not None
+
+
+def test_poles_that_read_apart_get_no_inset():
+    # the same poles scaled so that nothing crowds: one axes only, and no inset in the caption
+    figure = _inset_case(
+        [-26 + 20j, -26 - 20j, -60], [-90, -80 + 30j, -80 - 30j], [0.0, -30.0, -60]
+    )
+    assert len(figure.axes) == 1 and not figure.axes[0].child_axes
+    assert (
+        fig.pole_map_inset(
+            [-26 + 20j, -26 - 20j, -60], [-90, -80 + 30j, -80 - 30j], [0.0, -30.0, -60]
+        )
+        is None
+    )
+    # a repeated pole is one marker at every scale: no inset for it alone
+    assert fig.pole_map_inset([-150 + 50j, -150 - 50j], [-300, -310], [0.0, 1e-12]) is None

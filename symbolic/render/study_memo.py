@@ -378,6 +378,13 @@ def _pole_map_caption(d: Derivation, s: SimulationStudy) -> str:
         )
     elif not shown.size:
         text += " The plant has no finite zeros."
+    inset = fig.pole_map_inset(ctrl.controller_poles, ctrl.observer_poles, plant)
+    if inset is not None:
+        where = "upper" if inset[1][1] > 0.5 else "lower"
+        text += (
+            f" The inset ({where} left) enlarges the poles near the origin, out to"
+            f" |s| = {inset[0]:.3g} 1/s; a grey box on the map marks its view."
+        )
     return text
 
 
