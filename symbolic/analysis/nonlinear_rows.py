@@ -2,7 +2,7 @@
 
 A design written as a ``[model]`` gets a row for the reference steps on the nonlinear plant
 and, when ``[model.required_offsets]`` names offsets, one for the recovery from them.  A
-controller the study could not run (digital, or an output that depends on the input) gets a
+controller the study could not run (an output that depends on the input) gets a
 failing row saying so: a verdict never passes on a check that was not made.
 """
 
@@ -85,8 +85,8 @@ def nonlinear_rows(d, study: NonlinearStudy | None) -> list[dict]:
                     f"{r.state} returns only from ±{_g(r.reach, 3)}{_unit(r.unit)}" for r in short
                 ),
                 basis=(
-                    "largest offset along each state axis from which the simulated loop returns"
-                    " (bisection, confirmed at ¼, ½ and ¾ of it; an estimate, not a proof)"
+                    "along each state axis, " + study.reach_method + " (an estimate from"
+                    " simulations, not a proof)"
                 ),
                 source="[model.required_offsets]",
             )

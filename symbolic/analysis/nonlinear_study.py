@@ -3,7 +3,8 @@
 A design written as a ``[model]`` is designed on its linearisation at the operating point
 ``(x*, u*, y*)``; this module runs the controller that is shipped (observer, reference gain or
 integral action, the input limit of ``[simulation] u_max``) on the nonlinear equations
-themselves, with ``scipy.integrate.solve_ivp``:
+themselves, with ``scipy.integrate.solve_ivp`` (a digital controller at its samples, the
+plant between them by :mod:`symbolic.analysis.nonlinear_digital`):
 
 * **steps**: reference steps of the sizes ``[model] steps`` lists (default: ¼, ½, 1 and 2
   times ``[simulation] reference``), each from rest at the operating point, beside the linear
@@ -31,13 +32,12 @@ independent stop, under the applicable standards, local codes and licensed pract
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
-import sympy as sp
 
 from ..verification.shipped import ShippedController, initial_controller_state
 from ..verification.shipped_simulation import simulate_controller
+from .nonlinear_digital import GRID, digital_side, digital_steps, substep_count
+from .nonlinear_loop import AxisReach, NonlinearLoop, NonlinearStep, NonlinearStudy
 
 __all__ = [
     "AxisReach",
@@ -57,99 +57,25 @@ BISECTIONS = 8
 CONFIRM = (0.25, 0.5, 0.75)
 #: A run is stopped as divergent past this many times a state's scale.
 BLOW_UP = 1e6
+#: How each controller is run on the nonlinear plant, and how the reach is searched.
+DIGITAL_METHOD = (
+    "the digital controller's difference equations at the samples (T = {T:g} s), the input"
+    " held between them, the nonlinear plant integrated by fixed-step Runge–Kutta (order 4,"
+    " {steps} steps a sample)"
+)
+CONTINUOUS_REACH = (
+    f"largest offset found by bisection ({BISECTIONS} halvings of the search bound: the edge"
+    " of the state's range, else ten times its scale) and confirmed at "
+    + ", ".join(f"{c:g}" for c in CONFIRM)
+    + " of it"
+)
+DIGITAL_REACH = (
+    f"largest offset of a grid of {GRID} up to the search bound (the edge of the state's range,"
+    " else ten times its scale) from which, and from every smaller one, the loop returns"
+)
 
 
-@dataclass(frozen=True)
-class NonlinearStep:
-    """One reference step on the nonlinear plant, beside the linear prediction."""
-
-    size: float
-    time: np.ndarray
-    output: np.ndarray  # tracked output, deviation from y*
-    linear_output: np.ndarray  # the linear loop's prediction, on the same times
-    control: np.ndarray  # applied input deviation u − u* (first input)
-    settled: bool
-    final_error: float  # |y(T) − y* − r| / |r|
-    largest_difference: float  # max |y − y_linear| / |r| over the run
-    note: str = ""
-
-
-@dataclass(frozen=True)
-class AxisReach:
-    """The estimated reach of the loop along one state axis, each side of ``x*``."""
-
-    state: str
-    unit: str
-    below: float  # largest offset below x* that returns (a magnitude)
-    above: float
-    bound_below: float  # the search bound on each side
-    bound_above: float
-    required: float | None
-    note: str = ""
-
-    @property
-    def reach(self) -> float:
-        """The smaller side: offsets of either sign up to this return."""
-        return min(self.below, self.above)
-
-    @property
-    def passed(self) -> bool:
-        return self.required is None or self.reach >= self.required * (1 - 1e-9)
-
-
-@dataclass(frozen=True)
-class NonlinearStudy:
-    steps: tuple[NonlinearStep, ...]
-    reach: tuple[AxisReach, ...]
-    horizon: float
-    u_max: float | None
-    method: str
-    #: why a part was not run ('' when all ran)
-    skipped: str = ""
-    #: each state's scale (its size at the operating point or its peak in the linear steps):
-    #: the unit in which the return of a perturbed start is judged
-    scales: tuple[float, ...] = ()
-
-    @property
-    def steps_passed(self) -> bool:
-        return not self.skipped and all(s.settled for s in self.steps)
-
-    @property
-    def reach_passed(self) -> bool:
-        return not self.skipped and all(r.passed for r in self.reach)
-
-
-class _Loop:
-    """The nonlinear plant and the shipped controller as one ODE, state ``[x; ξ]``."""
-
-    def __init__(self, d, ctrl: ShippedController):
-        model = d.design.model
-        point = model.operating_point
-        self.x_star = np.array([float(v.xreplace(d.design.values)) for v in point.states])
-        self.u_star = np.array([float(v.xreplace(d.design.values)) for v in point.inputs])
-        self.y_star = np.array([float(v.xreplace(d.design.values)) for v in point.outputs])
-        args = (sp.Matrix(model.state_symbols), sp.Matrix(model.input_symbols))
-
-        def compiled(exprs):
-            # code printed by SymPy from the parsed expression tree (names are checked
-            # identifiers; dummify replaces them), never text of the design file
-            body = sp.Matrix(exprs).xreplace(d.design.values)
-            return sp.lambdify(args, body, "numpy", dummify=True)
-
-        self._f = compiled(model.state_equations)
-        self._h = compiled(model.output_equations)
-        self.ctrl = ctrl
-        self.n = self.x_star.size
-        self.ranges = model.state_ranges
-
-    def f(self, x, u):
-        return np.asarray(self._f(x[:, None], u[:, None]), dtype=float).reshape(-1)
-
-    def h(self, x, u):
-        return np.asarray(self._h(x[:, None], u[:, None]), dtype=float).reshape(-1)
-
-
-def _simulate(loop: _Loop, x0, xi0, r: float, horizon: float, u_max, scale, samples=601):
+def _simulate(loop: NonlinearLoop, x0, xi0, r: float, horizon: float, u_max, scale, samples=601):
     """Integrate the loop; returns (t, X, Xi, U, why_stopped)."""
     from scipy.integrate import solve_ivp
 
@@ -223,7 +149,7 @@ def _edges(j, bounds):
     return below, above
 
 
-def _scales(loop: _Loop, linear_runs) -> np.ndarray:
+def _scales(loop: NonlinearLoop, linear_runs) -> np.ndarray:
     """Each state's scale: its size at the operating point or its peak in the linear steps."""
     peaks = np.max([np.max(np.abs(run.state), axis=0) for run in linear_runs], axis=0)
     scale = np.maximum(np.abs(loop.x_star), peaks)
@@ -306,15 +232,6 @@ def nonlinear_study(d, ctrl: ShippedController, horizon: float) -> NonlinearStud
         "scipy.integrate.solve_ivp (LSODA, rtol 1e-7) of the nonlinear plant with the shipped"
         " controller acting on the deviations from the operating point"
     )
-    if ctrl.digital:
-        return NonlinearStudy(
-            (),
-            (),
-            horizon,
-            req.u_max,
-            method,
-            "the digital controller is not simulated on the nonlinear plant",
-        )
     if any(e != 0 for e in d.design.plant.D):
         return NonlinearStudy(
             (),
@@ -324,21 +241,43 @@ def nonlinear_study(d, ctrl: ShippedController, horizon: float) -> NonlinearStud
             method,
             "an output that depends on the input (D ≠ 0) is not simulated on the nonlinear plant",
         )
-    loop = _Loop(d, ctrl)
+    loop = NonlinearLoop(d, ctrl)
     sizes = model.steps or tuple(req.reference * k for k in (0.25, 0.5, 1.0, 2.0))
     linear = [
         simulate_controller(ctrl, reference=r, horizon=horizon, samples=601, u_max=req.u_max)
         for r in sizes
     ]
     scale = _scales(loop, linear)
-    steps = tuple(
-        _step(loop, r, horizon, req.u_max, scale, run) for r, run in zip(sizes, linear, strict=True)
-    )
+    plant_A = np.asarray(d.plant.A, dtype=float)
+    if ctrl.digital:
+        steps = tuple(
+            digital_steps(loop, sizes, horizon, req.u_max, scale, linear, plant_A, SETTLING_BAND)
+        )
+        method = DIGITAL_METHOD.format(
+            T=float(ctrl.sample_time), steps=substep_count(loop, plant_A)
+        )
+
+        def side(axis, sign, bound):
+            return digital_side(
+                loop, axis, sign, bound, horizon, req.u_max, scale, plant_A, RETURN_FRACTION
+            )
+
+        reach_method = DIGITAL_REACH
+    else:
+        steps = tuple(
+            _step(loop, r, horizon, req.u_max, scale, run)
+            for r, run in zip(sizes, linear, strict=True)
+        )
+
+        def side(axis, sign, bound):
+            return _side(loop, axis, sign, bound, horizon, req.u_max, scale)
+
+        reach_method = CONTINUOUS_REACH
     reach = []
     for axis, signal in enumerate(d.design.plant.states):
         low, high = _bounds(loop, axis, scale)
-        below, note_b = _side(loop, axis, -1.0, low, horizon, req.u_max, scale)
-        above, note_a = _side(loop, axis, 1.0, high, horizon, req.u_max, scale)
+        below, note_b = side(axis, -1.0, low)
+        above, note_a = side(axis, 1.0, high)
         reach.append(
             AxisReach(
                 signal.name,
@@ -352,5 +291,11 @@ def nonlinear_study(d, ctrl: ShippedController, horizon: float) -> NonlinearStud
             )
         )
     return NonlinearStudy(
-        steps, tuple(reach), horizon, req.u_max, method, scales=tuple(float(x) for x in scale)
+        steps,
+        tuple(reach),
+        horizon,
+        req.u_max,
+        method,
+        reach_method=reach_method,
+        scales=tuple(float(x) for x in scale),
     )

@@ -297,6 +297,7 @@ PROSE_PATHS = (
     "simulation.pole_map_caption",
     "loop_shapes.figures.*.caption",
     "nonlinear.method",
+    "nonlinear.reach_method",
     "nonlinear.skipped",
     "nonlinear.steps.*.note",
     "nonlinear.figures.*.caption",

@@ -14,8 +14,6 @@ import functools
 import sympy as sp
 
 from ..analysis.nonlinear_study import (
-    BISECTIONS,
-    CONFIRM,
     RETURN_FRACTION,
     SETTLING_BAND,
     NonlinearStudy,
@@ -95,8 +93,7 @@ def memo_nonlinear(
         "u_max": study.u_max,
         "band_percent": 100 * SETTLING_BAND,
         "return_percent": 100 * RETURN_FRACTION,
-        "bisections": BISECTIONS,
-        "confirm": ", ".join(f"{c:g}" for c in CONFIRM),
+        "reach_method": study.reach_method,
         "output": y.name,
         "output_unit": unit_parts(y.unit),
         "steps": [
