@@ -20,14 +20,12 @@ import math
 
 import numpy as np
 
-from .nonlinear_loop import NonlinearLoop
+from .nonlinear_loop import BLOW_UP, NonlinearLoop, step_result
 
 __all__ = ["GRID", "digital_runs", "substep_count"]
 
 #: Offsets tried on each side of the operating point by the digital reach search.
 GRID = 64
-#: A run is stopped as divergent past this many times a state's scale.
-BLOW_UP = 1e6
 
 
 def substep_count(loop: NonlinearLoop, plant_A: np.ndarray) -> int:
@@ -104,7 +102,6 @@ def digital_runs(loop: NonlinearLoop, X0, Xi0, r, horizon: float, u_max, scale, 
 def digital_steps(loop, sizes, horizon, u_max, scale, linear, plant_A, band) -> list:
     """The reference steps, one batched run: :class:`NonlinearStep` per size."""
     from ..verification.shipped import initial_controller_state
-    from .nonlinear_loop import NonlinearStep
 
     B = len(sizes)
     xi0 = initial_controller_state(loop.ctrl, np.zeros(loop.n))
@@ -124,20 +121,7 @@ def digital_steps(loop, sizes, horizon, u_max, scale, linear, plant_A, band) -> 
         y = loop.h_batch(X[:, i, :], np.tile(loop.u_star, (t.size, 1)))[:, tracked]
         y = y - loop.y_star[tracked]
         y_linear = np.interp(t, run.time, run.tracked_output)
-        final = abs(y[-1] - r) / abs(r) if not why[i] else float("inf")
-        out.append(
-            NonlinearStep(
-                size=float(r),
-                time=t,
-                output=y,
-                linear_output=y_linear,
-                control=U[:, i, 0],
-                settled=bool(not why[i] and final <= band),
-                final_error=float(final),
-                largest_difference=float(np.nanmax(np.abs(y - y_linear)) / abs(r)),
-                note=str(why[i]),
-            )
-        )
+        out.append(step_result(r, t, y, y_linear, U[:, i, 0], why[i], horizon, band))
     return out
 
 

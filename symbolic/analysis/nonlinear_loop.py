@@ -16,7 +16,17 @@ import sympy as sp
 
 from ..verification.shipped import ShippedController
 
-__all__ = ["AxisReach", "NonlinearLoop", "NonlinearStep", "NonlinearStudy"]
+__all__ = [
+    "AxisReach",
+    "BLOW_UP",
+    "NonlinearLoop",
+    "NonlinearStep",
+    "NonlinearStudy",
+    "step_result",
+]
+
+#: A run is stopped as divergent past this many times a state's scale.
+BLOW_UP = 1e6
 
 
 class NonlinearLoop:
@@ -126,3 +136,21 @@ class NonlinearStudy:
     @property
     def reach_passed(self) -> bool:
         return not self.skipped and all(r.passed for r in self.reach)
+
+
+def step_result(size, t, y, y_linear, u, why: str, horizon: float, band: float) -> NonlinearStep:
+    """One reference step judged: it settles when it ran to the end of the horizon and ends
+    within ``band`` of the step (the continuous and the digital runs alike)."""
+    final = abs(y[-1] - size) / abs(size) if not why else float("inf")
+    settled = not why and t[-1] >= horizon * (1 - 1e-12) and final <= band
+    return NonlinearStep(
+        size=float(size),
+        time=t,
+        output=y,
+        linear_output=y_linear,
+        control=u,
+        settled=bool(settled),
+        final_error=float(final),
+        largest_difference=float(np.nanmax(np.abs(y - y_linear)) / abs(size)),
+        note=str(why),
+    )

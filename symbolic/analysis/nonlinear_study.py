@@ -37,7 +37,14 @@ import numpy as np
 from ..verification.shipped import ShippedController, initial_controller_state
 from ..verification.shipped_simulation import simulate_controller
 from .nonlinear_digital import GRID, digital_side, digital_steps, substep_count
-from .nonlinear_loop import AxisReach, NonlinearLoop, NonlinearStep, NonlinearStudy
+from .nonlinear_loop import (
+    BLOW_UP,
+    AxisReach,
+    NonlinearLoop,
+    NonlinearStep,
+    NonlinearStudy,
+    step_result,
+)
 
 __all__ = [
     "AxisReach",
@@ -55,8 +62,6 @@ RETURN_FRACTION = 0.02
 BISECTIONS = 8
 #: Fractions of the reach at which the estimate is confirmed.
 CONFIRM = (0.25, 0.5, 0.75)
-#: A run is stopped as divergent past this many times a state's scale.
-BLOW_UP = 1e6
 #: How each controller is run on the nonlinear plant, and how the reach is searched.
 DIGITAL_METHOD = (
     "the digital controller's difference equations at the samples (T = {T:g} s), the input"
@@ -164,19 +169,7 @@ def _step(loop, r, horizon, u_max, scale, linear) -> NonlinearStep:
     y = np.array([loop.h(x, loop.u_star + u)[tracked] for x, u in zip(X, U, strict=True)])
     y = y - loop.y_star[tracked]
     y_linear = np.interp(t, linear.time, linear.tracked_output)
-    final = abs(y[-1] - r) / abs(r) if not why else float("inf")
-    settled = not why and t[-1] >= horizon * (1 - 1e-12) and final <= SETTLING_BAND
-    return NonlinearStep(
-        size=r,
-        time=t,
-        output=y,
-        linear_output=y_linear,
-        control=U[:, 0],
-        settled=bool(settled),
-        final_error=float(final),
-        largest_difference=float(np.max(np.abs(y - y_linear)) / abs(r)),
-        note=why,
-    )
+    return step_result(r, t, y, y_linear, U[:, 0], why, horizon, SETTLING_BAND)
 
 
 def _returns(loop, axis, offset, horizon, u_max, scale) -> bool:

@@ -70,7 +70,8 @@ def read_model(
     states, ranges = _states(fields, data["states"])
     n = len(states)
     equations = _expressions(fields, data["state_equations"], "model.state_equations", n)
-    p = len(equations_list(fields, data["output_equations"], "model.output_equations"))
+    h_items = _expressions(fields, data["output_equations"], "model.output_equations")
+    p = len(h_items)
     inputs = read_signals(
         fields, data.get("inputs"), "model.inputs", _input_count(fields, data), "u"
     )
@@ -79,7 +80,6 @@ def read_model(
     us = tuple(sp.Symbol(s.name, real=True) for s in inputs)
     vocabulary = _vocabulary(fields, symbols, states, inputs)
     f = tuple(_parse(fields, t, k, vocabulary) for k, t in equations)
-    h_items = _expressions(fields, data["output_equations"], "model.output_equations", p)
     h = tuple(_parse(fields, t, k, vocabulary) for k, t in h_items)
     if p > n:
         fields.fail("model.output_equations", f"{p} outputs for {n} states; at most {n}")
@@ -154,9 +154,12 @@ def _range(fields: FieldReader, value: Any, key: str) -> tuple[float, float]:
     return (low, high)
 
 
-def _expressions(fields: FieldReader, value: Any, key: str, count: int) -> list[tuple[str, str]]:
+def _expressions(
+    fields: FieldReader, value: Any, key: str, count: int | None = None
+) -> list[tuple[str, str]]:
+    """``(key, text)`` of each expression of the list at ``key`` (``count`` of them, if given)."""
     items = equations_list(fields, value, key)
-    if len(items) != count:
+    if count is not None and len(items) != count:
         what = "state" if key.endswith("state_equations") else "output"
         fields.fail(key, f"has {len(items)} entries; expected {count}, one per {what}")
     out = []

@@ -104,7 +104,7 @@ def _solve(equations, unknowns, keep, budget) -> tuple[list[dict], bool]:
     """Closed-form solutions (dicts unknown → expression), or ``([], False)`` if none came."""
     try:
         found = run_bounded(
-            _sympy_solve,
+            _closed_form_solutions,
             (equations, unknowns, keep),
             seconds=min(budget, SOLVE_SECONDS) if budget else None,
             what="equilibrium",
@@ -115,7 +115,7 @@ def _solve(equations, unknowns, keep, budget) -> tuple[list[dict], bool]:
     return complete, bool(complete)
 
 
-def _sympy_solve(equations, unknowns, keep) -> list[dict]:
+def _closed_form_solutions(equations, unknowns, keep) -> list[dict]:
     try:
         return _eliminate([_numerator(e) for e in equations], list(unknowns), 0, keep)
     except (NotImplementedError, ValueError, TypeError):
